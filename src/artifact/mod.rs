@@ -1,0 +1,94 @@
+//! Model artifacts: our own JSON format (documented in models/README.md), loaded, digested and
+//! validated into a [`LoadedModel`] ready to decide.
+
+mod digest;
+pub mod spec;
+mod validate;
+
+pub use digest::{canonical_json, sha256_hex};
+
+use crate::explain::Explainer;
+use crate::features::Schema;
+use crate::model::Scorer;
+use crate::policy::Policy;
+use crate::reasons::ReasonTable;
+use spec::{ArtifactSpec, IdentitySpec, ReferenceSpec};
+use std::path::Path;
+
+/// A problem with an artifact: where in the JSON, which rule, and what to do.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("{path}: {message} [{rule}]")]
+pub struct ArtifactError {
+    /// JSONPath-style location, e.g. `$.model.trees[3].nodes[7].left`.
+    pub path: String,
+    pub rule: String,
+    pub message: String,
+}
+
+impl ArtifactError {
+    pub fn new(path: impl Into<String>, rule: &str, message: impl Into<String>) -> Self {
+        ArtifactError {
+            path: path.into(),
+            rule: rule.to_string(),
+            message: message.into(),
+        }
+    }
+}
+
+/// A validated model, compiled for scoring and explanation.
+#[derive(Debug, Clone)]
+pub struct LoadedModel {
+    pub identity: IdentitySpec,
+    /// SHA-256 of the artifact's canonical JSON bytes, lower-case hex.
+    pub sha256: String,
+    pub schema: Schema,
+    pub scorer: Scorer,
+    pub explainer: Explainer,
+    pub reference: ReferenceSpec,
+    pub reasons: ReasonTable,
+    pub policy: Policy,
+    /// The artifact as read, for inspection.
+    pub spec: ArtifactSpec,
+}
+
+impl LoadedModel {
+    /// Reads, digests and validates an artifact file.
+    pub fn from_path(path: &Path) -> Result<Self, ArtifactError> {
+        let bytes = std::fs::read(path).map_err(|e| {
+            ArtifactError::new("$", "readable", format!("cannot read {}: {e}", path.display()))
+        })?;
+        Self::from_slice(&bytes)
+    }
+
+    /// Parses, digests and validates artifact bytes.
+    pub fn from_slice(bytes: &[u8]) -> Result<Self, ArtifactError> {
+        let value: serde_json::Value = serde_json::from_slice(bytes).map_err(|e| {
+            ArtifactError::new(
+                "$",
+                "json",
+                format!("not valid JSON: {e} (line {}, column {})", e.line(), e.column()),
+            )
+        })?;
+        Self::from_value(value)
+    }
+
+    /// Digests and validates an already-parsed artifact.
+    pub fn from_value(value: serde_json::Value) -> Result<Self, ArtifactError> {
+        let sha256 = sha256_hex(&canonical_json(&value));
+        let spec: ArtifactSpec = serde_path_to_error::deserialize(&value).map_err(|e| {
+            let path = e.path().to_string();
+            let path = if path == "." {
+                "$".to_string()
+            } else {
+                format!("$.{path}")
+            };
+            ArtifactError::new(path, "shape", e.into_inner().to_string())
+        })?;
+        validate::compile(spec, sha256)
+    }
+
+    /// Number of encoded model columns.
+    pub fn width(&self) -> usize {
+        self.schema.columns.len()
+    }
+}

@@ -1,0 +1,299 @@
+//! The on-disk model artifact, exactly as written in JSON.
+//!
+//! These types mirror the file one to one so that a deserialisation error can name the JSON path.
+//! Semantic rules (indices in range, reason table complete, cutoffs ordered, ...) are checked in
+//! [`super::validate`], which turns a spec into a [`crate::LoadedModel`].
+
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+
+/// Tag written in every artifact so that a stray JSON file is not mistaken for a model.
+pub const FORMAT_TAG: &str = "plumbline.model";
+/// The one format version this build reads.
+pub const FORMAT_VERSION: u32 = 1;
+
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ArtifactSpec {
+    pub format: String,
+    pub format_version: u32,
+    pub identity: IdentitySpec,
+    pub features: Vec<FieldSpec>,
+    pub model: ModelSpec,
+    pub explanation: ExplanationSpec,
+    pub reasons: Vec<ReasonSpec>,
+    pub policy: PolicySpec,
+    /// Free-form facts about how the model was built (rows, base rate, CV AUC, data digest, seed).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub provenance: Option<serde_json::Value>,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct IdentitySpec {
+    pub model_id: String,
+    pub version: String,
+    pub description: String,
+    /// RFC 3339 timestamp, as written by the producer.
+    pub created_at: String,
+    /// Name and version of the program that wrote the file.
+    pub producer: String,
+}
+
+/// One applicant input field.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FieldSpec {
+    pub name: String,
+    pub kind: FieldKind,
+    #[serde(default)]
+    pub unit: String,
+    /// Inclusive lower bound (number and count fields).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub min: Option<f64>,
+    /// Inclusive upper bound (number and count fields).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub max: Option<f64>,
+    /// Category levels, in encoding order (category fields only).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub levels: Vec<String>,
+    /// The level dropped for n-1 dummy coding (category fields only).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub base_level: Option<String>,
+    pub missing: MissingSpec,
+    /// `false` for a field used only by policy rule checks, never by the model.
+    #[serde(default = "yes")]
+    pub scored: bool,
+    /// Reason code this field's contribution is reported under (scored fields only).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub reason: Option<String>,
+}
+
+fn yes() -> bool {
+    true
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum FieldKind {
+    /// A real number.
+    Number,
+    /// A non-negative whole number (inquiries, delinquencies, months).
+    Count,
+    /// true / false, encoded 1 / 0.
+    Boolean,
+    /// One of a fixed list of levels, encoded as n-1 dummies.
+    Category,
+}
+
+/// What a missing (absent or `null`) value does.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(tag = "policy", rename_all = "snake_case", deny_unknown_fields)]
+pub enum MissingSpec {
+    /// The field is required; a missing value is an input error.
+    Reject,
+    /// Replace by a stated value before encoding (the value is echoed in every decision).
+    Impute { value: serde_json::Value },
+    /// Tree models only: every split on this field sends a missing value its node's missing side.
+    TreeDefault,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
+pub enum ModelSpec {
+    /// log-odds of default = intercept + sum(coefficient * encoded column).
+    Logistic {
+        intercept: f64,
+        /// Keyed by encoded column name (`field` or `field=level`).
+        coefficients: BTreeMap<String, f64>,
+    },
+    TreeEnsemble {
+        aggregation: Aggregation,
+        /// Added to the sum of tree outputs (`sum_log_odds` only; must be 0 for `mean_probability`).
+        #[serde(default)]
+        base_score: f64,
+        trees: Vec<TreeSpec>,
+    },
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Aggregation {
+    /// Random forest: each leaf holds a probability of default; the model averages them.
+    MeanProbability,
+    /// Boosted trees: leaves hold log-odds increments; the model sums them plus `base_score`.
+    SumLogOdds,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TreeSpec {
+    /// Node 0 is the root.
+    pub nodes: Vec<NodeSpec>,
+}
+
+/// A split node (column, threshold, comparison, missing, left, right) or a leaf (value).
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct NodeSpec {
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub column: Option<String>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub threshold: Option<f64>,
+    /// `<=` or `<`: a value satisfying `value COMPARISON threshold` goes left.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub comparison: Option<Comparison>,
+    /// Where a missing value goes at this split.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub missing: Option<Side>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub left: Option<usize>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub right: Option<usize>,
+    /// Leaf output (probability or log-odds increment, by the ensemble's aggregation).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub value: Option<f64>,
+    /// Training rows (or weight) reaching this node; needed for path-dependent TreeSHAP.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub cover: Option<f64>,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum Comparison {
+    #[serde(rename = "<=")]
+    LessOrEqual,
+    #[serde(rename = "<")]
+    Less,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Side {
+    Left,
+    Right,
+}
+
+/// Against which population contributions are measured, and how.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ExplanationSpec {
+    pub method: ExplainMethod,
+    pub reference: ReferenceSpec,
+    /// Mean of each encoded column over the reference population (logistic).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub mean: Option<BTreeMap<String, f64>>,
+    /// Reference applicants, as applicant JSON objects (interventional TreeSHAP; logistic may
+    /// use their mean instead of `mean`).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub background: Vec<serde_json::Map<String, serde_json::Value>>,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ExplainMethod {
+    /// beta_j * (x_j - reference_j), in log-odds.
+    Linear,
+    /// TreeSHAP conditioning on the training population through node covers.
+    TreePathDependent,
+    /// TreeSHAP against the background sample (Lundberg et al. 2020).
+    TreeInterventional,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ReferenceSpec {
+    pub population: Population,
+    /// Who exactly, in words (e.g. "approved applications 2025-Q3 with PD in [0.06, 0.08)").
+    pub label: String,
+}
+
+/// The two example methods of Regulation B, Official Interpretation comment 9(b)(2)-5.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Population {
+    AllApplicants,
+    NearApproveCutoff,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ReasonSpec {
+    pub code: String,
+    /// Specific, applicant-facing statement of the reason.
+    pub text: String,
+    /// Marks the inquiries reason that FCRA 15 U.S.C. 1681g(f)(1)(C) lets travel as an extra factor.
+    #[serde(default)]
+    pub inquiry: bool,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PolicySpec {
+    /// Approve when probability of default is strictly below this.
+    pub approve_below: f64,
+    /// Decline when probability of default is at or above this; refer in between.
+    pub decline_at_or_above: f64,
+    pub scaling: ScalingSpec,
+    #[serde(default = "four")]
+    pub max_reasons: usize,
+    /// Add the inquiry reason as one extra when it is adverse but outside the top `max_reasons`.
+    #[serde(default)]
+    pub inquiry_extra: bool,
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub rules: Vec<RuleSpec>,
+}
+
+fn four() -> usize {
+    4
+}
+
+/// score = offset + factor * ln(good:bad odds), factor = pdo / ln 2, anchored at `points` for `odds`.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ScalingSpec {
+    pub points: f64,
+    pub odds: f64,
+    pub pdo: f64,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub min_score: Option<f64>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub max_score: Option<f64>,
+}
+
+/// A policy rule check: `field TEST value` triggers `action` with its own reason code.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RuleSpec {
+    pub code: String,
+    pub field: String,
+    pub test: RuleTest,
+    /// Compared value (omitted for `missing`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub value: Option<serde_json::Value>,
+    pub action: RuleAction,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum RuleTest {
+    #[serde(rename = ">")]
+    Greater,
+    #[serde(rename = ">=")]
+    GreaterOrEqual,
+    #[serde(rename = "<")]
+    Less,
+    #[serde(rename = "<=")]
+    LessOrEqual,
+    #[serde(rename = "==")]
+    Equal,
+    #[serde(rename = "!=")]
+    NotEqual,
+    #[serde(rename = "missing")]
+    Missing,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum RuleAction {
+    Refer,
+    Decline,
+}

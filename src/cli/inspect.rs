@@ -1,0 +1,148 @@
+//! `plumbline inspect`: what a model artifact holds, for a person (text) or a program (JSON).
+
+use super::load;
+use crate::artifact::LoadedModel;
+use crate::explain::Explainer;
+use crate::features::{FieldType, Missing};
+use crate::model::Scorer;
+use serde_json::json;
+use std::fmt::Write;
+use std::path::Path;
+
+pub fn run(path: &Path, as_json: bool) -> i32 {
+    let model = match load(path) {
+        Ok(m) => m,
+        Err(code) => return code,
+    };
+    if as_json {
+        println!("{}", serde_json::to_string_pretty(&summary(&model)).expect("summary serialises"));
+    } else {
+        print!("{}", text(&model));
+    }
+    0
+}
+
+fn missing_text(m: &Missing) -> String {
+    match m {
+        Missing::Reject => "required".into(),
+        Missing::Impute(v) => format!("impute {v}"),
+        Missing::TreeDefault => "tree default side".into(),
+    }
+}
+
+fn type_text(t: &FieldType) -> String {
+    match t {
+        FieldType::Category { levels, base } => {
+            format!("category [{}], base {}", levels.join(", "), levels[*base])
+        }
+        other => other.name().into(),
+    }
+}
+
+/// Trees, depth and leaves, or coefficients.
+fn model_lines(model: &LoadedModel) -> Vec<String> {
+    match &model.scorer {
+        Scorer::Logistic(m) => {
+            let mut v = vec![format!("logistic regression, intercept {}", m.intercept)];
+            for (c, b) in model.schema.columns.iter().zip(&m.coefficients) {
+                v.push(format!("  {:<32} {b:>+14.6e}", c.name));
+            }
+            v
+        }
+        Scorer::Trees(e) => {
+            let leaves: usize = e.trees.iter().map(|t| t.leaves()).sum();
+            let mean_depth = e.trees.iter().map(|t| t.depth).sum::<usize>() as f64 / e.trees.len() as f64;
+            vec![
+                format!("tree ensemble, {:?}, base score {}", e.aggregation, e.base_score),
+                format!("  trees {}, leaves {leaves}, depth max {} mean {mean_depth:.2}", e.trees.len(), e.max_depth()),
+            ]
+        }
+    }
+}
+
+fn explain_line(model: &LoadedModel) -> String {
+    let space = crate::explain::space_name(model.scorer.space());
+    let extra = match &model.explainer {
+        Explainer::PathDependent(p) => {
+            let (tab, leaves, values) = p.table_stats();
+            format!(", {tab} of {leaves} leaves tabulated ({values} values)")
+        }
+        Explainer::Interventional(i) => format!(", background of {} rows", i.background_rows()),
+        Explainer::Linear(_) => String::new(),
+    };
+    format!(
+        "{:?} against {:?} \"{}\", base value {} ({space}){extra}",
+        model.explainer.method(),
+        model.reference.population,
+        model.reference.label,
+        model.explainer.base_value()
+    )
+}
+
+fn text(model: &LoadedModel) -> String {
+    let mut s = String::new();
+    let id = &model.identity;
+    let _ = writeln!(s, "model      {} version {}", id.model_id, id.version);
+    let _ = writeln!(s, "sha256     {}", model.sha256);
+    let _ = writeln!(s, "created    {} by {}", id.created_at, id.producer);
+    let _ = writeln!(s, "about      {}", id.description);
+    let _ = writeln!(s, "\nfields ({} fields, {} encoded columns)", model.schema.fields.len(), model.schema.columns.len());
+    for f in &model.schema.fields {
+        let range = match (f.min, f.max) {
+            (None, None) => String::new(),
+            (lo, hi) => format!(" range [{}, {}]", lo.map_or("-".into(), |v| v.to_string()), hi.map_or("-".into(), |v| v.to_string())),
+        };
+        let reason = f.reason.map_or("policy only".to_string(), |r| format!("reason {}", model.reasons.reasons[r].code));
+        let unit = if f.unit.is_empty() { String::new() } else { format!(" ({})", f.unit) };
+        let _ = writeln!(s, "  {}{unit}: {}{range}; missing: {}; {reason}", f.name, type_text(&f.ty), missing_text(&f.missing));
+    }
+    let _ = writeln!(s, "\nmodel");
+    for line in model_lines(model) {
+        let _ = writeln!(s, "  {line}");
+    }
+    let _ = writeln!(s, "\nexplanations\n  {}", explain_line(model));
+    let p = &model.policy;
+    let sc = &p.scaling;
+    let _ = writeln!(s, "\npolicy");
+    let _ = writeln!(s, "  approve when PD < {}; decline when PD >= {}; refer between", p.approve_below, p.decline_at_or_above);
+    let _ = writeln!(s, "  score = {:.4} + {:.4} * ln(good:bad odds)  ({} points at {}:1, PDO {})", sc.offset, sc.factor, sc.points, sc.odds, sc.pdo);
+    let _ = writeln!(s, "  at most {} reasons{}", p.max_reasons, if p.inquiry_extra { ", plus an inquiries reason as an extra" } else { "" });
+    for r in &p.rules {
+        let value = model.spec.policy.rules.iter().find(|x| x.code == model.reasons.reasons[r.reason].code).and_then(|x| x.value.clone());
+        let _ = writeln!(s, "  rule {}: {} {:?} {} -> {:?}", model.reasons.reasons[r.reason].code, model.schema.fields[r.field].name, r.test, value.map_or(String::new(), |v| v.to_string()), r.action);
+    }
+    let _ = writeln!(s, "\nreasons");
+    for r in &model.reasons.reasons {
+        let _ = writeln!(s, "  {:<8} {}{}", r.code, r.text, if r.inquiry { "  [inquiry]" } else { "" });
+    }
+    let _ = writeln!(s, "\nModel output is decision support; the lender remains responsible for ECOA/Regulation B, FCRA and local law.");
+    s
+}
+
+fn summary(model: &LoadedModel) -> serde_json::Value {
+    let id = &model.identity;
+    json!({
+        "model_id": id.model_id,
+        "version": id.version,
+        "sha256": model.sha256,
+        "created_at": id.created_at,
+        "producer": id.producer,
+        "fields": model.schema.fields.iter().map(|f| json!({
+            "name": f.name, "kind": f.ty.name(), "unit": f.unit, "min": f.min, "max": f.max,
+            "missing": missing_text(&f.missing), "scored": f.scored,
+            "reason": f.reason.map(|r| model.reasons.reasons[r].code.clone()),
+            "columns": model.schema.columns[f.columns.clone()].iter().map(|c| c.name.clone()).collect::<Vec<_>>(),
+        })).collect::<Vec<_>>(),
+        "model": model_lines(model),
+        "explanation": explain_line(model),
+        "policy": {
+            "approve_below": model.policy.approve_below,
+            "decline_at_or_above": model.policy.decline_at_or_above,
+            "score_factor": model.policy.scaling.factor,
+            "score_offset": model.policy.scaling.offset,
+            "max_reasons": model.policy.max_reasons,
+            "inquiry_extra": model.policy.inquiry_extra,
+        },
+        "reasons": model.reasons.reasons.iter().map(|r| json!({"code": r.code, "text": r.text, "inquiry": r.inquiry})).collect::<Vec<_>>(),
+    })
+}

@@ -1,0 +1,67 @@
+//! `plumbline score`: decisions as JSON lines on stdout, problems on stderr.
+
+use super::{load, EXIT_BAD_INPUT, EXIT_FAILURE};
+use std::io::{Read, Write};
+use std::path::Path;
+
+pub fn run(model: &Path, input: Option<&Path>) -> i32 {
+    let model = match load(model) {
+        Ok(m) => m,
+        Err(code) => return code,
+    };
+    let mut text = String::new();
+    let read = match input {
+        None => std::io::stdin().read_to_string(&mut text).map(|_| ()),
+        Some(p) if p.as_os_str() == "-" => std::io::stdin().read_to_string(&mut text).map(|_| ()),
+        Some(p) => std::fs::read_to_string(p).map(|t| text = t),
+    };
+    if let Err(e) = read {
+        eprintln!("error: cannot read input: {e}");
+        return EXIT_FAILURE;
+    }
+    let stdout = std::io::stdout();
+    let mut out = std::io::BufWriter::new(stdout.lock());
+    let mut status = 0;
+    let mut count = 0;
+    let mut stream = serde_json::Deserializer::from_str(&text).into_iter::<serde_json::Value>();
+    loop {
+        let start = stream.byte_offset();
+        let request = match stream.next() {
+            None => break,
+            Some(Ok(v)) => v,
+            Some(Err(e)) => {
+                eprintln!("error: request {}: malformed JSON at line {}, column {}: {e}", count + 1, e.line(), e.column());
+                status = EXIT_BAD_INPUT;
+                break;
+            }
+        };
+        count += 1;
+        let line = text[..start].matches('\n').count() + 1 + leading_newlines(&text[start..]);
+        match crate::decide_request(&model, &request) {
+            Ok(decision) => {
+                let json = serde_json::to_string(&decision).expect("decisions serialise");
+                if writeln!(out, "{json}").is_err() {
+                    return EXIT_FAILURE;
+                }
+            }
+            Err(e) => {
+                for f in &e.errors {
+                    eprintln!("error: request {count} (line {line}): {}: {} [{}]", f.field, f.message, f.rule);
+                }
+                status = EXIT_BAD_INPUT;
+            }
+        }
+    }
+    if count == 0 && status == 0 {
+        eprintln!("error: no request in input");
+        status = EXIT_BAD_INPUT;
+    }
+    if out.flush().is_err() {
+        return EXIT_FAILURE;
+    }
+    status
+}
+
+fn leading_newlines(s: &str) -> usize {
+    s.chars().take_while(|c| c.is_whitespace()).filter(|&c| c == '\n').count()
+}

@@ -1,0 +1,236 @@
+//! The decision pipeline, as one function: check -> encode -> score -> explain -> reasons ->
+//! policy -> decision. The HTTP service and the command line both call [`decide_request`], so
+//! the same input and model give the same bytes everywhere.
+
+use crate::artifact::spec::{Population, RuleAction};
+use crate::artifact::LoadedModel;
+use crate::explain::{self, Method};
+use crate::features::{kind_of, InputError, MissingTreatment};
+use crate::model::Space;
+use crate::policy::Outcome;
+use crate::reasons::{PrincipalReason, ReasonLimits};
+use serde::Serialize;
+use serde_json::Value;
+
+/// Longest application id accepted.
+pub const MAX_APPLICATION_ID: usize = 128;
+
+/// Which model made a decision: id, version and artifact digest.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ModelRef {
+    pub id: String,
+    pub version: String,
+    pub sha256: String,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Decision {
+    pub application_id: String,
+    pub model: ModelRef,
+    pub outcome: Outcome,
+    pub probability_of_default: f64,
+    /// Natural log of the odds of default, p / (1 - p).
+    pub log_odds: f64,
+    pub score: i64,
+    /// Principal reasons, most important first; empty when approved.
+    pub reasons: Vec<PrincipalReason>,
+    pub rules_fired: Vec<FiredRule>,
+    pub contributions: ContributionReport,
+    /// Fields that were missing and what was done about each.
+    pub missing: Vec<MissingField>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FiredRule {
+    pub code: String,
+    pub field: String,
+    pub action: RuleAction,
+}
+
+/// Exact contributions: `base_value + sum(fields[].contribution) = model_output`, in `space`.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ContributionReport {
+    pub space: Space,
+    pub method: Method,
+    pub reference: ReferenceRef,
+    pub base_value: f64,
+    pub model_output: f64,
+    /// One entry per scored field in schema order; category dummies are summed into their field.
+    pub fields: Vec<FieldContribution>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ReferenceRef {
+    pub population: Population,
+    pub label: String,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FieldContribution {
+    pub field: String,
+    /// The value as given (null when missing).
+    pub value: Value,
+    pub contribution: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct MissingField {
+    pub field: String,
+    #[serde(flatten)]
+    pub treatment: MissingTreatment,
+}
+
+/// Decides a request envelope `{"application_id": "...", "applicant": {...}}`.
+pub fn decide_request(model: &LoadedModel, request: &Value) -> Result<Decision, InputError> {
+    let Some(obj) = request.as_object() else {
+        return Err(InputError::one("$", "type", format!("expected a JSON object, got {}", kind_of(request))));
+    };
+    let mut errors = Vec::new();
+    for key in obj.keys() {
+        if key != "application_id" && key != "applicant" {
+            errors.push(crate::features::FieldError {
+                field: key.clone(),
+                rule: "unknown_field",
+                message: "is not part of a decision request (application_id, applicant)".into(),
+            });
+        }
+    }
+    let id = match obj.get("application_id") {
+        Some(Value::String(s)) => match application_id_problem(s) {
+            None => Some(s.as_str()),
+            Some(msg) => {
+                errors.push(field_error("application_id", "format", msg));
+                None
+            }
+        },
+        None | Some(Value::Null) => {
+            errors.push(field_error("application_id", "required", "is required".into()));
+            None
+        }
+        Some(v) => {
+            errors.push(field_error("application_id", "type", format!("expected a string, got {}", kind_of(v))));
+            None
+        }
+    };
+    let applicant = match obj.get("applicant") {
+        None | Some(Value::Null) => {
+            errors.push(field_error("applicant", "required", "is required".into()));
+            None
+        }
+        Some(v) => Some(v),
+    };
+    let result = applicant.map(|a| decide(model, id.unwrap_or(""), a));
+    if let Some(Err(e)) = &result {
+        errors.extend(e.errors.iter().cloned());
+    }
+    match result {
+        Some(Ok(d)) if errors.is_empty() => Ok(d),
+        _ => Err(InputError { errors }),
+    }
+}
+
+fn field_error(field: &str, rule: &'static str, message: String) -> crate::features::FieldError {
+    crate::features::FieldError { field: field.into(), rule, message }
+}
+
+fn application_id_problem(s: &str) -> Option<String> {
+    if s.is_empty() || s.chars().count() > MAX_APPLICATION_ID {
+        Some(format!("must be 1 to {MAX_APPLICATION_ID} characters"))
+    } else if s.chars().any(char::is_control) {
+        Some("must not contain control characters".into())
+    } else {
+        None
+    }
+}
+
+/// Decides one applicant object.
+pub fn decide(model: &LoadedModel, application_id: &str, applicant: &Value) -> Result<Decision, InputError> {
+    let encoded = model.schema.check_and_encode(applicant, "applicant")?;
+    let x = &encoded.columns;
+    let raw = model.scorer.raw(x);
+    let (probability, log_odds) = model.scorer.probability_and_log_odds(raw);
+
+    let mut by_column = vec![0.0; x.len()];
+    model.explainer.explain_into(x, &mut by_column);
+    let base = model.explainer.base_value();
+    debug_assert!(
+        explain::is_additive(base, &by_column, raw),
+        "contributions do not add up: base {base} + {:?} != {raw}",
+        by_column
+    );
+
+    let schema = &model.schema;
+    let mut fields = Vec::new();
+    let mut by_code = vec![0.0; model.reasons.reasons.len()];
+    for f in schema.fields.iter().filter(|f| f.scored) {
+        let c: f64 = by_column[f.columns.clone()].iter().sum();
+        if let Some(r) = f.reason {
+            by_code[r] += c;
+        }
+        fields.push(FieldContribution {
+            field: f.name.clone(),
+            value: given_value(applicant, &f.name),
+            contribution: c,
+        });
+    }
+
+    let policy = &model.policy;
+    let fired = policy.fired(&encoded.values);
+    let outcome = fired
+        .iter()
+        .map(|&r| Outcome::from(policy.rules[r].action))
+        .fold(policy.model_outcome(probability), Outcome::max);
+    let reasons = if outcome == Outcome::Approve {
+        Vec::new()
+    } else {
+        let rule_codes: Vec<usize> = fired.iter().map(|&r| policy.rules[r].reason).collect();
+        let limits = ReasonLimits { max_reasons: policy.max_reasons, inquiry_extra: policy.inquiry_extra };
+        model.reasons.principal(&by_code, &rule_codes, limits)
+    };
+
+    Ok(Decision {
+        application_id: application_id.to_string(),
+        model: ModelRef {
+            id: model.identity.model_id.clone(),
+            version: model.identity.version.clone(),
+            sha256: model.sha256.clone(),
+        },
+        outcome,
+        probability_of_default: probability,
+        log_odds,
+        score: policy.scaling.score(log_odds),
+        reasons,
+        rules_fired: fired
+            .iter()
+            .map(|&r| {
+                let rule = &policy.rules[r];
+                FiredRule {
+                    code: model.reasons.reasons[rule.reason].code.clone(),
+                    field: schema.fields[rule.field].name.clone(),
+                    action: rule.action,
+                }
+            })
+            .collect(),
+        contributions: ContributionReport {
+            space: model.scorer.space(),
+            method: model.explainer.method(),
+            reference: ReferenceRef {
+                population: model.reference.population,
+                label: model.reference.label.clone(),
+            },
+            base_value: base,
+            model_output: raw,
+            fields,
+        },
+        missing: encoded
+            .missing
+            .into_iter()
+            .map(|(i, treatment)| MissingField { field: schema.fields[i].name.clone(), treatment })
+            .collect(),
+    })
+}
+
+fn given_value(applicant: &Value, name: &str) -> Value {
+    applicant.get(name).cloned().unwrap_or(Value::Null)
+}
+

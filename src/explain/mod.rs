@@ -1,0 +1,88 @@
+//! Exact per-column contributions: base value + sum(contributions) = model output.
+//!
+//! Every number here is in the model's [`Space`]: log-odds for logistic and boosted models,
+//! probability for forests. Contributions are per encoded column; summing dummies back to their
+//! field happens in [`crate::decide`].
+
+mod linear;
+mod paths;
+mod tree_interventional;
+mod tree_path;
+mod weights;
+
+pub use linear::LinearExplainer;
+pub use paths::TreePaths;
+pub use tree_interventional::InterventionalExplainer;
+pub use tree_path::PathExplainer;
+
+use crate::model::Space;
+
+/// Which algorithm produced a set of contributions.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Method {
+    Linear,
+    TreePathDependent,
+    TreeInterventional,
+}
+
+/// A compiled explainer, ready for one row at a time.
+#[derive(Debug, Clone)]
+pub enum Explainer {
+    Linear(LinearExplainer),
+    PathDependent(PathExplainer),
+    Interventional(InterventionalExplainer),
+}
+
+impl Explainer {
+    pub fn method(&self) -> Method {
+        match self {
+            Explainer::Linear(_) => Method::Linear,
+            Explainer::PathDependent(_) => Method::TreePathDependent,
+            Explainer::Interventional(_) => Method::TreeInterventional,
+        }
+    }
+
+    /// The model output of the reference population that contributions are measured from.
+    pub fn base_value(&self) -> f64 {
+        match self {
+            Explainer::Linear(e) => e.base_value(),
+            Explainer::PathDependent(e) => e.base_value(),
+            Explainer::Interventional(e) => e.base_value(),
+        }
+    }
+
+    /// Writes one contribution per encoded column into `out` (overwritten, not added to).
+    pub fn explain_into(&self, x: &[f64], out: &mut [f64]) {
+        out.fill(0.0);
+        match self {
+            Explainer::Linear(e) => e.explain_into(x, out),
+            Explainer::PathDependent(e) => e.explain_into(x, out),
+            Explainer::Interventional(e) => e.explain_into(x, out),
+        }
+    }
+}
+
+/// Tolerance of the additivity check: |base + sum - output| <= 1e-9 * max(1, |output|).
+pub const ADDITIVITY_TOLERANCE: f64 = 1e-9;
+
+/// Whether contributions add up to the output within [`ADDITIVITY_TOLERANCE`].
+pub fn is_additive(base: f64, contributions: &[f64], output: f64) -> bool {
+    let total = base + contributions.iter().sum::<f64>();
+    (total - output).abs() <= ADDITIVITY_TOLERANCE * output.abs().max(1.0)
+}
+
+/// Convenience for tests and tools: contributions and base for one row.
+pub fn explain(explainer: &Explainer, x: &[f64]) -> (f64, Vec<f64>) {
+    let mut out = vec![0.0; x.len()];
+    explainer.explain_into(x, &mut out);
+    (explainer.base_value(), out)
+}
+
+/// Documented with each number: the space, for readers of JSON.
+pub fn space_name(space: Space) -> &'static str {
+    match space {
+        Space::LogOdds => "log_odds",
+        Space::Probability => "probability",
+    }
+}

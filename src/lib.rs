@@ -1,0 +1,27 @@
+//! plumbline: a self-hosted credit-decision engine.
+//!
+//! The pipeline, one module per stage, data flowing one way:
+//!
+//! ```text
+//! artifact (load, validate) -> features (check, encode) -> model (score) -> explain (exact
+//! contributions) -> reasons (rank) -> policy (cutoffs, scaling, rules) -> decide (one call)
+//! ```
+//!
+//! Model output is decision support. Lenders remain responsible for complying with ECOA /
+//! Regulation B, FCRA and local law, and for their own model-risk review.
+
+pub mod artifact;
+pub mod cli;
+pub mod decide;
+pub mod explain;
+pub mod features;
+pub mod model;
+pub mod policy;
+pub mod reasons;
+
+pub use artifact::{ArtifactError, LoadedModel};
+pub use decide::{decide, decide_request, Decision};
+pub use features::InputError;
+
+/// The version written into records and artifacts produced by this build.
+pub const VERSION: &str = env!("CARGO_PKG_VERSION");

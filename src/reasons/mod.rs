@@ -1,0 +1,223 @@
+//! Reason codes: the owner-defined table, and choosing the principal reasons of one decision.
+//!
+//! Rules followed (Regulation B, 12 CFR 1002.9(b)(2) and its Official Interpretation; FCRA
+//! 15 U.S.C. 1681g(f)): reasons are specific (vague texts are refused at load), come only from
+//! factors actually considered, at most four by default, and an inquiries reason may travel as
+//! one extra key factor. Only codes whose summed contribution pushes toward default are eligible.
+
+use serde::Serialize;
+
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Reason {
+    pub code: String,
+    pub text: String,
+    pub inquiry: bool,
+}
+
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ReasonTable {
+    pub reasons: Vec<Reason>,
+}
+
+/// Why a reason is on the list.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ReasonSource {
+    /// A policy rule check that referred or declined.
+    Rule,
+    /// The model: its fields' summed contributions pushed toward default.
+    Model,
+    /// The inquiries reason added beyond the limit, as FCRA 15 U.S.C. 1681g(f)(1)(C) allows.
+    InquiryExtra,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct PrincipalReason {
+    pub rank: usize,
+    pub code: String,
+    pub text: String,
+    pub source: ReasonSource,
+    /// Summed contribution of the code's fields, in the decision's contribution space
+    /// (absent for rule reasons).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub contribution: Option<f64>,
+}
+
+/// How many reasons, and whether the inquiries reason may be an extra one.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct ReasonLimits {
+    pub max_reasons: usize,
+    pub inquiry_extra: bool,
+}
+
+impl ReasonTable {
+    pub fn index(&self, code: &str) -> Option<usize> {
+        self.reasons.iter().position(|r| r.code == code)
+    }
+
+    /// Ranks reasons for a decision that was not approved.
+    ///
+    /// `by_code[i]` is the summed contribution of reason `i`'s fields; `rule_codes` are the codes
+    /// of rule checks that referred or declined, in rule order. Rule reasons come first; model
+    /// reasons follow by contribution, largest first, ties broken by code so output is stable.
+    pub fn principal(
+        &self,
+        by_code: &[f64],
+        rule_codes: &[usize],
+        limits: ReasonLimits,
+    ) -> Vec<PrincipalReason> {
+        let mut chosen: Vec<(usize, ReasonSource)> = Vec::new();
+        for &r in rule_codes {
+            if chosen.len() < limits.max_reasons && !chosen.iter().any(|c| c.0 == r) {
+                chosen.push((r, ReasonSource::Rule));
+            }
+        }
+        let mut adverse: Vec<usize> = (0..self.reasons.len())
+            .filter(|&i| by_code[i] > 0.0)
+            .collect();
+        adverse.sort_by(|&a, &b| {
+            by_code[b]
+                .total_cmp(&by_code[a])
+                .then_with(|| self.reasons[a].code.cmp(&self.reasons[b].code))
+        });
+        for &r in &adverse {
+            if chosen.len() >= limits.max_reasons {
+                break;
+            }
+            if !chosen.iter().any(|c| c.0 == r) {
+                chosen.push((r, ReasonSource::Model));
+            }
+        }
+        if limits.inquiry_extra {
+            let extra = adverse
+                .iter()
+                .find(|&&r| self.reasons[r].inquiry && !chosen.iter().any(|c| c.0 == r));
+            if let Some(&r) = extra {
+                chosen.push((r, ReasonSource::InquiryExtra));
+            }
+        }
+        chosen
+            .into_iter()
+            .enumerate()
+            .map(|(i, (r, source))| PrincipalReason {
+                rank: i + 1,
+                code: self.reasons[r].code.clone(),
+                text: self.reasons[r].text.clone(),
+                source,
+                contribution: (source != ReasonSource::Rule).then_some(by_code[r]),
+            })
+            .collect()
+    }
+}
+
+/// Phrases Regulation B, 12 CFR 1002.9(b)(2), names as insufficient reasons, lower-cased.
+const VAGUE_PHRASES: &[&str] = &[
+    "internal standard",
+    "internal polic",
+    "qualifying score",
+    "credit scoring system",
+    "did not meet our criteria",
+    "insufficient score",
+    "low score",
+];
+
+/// Why a reason text is too vague to give an applicant, if it is.
+pub fn vague_text(text: &str) -> Option<String> {
+    let lower = text.to_lowercase();
+    if text.trim().chars().count() < 12 {
+        return Some("is too short to state a specific reason (at least 12 characters)".into());
+    }
+    VAGUE_PHRASES.iter().find(|p| lower.contains(*p)).map(|p| {
+        format!(
+            "contains \"{p}\", which 12 CFR 1002.9(b)(2) treats as insufficient; state the specific factor"
+        )
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn table() -> ReasonTable {
+        let r = |code: &str, inquiry| Reason {
+            code: code.into(),
+            text: format!("specific text for {code}"),
+            inquiry,
+        };
+        ReasonTable {
+            reasons: vec![
+                r("A", false),
+                r("B", false),
+                r("C", false),
+                r("D", false),
+                r("E", false),
+                r("INQ", true),
+                r("RULE", false),
+            ],
+        }
+    }
+
+    const FOUR: ReasonLimits = ReasonLimits {
+        max_reasons: 4,
+        inquiry_extra: false,
+    };
+
+    fn codes(v: &[PrincipalReason]) -> Vec<&str> {
+        v.iter().map(|r| r.code.as_str()).collect()
+    }
+
+    // Regulation B comment 9(b)(2)-1: more than four reasons are not likely helpful.
+    #[test]
+    fn at_most_four_adverse_only_ranked() {
+        let by = [0.5, -0.3, 0.9, 0.1, 0.2, 0.05, 0.0];
+        let got = table().principal(&by, &[], FOUR);
+        assert_eq!(codes(&got), ["C", "A", "E", "D"]);
+        assert!(got.iter().all(|r| r.contribution.unwrap() > 0.0));
+        assert_eq!(got.iter().map(|r| r.rank).collect::<Vec<_>>(), [1, 2, 3, 4]);
+    }
+
+    #[test]
+    fn ties_break_by_code() {
+        let by = [0.2, 0.2, 0.2, 0.0, 0.0, 0.0, 0.0];
+        assert_eq!(codes(&table().principal(&by, &[], FOUR)), ["A", "B", "C"]);
+    }
+
+    #[test]
+    fn rule_reason_comes_first_and_counts_toward_limit() {
+        let by = [0.5, 0.4, 0.9, 0.1, 0.2, 0.0, 0.0];
+        let got = table().principal(&by, &[6], FOUR);
+        assert_eq!(codes(&got), ["RULE", "C", "A", "B"]);
+        assert_eq!(got[0].source, ReasonSource::Rule);
+        assert_eq!(got[0].contribution, None);
+    }
+
+    // FCRA 15 U.S.C. 1681g(f)(1)(C): inquiries may be listed beyond the four key factors.
+    #[test]
+    fn inquiry_extra_only_when_adverse_and_left_out() {
+        let limits = ReasonLimits {
+            max_reasons: 4,
+            inquiry_extra: true,
+        };
+        let by = [0.5, 0.4, 0.9, 0.3, 0.2, 0.01, 0.0];
+        let got = table().principal(&by, &[], limits);
+        assert_eq!(codes(&got), ["C", "A", "B", "D", "INQ"]);
+        assert_eq!(got[4].source, ReasonSource::InquiryExtra);
+        let by = [0.5, 0.4, 0.9, 0.3, 0.2, -0.01, 0.0];
+        assert_eq!(table().principal(&by, &[], limits).len(), 4);
+    }
+
+    #[test]
+    fn nothing_adverse_gives_nothing() {
+        let by = [-0.5, -0.4, 0.0, 0.0, 0.0, 0.0, 0.0];
+        assert!(table().principal(&by, &[], FOUR).is_empty());
+    }
+
+    // 12 CFR 1002.9(b)(2): "internal standards" or "failed to achieve a qualifying score" is not enough.
+    #[test]
+    fn vague_texts_are_refused() {
+        assert!(vague_text("Applicant did not meet internal standards").is_some());
+        assert!(vague_text("Failed to achieve a qualifying score").is_some());
+        assert!(vague_text("Bad").is_some());
+        assert!(vague_text("Too many delinquent payments in the last 24 months").is_none());
+    }
+}
