@@ -40,6 +40,13 @@ struct CompiledTree {
 impl PathExplainer {
     /// Needs every node's cover (checked at load).
     pub fn new(ensemble: &Ensemble) -> Self {
+        Self::with_table_limit(ensemble, TABLE_MAX_COLUMNS)
+    }
+
+    /// As [`Self::new`], tabulating only paths of at most `limit` distinct columns (0: never);
+    /// both forms are exact, so this trades load time and memory against per-row speed.
+    pub fn with_table_limit(ensemble: &Ensemble, limit: usize) -> Self {
+        let limit = limit.min(TABLE_MAX_COLUMNS);
         let paths = TreePaths::new(ensemble);
         let mut base = match ensemble.aggregation {
             crate::artifact::spec::Aggregation::SumLogOdds => ensemble.base_score,
@@ -57,7 +64,7 @@ impl PathExplainer {
                         base += leaf.value * node.cover / root;
                     }
                 }
-                CompiledTree::new(tree.nodes.clone(), paths)
+                CompiledTree::new(tree.nodes.clone(), paths, limit)
             })
             .collect();
         PathExplainer { trees, base }
@@ -89,14 +96,14 @@ impl PathExplainer {
 }
 
 impl CompiledTree {
-    fn new(nodes: Vec<Node>, paths: PathTree) -> Self {
+    fn new(nodes: Vec<Node>, paths: PathTree, limit: usize) -> Self {
         let mut table_at = Vec::with_capacity(paths.leaves.len());
         let mut table = Vec::new();
         let mut hot_factor = vec![0.0; paths.zero.len()];
         for leaf in &paths.leaves {
             let z = &paths.zero[leaf.range()];
             let k = leaf.k as usize;
-            if k <= TABLE_MAX_COLUMNS && z.iter().all(|&z| z > 0.0) {
+            if k <= limit && z.iter().all(|&z| z > 0.0) {
                 table_at.push(table.len() as u32);
                 for hot in 0..(1u64 << k) {
                     table.push(if hot == (1u64 << k) - 1 {

@@ -1,0 +1,45 @@
+//! Property tests (proptest): on random ensembles and rows, contributions are additive
+//! (base + sum = model output within 1e-9) and deterministic (same input, same bits).
+
+mod common;
+
+use common::{random_ensemble, random_row, Rng};
+use plumbline::artifact::spec::Aggregation;
+use plumbline::explain::{is_additive, InterventionalExplainer, PathExplainer};
+use proptest::prelude::*;
+
+proptest! {
+    #![proptest_config(ProptestConfig { cases: 64, ..ProptestConfig::default() })]
+
+    #[test]
+    fn path_dependent_is_additive_and_deterministic(seed in any::<u64>(), trees in 1usize..12, depth in 1usize..10, forest in any::<bool>()) {
+        let mut rng = Rng(seed);
+        let agg = if forest { Aggregation::MeanProbability } else { Aggregation::SumLogOdds };
+        let columns = 9;
+        let e = random_ensemble(&mut rng, trees, columns, depth, agg);
+        let explainer = PathExplainer::new(&e);
+        let x = random_row(&mut rng, columns);
+        let mut a = vec![0.0; columns];
+        let mut b = vec![0.0; columns];
+        explainer.explain_into(&x, &mut a);
+        explainer.explain_into(&x, &mut b);
+        prop_assert!(is_additive(explainer.base_value(), &a, e.raw(&x)));
+        prop_assert_eq!(a.iter().map(|v| v.to_bits()).collect::<Vec<_>>(), b.iter().map(|v| v.to_bits()).collect::<Vec<_>>());
+    }
+
+    #[test]
+    fn interventional_is_additive_and_deterministic(seed in any::<u64>(), trees in 1usize..8, depth in 1usize..9, rows in 1usize..20) {
+        let mut rng = Rng(seed);
+        let columns = 7;
+        let e = random_ensemble(&mut rng, trees, columns, depth, Aggregation::SumLogOdds);
+        let background: Vec<Vec<f64>> = (0..rows).map(|_| random_row(&mut rng, columns)).collect();
+        let explainer = InterventionalExplainer::new(&e, &background);
+        let x = random_row(&mut rng, columns);
+        let mut a = vec![0.0; columns];
+        let mut b = vec![0.0; columns];
+        explainer.explain_into(&x, &mut a);
+        explainer.explain_into(&x, &mut b);
+        prop_assert!(is_additive(explainer.base_value(), &a, e.raw(&x)));
+        prop_assert_eq!(a, b);
+    }
+}
