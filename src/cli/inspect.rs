@@ -22,6 +22,15 @@ pub fn run(path: &Path, as_json: bool) -> i32 {
     0
 }
 
+/// The name a value has in JSON (snake_case enums, comparison symbols).
+fn json_name<T: serde::Serialize>(v: &T) -> String {
+    match serde_json::to_value(v) {
+        Ok(serde_json::Value::String(s)) => s,
+        Ok(other) => other.to_string(),
+        Err(_) => String::new(),
+    }
+}
+
 fn missing_text(m: &Missing) -> String {
     match m {
         Missing::Reject => "required".into(),
@@ -53,7 +62,7 @@ fn model_lines(model: &LoadedModel) -> Vec<String> {
             let leaves: usize = e.trees.iter().map(|t| t.leaves()).sum();
             let mean_depth = e.trees.iter().map(|t| t.depth).sum::<usize>() as f64 / e.trees.len() as f64;
             vec![
-                format!("tree ensemble, {:?}, base score {}", e.aggregation, e.base_score),
+                format!("tree ensemble, {}, base score {}", json_name(&e.aggregation), e.base_score),
                 format!("  trees {}, leaves {leaves}, depth max {} mean {mean_depth:.2}", e.trees.len(), e.max_depth()),
             ]
         }
@@ -71,9 +80,9 @@ fn explain_line(model: &LoadedModel) -> String {
         Explainer::Linear(_) => String::new(),
     };
     format!(
-        "{:?} against {:?} \"{}\", base value {} ({space}){extra}",
-        model.explainer.method(),
-        model.reference.population,
+        "{} against {} \"{}\", base value {} ({space}){extra}",
+        json_name(&model.explainer.method()),
+        json_name(&model.reference.population),
         model.reference.label,
         model.explainer.base_value()
     )
@@ -109,7 +118,7 @@ fn text(model: &LoadedModel) -> String {
     let _ = writeln!(s, "  at most {} reasons{}", p.max_reasons, if p.inquiry_extra { ", plus an inquiries reason as an extra" } else { "" });
     for r in &p.rules {
         let value = model.spec.policy.rules.iter().find(|x| x.code == model.reasons.reasons[r.reason].code).and_then(|x| x.value.clone());
-        let _ = writeln!(s, "  rule {}: {} {:?} {} -> {:?}", model.reasons.reasons[r.reason].code, model.schema.fields[r.field].name, r.test, value.map_or(String::new(), |v| v.to_string()), r.action);
+        let _ = writeln!(s, "  rule {}: {} {} {} -> {}", model.reasons.reasons[r.reason].code, model.schema.fields[r.field].name, json_name(&r.test), value.map_or(String::new(), |v| v.to_string()), json_name(&r.action));
     }
     let _ = writeln!(s, "\nreasons");
     for r in &model.reasons.reasons {

@@ -1,0 +1,84 @@
+//! The command line as a user runs it: exit status 0 / 2, messages naming field and rule, and
+//! the same bytes as the library.
+
+use std::io::Write;
+use std::process::{Command, Output, Stdio};
+
+const MODEL: &str = "models/fernhill-logistic.json";
+
+fn plumbline(args: &[&str], stdin: &str) -> Output {
+    let mut child = Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args(args)
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    child.stdin.take().unwrap().write_all(stdin.as_bytes()).unwrap();
+    child.wait_with_output().unwrap()
+}
+
+fn text(b: &[u8]) -> String {
+    String::from_utf8_lossy(b).into_owned()
+}
+
+#[test]
+fn score_prints_the_library_decision_bytes() {
+    let out = plumbline(&["score", "--model", MODEL, "demo-requests/typical-approve.json"], "");
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let model = plumbline::LoadedModel::from_path(std::path::Path::new(MODEL)).unwrap();
+    let req: serde_json::Value = serde_json::from_str(&std::fs::read_to_string("demo-requests/typical-approve.json").unwrap()).unwrap();
+    let want = serde_json::to_string(&plumbline::decide_request(&model, &req).unwrap()).unwrap();
+    assert_eq!(text(&out.stdout), format!("{want}\n"));
+}
+
+#[test]
+fn json_lines_keep_good_requests_and_name_bad_ones() {
+    let good = std::fs::read_to_string("demo-requests/typical-approve.json").unwrap();
+    let bad = good.replace("\"housing\": \"mortgage\"", "\"housing\": \"boat\"");
+    let input = format!("{}\n{}\n{}\n", good.trim(), bad.trim(), good.trim());
+    let out = plumbline(&["score", "--model", MODEL, "-"], &input);
+    assert_eq!(out.status.code(), Some(2));
+    assert_eq!(text(&out.stdout).lines().count(), 2, "both good requests are decided");
+    let err = text(&out.stderr);
+    assert!(err.contains("request 2 (line 2): applicant.housing"), "{err}");
+    assert!(err.contains("[level]"), "{err}");
+}
+
+#[test]
+fn malformed_json_is_exit_2_with_position() {
+    let out = plumbline(&["score", "--model", MODEL], "{\"application_id\": \"x\", \"applicant\": {");
+    assert_eq!(out.status.code(), Some(2));
+    assert!(text(&out.stderr).contains("malformed JSON at line 1"), "{}", text(&out.stderr));
+    let out = plumbline(&["score", "--model", MODEL], "   \n");
+    assert_eq!(out.status.code(), Some(2));
+}
+
+#[test]
+fn bad_model_is_exit_2_with_json_path() {
+    let dir = std::env::temp_dir().join(format!("plumbline-cli-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let path = dir.join("broken.json");
+    let model = std::fs::read_to_string(MODEL).unwrap().replace("\"approve_below\": 0.08", "\"approve_below\": 0.5");
+    std::fs::write(&path, model).unwrap();
+    let out = plumbline(&["inspect", path.to_str().unwrap()], "");
+    assert_eq!(out.status.code(), Some(2));
+    assert!(text(&out.stderr).contains("$.policy.decline_at_or_above"), "{}", text(&out.stderr));
+    let out = plumbline(&["score", "--model", "no/such/model.json"], "{}");
+    assert_eq!(out.status.code(), Some(2));
+}
+
+#[test]
+fn inspect_shows_digest_fields_cutoffs_and_reasons() {
+    let out = plumbline(&["inspect", MODEL], "");
+    assert_eq!(out.status.code(), Some(0));
+    let s = text(&out.stdout);
+    let model = plumbline::LoadedModel::from_path(std::path::Path::new(MODEL)).unwrap();
+    assert!(s.contains(&model.sha256));
+    for needle in ["housing: category [rent, own, mortgage, other], base rent", "approve when PD < 0.08", "INC_MIN", "decision support"] {
+        assert!(s.contains(needle), "inspect lacks {needle:?}:\n{s}");
+    }
+    let out = plumbline(&["inspect", "--json", MODEL], "");
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(v["sha256"], model.sha256.as_str());
+}
