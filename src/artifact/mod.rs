@@ -2,6 +2,7 @@
 //! validated into a [`LoadedModel`] ready to decide.
 
 mod digest;
+mod parse;
 pub mod spec;
 mod validate;
 
@@ -75,15 +76,7 @@ impl LoadedModel {
     /// Digests and validates an already-parsed artifact.
     pub fn from_value(value: serde_json::Value) -> Result<Self, ArtifactError> {
         let sha256 = sha256_hex(&canonical_json(&value));
-        let spec: ArtifactSpec = serde_path_to_error::deserialize(&value).map_err(|e| {
-            let path = e.path().to_string();
-            let path = if path == "." {
-                "$".to_string()
-            } else {
-                format!("$.{path}")
-            };
-            ArtifactError::new(path, "shape", e.into_inner().to_string())
-        })?;
+        let spec = parse::parse(&value)?;
         validate::compile(spec, sha256)
     }
 

@@ -12,8 +12,7 @@ pub const FORMAT_TAG: &str = "plumbline.model";
 /// The one format version this build reads.
 pub const FORMAT_VERSION: u32 = 1;
 
-#[derive(Debug, Clone, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
+#[derive(Debug, Clone, Serialize)]
 pub struct ArtifactSpec {
     pub format: String,
     pub format_version: u32,
@@ -88,32 +87,51 @@ pub enum FieldKind {
 
 /// What a missing (absent or `null`) value does.
 #[derive(Debug, Clone, Serialize, Deserialize)]
-#[serde(tag = "policy", rename_all = "snake_case", deny_unknown_fields)]
+#[serde(tag = "policy", rename_all = "snake_case")]
 pub enum MissingSpec {
     /// The field is required; a missing value is an input error.
-    Reject,
+    Reject(NoOptions),
     /// Replace by a stated value before encoding (the value is echoed in every decision).
-    Impute { value: serde_json::Value },
+    Impute(ImputeSpec),
     /// Tree models only: every split on this field sends a missing value its node's missing side.
-    TreeDefault,
+    TreeDefault(NoOptions),
+}
+
+/// A missing-value policy that takes no options (and refuses any).
+#[derive(Debug, Clone, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct NoOptions {}
+
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ImputeSpec {
+    pub value: serde_json::Value,
 }
 
 #[derive(Debug, Clone, Serialize, Deserialize)]
-#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
+#[serde(tag = "kind", rename_all = "snake_case")]
 pub enum ModelSpec {
-    /// log-odds of default = intercept + sum(coefficient * encoded column).
-    Logistic {
-        intercept: f64,
-        /// Keyed by encoded column name (`field` or `field=level`).
-        coefficients: BTreeMap<String, f64>,
-    },
-    TreeEnsemble {
-        aggregation: Aggregation,
-        /// Added to the sum of tree outputs (`sum_log_odds` only; must be 0 for `mean_probability`).
-        #[serde(default)]
-        base_score: f64,
-        trees: Vec<TreeSpec>,
-    },
+    Logistic(LogisticSpec),
+    TreeEnsemble(TreeEnsembleSpec),
+}
+
+/// log-odds of default = intercept + sum(coefficient * encoded column).
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct LogisticSpec {
+    pub intercept: f64,
+    /// Keyed by encoded column name (`field` or `field=level`).
+    pub coefficients: BTreeMap<String, f64>,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TreeEnsembleSpec {
+    pub aggregation: Aggregation,
+    /// Added to the sum of tree outputs (`sum_log_odds` only; must be 0 for `mean_probability`).
+    #[serde(default)]
+    pub base_score: f64,
+    pub trees: Vec<TreeSpec>,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]

@@ -35,7 +35,7 @@ pub fn compile(spec: ArtifactSpec, sha256: String) -> Result<LoadedModel> {
     }
     check_identity(&spec.identity)?;
     let reasons = compile_reasons(&spec.reasons)?;
-    let is_trees = matches!(spec.model, ModelSpec::TreeEnsemble { .. });
+    let is_trees = matches!(spec.model, ModelSpec::TreeEnsemble(_));
     let schema = compile_schema(&spec.features, &reasons, is_trees)?;
     let scorer = compile_model(&spec.model, &schema, spec.explanation.method)?;
     let policy = compile_policy(&spec.policy, &schema, &reasons)?;
@@ -153,12 +153,12 @@ fn compile_schema(specs: &[FieldSpec], reasons: &ReasonTable, is_trees: bool) ->
             }
         }
         let missing = match &f.missing {
-            MissingSpec::Reject => Missing::Reject,
-            MissingSpec::TreeDefault if !is_trees => {
+            MissingSpec::Reject(_) => Missing::Reject,
+            MissingSpec::TreeDefault(_) if !is_trees => {
                 return fail(format!("{at}.missing"), "missing_policy", "tree_default needs a tree_ensemble model; use impute or reject")
             }
-            MissingSpec::TreeDefault => Missing::TreeDefault,
-            MissingSpec::Impute { value } => Missing::Impute(value.clone()),
+            MissingSpec::TreeDefault(_) => Missing::TreeDefault,
+            MissingSpec::Impute(ImputeSpec { value }) => Missing::Impute(value.clone()),
         };
         fields.push(Field {
             name: f.name.clone(),
@@ -210,8 +210,11 @@ fn field_type(f: &FieldSpec, at: &str) -> Result<FieldType> {
             Ok(FieldType::Category { levels: f.levels.clone(), base })
         }
         other => {
-            if !f.levels.is_empty() || f.base_level.is_some() {
+            if !f.levels.is_empty() {
                 return fail(format!("{at}.levels"), "levels", "only category fields have levels");
+            }
+            if f.base_level.is_some() {
+                return fail(format!("{at}.base_level"), "levels", "only category fields have a base level");
             }
             Ok(match other {
                 FieldKind::Number => FieldType::Number,
@@ -234,6 +237,13 @@ fn check_bounds(f: &FieldSpec, ty: &FieldType, at: &str) -> Result<()> {
             }
         }
     }
+    if *ty == FieldType::Count {
+        for (name, v) in [("min", f.min), ("max", f.max)] {
+            if v.is_some_and(|v| v.fract() != 0.0) {
+                return fail(format!("{at}.{name}"), "integer", "a count field's bounds are whole numbers");
+            }
+        }
+    }
     if let (Some(lo), Some(hi)) = (f.min, f.max) {
         if lo > hi {
             return fail(format!("{at}.max"), "range", format!("max {hi} is below min {lo}"));
@@ -244,7 +254,7 @@ fn check_bounds(f: &FieldSpec, ty: &FieldType, at: &str) -> Result<()> {
 
 fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Result<Scorer> {
     match spec {
-        ModelSpec::Logistic { intercept, coefficients } => {
+        ModelSpec::Logistic(LogisticSpec { intercept, coefficients }) => {
             if !intercept.is_finite() {
                 return fail("$.model.intercept", "finite", "must be a finite number");
             }
@@ -268,7 +278,7 @@ fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Re
             }
             Ok(Scorer::Logistic(Logistic { intercept: *intercept, coefficients: coef }))
         }
-        ModelSpec::TreeEnsemble { aggregation, base_score, trees } => {
+        ModelSpec::TreeEnsemble(TreeEnsembleSpec { aggregation, base_score, trees }) => {
             if trees.is_empty() {
                 return fail("$.model.trees", "required", "an ensemble needs at least one tree");
             }
@@ -310,7 +320,12 @@ fn compile_tree(spec: &TreeSpec, t: usize, schema: &Schema, agg: Aggregation, ne
             }
             None => f64::NAN,
         };
-        let is_split = n.column.is_some() || n.left.is_some() || n.right.is_some() || n.threshold.is_some();
+        let is_split = n.column.is_some()
+            || n.left.is_some()
+            || n.right.is_some()
+            || n.threshold.is_some()
+            || n.comparison.is_some()
+            || n.missing.is_some();
         if let (Some(_), true) = (n.value, is_split) {
             return fail(at, "node", "a node is either a leaf (value) or a split (column, threshold, comparison, missing, left, right), not both");
         }
@@ -502,6 +517,9 @@ fn compile_explainer(spec: &ExplanationSpec, schema: &Schema, scorer: &Scorer) -
                 })
         })
         .collect::<Result<Vec<_>>>()?;
+    if spec.mean.is_some() && !matches!(scorer, Scorer::Logistic(_)) {
+        return fail("$.explanation.mean", "method", "a reference mean is used only by linear explanations; tree explanations use covers or the background");
+    }
     match (scorer, spec.method) {
         (Scorer::Logistic(m), ExplainMethod::Linear) => {
             let reference = match (&spec.mean, background.is_empty()) {
@@ -545,6 +563,9 @@ fn compile_explainer(spec: &ExplanationSpec, schema: &Schema, scorer: &Scorer) -
 /// reference population itself scores below the decline cutoff.
 fn check_base_below_decline(scorer: &Scorer, explainer: &Explainer, policy: &Policy) -> Result<()> {
     let base = explainer.base_value();
+    if !base.is_finite() {
+        return fail("$.explanation.reference", "finite", format!("the reference population's model output is not finite ({base}); check coefficients and reference values"));
+    }
     let p = match scorer.space() {
         crate::model::Space::LogOdds => sigmoid(base),
         crate::model::Space::Probability => base,

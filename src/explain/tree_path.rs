@@ -161,15 +161,13 @@ impl CompiledTree {
         let at = self.table_at[leaf_id];
         if at != u32::MAX {
             let table = &self.table[at as usize..at as usize + (1 << k)];
-            let cold = table[hot as usize];
+            let cold = -table[hot as usize];
             let factors = &self.hot_factor[leaf.range()];
-            for i in 0..k {
+            // Branch-free: whether a column is hot is data-dependent and unpredictable.
+            for (i, (&c, &f)) in cols.iter().zip(factors).enumerate() {
                 let bit = 1u64 << i;
-                out[cols[i] as usize] += if hot & bit != 0 {
-                    factors[i] * table[(hot ^ bit) as usize]
-                } else {
-                    -cold
-                };
+                let warm = f * table[(hot ^ bit) as usize & ((1 << k) - 1)];
+                out[c as usize] += if hot & bit != 0 { warm } else { cold };
             }
         } else {
             closed_form_into(leaf.value, &self.paths.zero[leaf.range()], cols, hot, out);
