@@ -19,33 +19,65 @@ struct Case {
     rows: Vec<Vec<f64>>,
 }
 
-fn from_dir(dir: &PathBuf) -> Vec<Case> {
+fn from_dir(dir: &std::path::Path) -> Vec<Case> {
     let rows: Vec<serde_json::Value> =
-        serde_json::from_slice(&std::fs::read(dir.join("rows.json")).expect("rows.json")).expect("rows parse");
+        serde_json::from_slice(&std::fs::read(dir.join("rows.json")).expect("rows.json"))
+            .expect("rows parse");
     ["boosted500", "forest100"]
         .iter()
         .map(|name| {
-            let model = LoadedModel::from_path(&dir.join(format!("{name}.json"))).expect("model loads");
+            let model =
+                LoadedModel::from_path(&dir.join(format!("{name}.json"))).expect("model loads");
             let rows = rows
                 .iter()
-                .map(|r| model.schema.check_and_encode(r, "row").expect("row valid").columns)
+                .map(|r| {
+                    model
+                        .schema
+                        .check_and_encode(r, "row")
+                        .expect("row valid")
+                        .columns
+                })
                 .collect();
-            Case { name: name.to_string(), explainer: model.explainer.clone(), rows }
+            Case {
+                name: name.to_string(),
+                explainer: model.explainer.clone(),
+                rows,
+            }
         })
         .collect()
 }
 
 fn synthetic() -> Vec<Case> {
     let mut rng = common::Rng(7);
-    let shapes = [("synthetic_boosted500_depth6", 500, 6, Aggregation::SumLogOdds), ("synthetic_forest100_depth12", 100, 12, Aggregation::MeanProbability)];
+    let shapes = [
+        (
+            "synthetic_boosted500_depth6",
+            500,
+            6,
+            Aggregation::SumLogOdds,
+        ),
+        (
+            "synthetic_forest100_depth12",
+            100,
+            12,
+            Aggregation::MeanProbability,
+        ),
+    ];
     shapes
         .iter()
         .map(|&(name, trees, depth, agg)| {
             let e = common::random_ensemble(&mut rng, trees, 10, depth, agg);
             let rows = (0..256).map(|_| common::random_row(&mut rng, 10)).collect();
             let _ = Scorer::Trees(e.clone());
-            let limit: usize = std::env::var("PLUMBLINE_TABLE_LIMIT").ok().and_then(|v| v.parse().ok()).unwrap_or(8);
-            Case { name: name.to_string(), explainer: Explainer::PathDependent(PathExplainer::with_table_limit(&e, limit)), rows }
+            let limit: usize = std::env::var("PLUMBLINE_TABLE_LIMIT")
+                .ok()
+                .and_then(|v| v.parse().ok())
+                .unwrap_or(8);
+            Case {
+                name: name.to_string(),
+                explainer: Explainer::PathDependent(PathExplainer::with_table_limit(&e, limit)),
+                rows,
+            }
         })
         .collect()
 }
