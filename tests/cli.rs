@@ -14,7 +14,12 @@ fn plumbline(args: &[&str], stdin: &str) -> Output {
         .stderr(Stdio::piped())
         .spawn()
         .unwrap();
-    child.stdin.take().unwrap().write_all(stdin.as_bytes()).unwrap();
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(stdin.as_bytes())
+        .unwrap();
     child.wait_with_output().unwrap()
 }
 
@@ -24,10 +29,21 @@ fn text(b: &[u8]) -> String {
 
 #[test]
 fn score_prints_the_library_decision_bytes() {
-    let out = plumbline(&["score", "--model", MODEL, "demo-requests/typical-approve.json"], "");
+    let out = plumbline(
+        &[
+            "score",
+            "--model",
+            MODEL,
+            "demo-requests/typical-approve.json",
+        ],
+        "",
+    );
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
     let model = plumbline::LoadedModel::from_path(std::path::Path::new(MODEL)).unwrap();
-    let req: serde_json::Value = serde_json::from_str(&std::fs::read_to_string("demo-requests/typical-approve.json").unwrap()).unwrap();
+    let req: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string("demo-requests/typical-approve.json").unwrap(),
+    )
+    .unwrap();
     let want = serde_json::to_string(&plumbline::decide_request(&model, &req).unwrap()).unwrap();
     assert_eq!(text(&out.stdout), format!("{want}\n"));
 }
@@ -39,17 +55,31 @@ fn json_lines_keep_good_requests_and_name_bad_ones() {
     let input = format!("{}\n{}\n{}\n", good.trim(), bad.trim(), good.trim());
     let out = plumbline(&["score", "--model", MODEL, "-"], &input);
     assert_eq!(out.status.code(), Some(2));
-    assert_eq!(text(&out.stdout).lines().count(), 2, "both good requests are decided");
+    assert_eq!(
+        text(&out.stdout).lines().count(),
+        2,
+        "both good requests are decided"
+    );
     let err = text(&out.stderr);
-    assert!(err.contains("request 2 (line 2): applicant.housing"), "{err}");
+    assert!(
+        err.contains("request 2 (line 2): applicant.housing"),
+        "{err}"
+    );
     assert!(err.contains("[level]"), "{err}");
 }
 
 #[test]
 fn malformed_json_is_exit_2_with_position() {
-    let out = plumbline(&["score", "--model", MODEL], "{\"application_id\": \"x\", \"applicant\": {");
+    let out = plumbline(
+        &["score", "--model", MODEL],
+        "{\"application_id\": \"x\", \"applicant\": {",
+    );
     assert_eq!(out.status.code(), Some(2));
-    assert!(text(&out.stderr).contains("malformed JSON at line 1"), "{}", text(&out.stderr));
+    assert!(
+        text(&out.stderr).contains("malformed JSON at line 1"),
+        "{}",
+        text(&out.stderr)
+    );
     let out = plumbline(&["score", "--model", MODEL], "   \n");
     assert_eq!(out.status.code(), Some(2));
 }
@@ -59,11 +89,17 @@ fn bad_model_is_exit_2_with_json_path() {
     let dir = std::env::temp_dir().join(format!("plumbline-cli-{}", std::process::id()));
     std::fs::create_dir_all(&dir).unwrap();
     let path = dir.join("broken.json");
-    let model = std::fs::read_to_string(MODEL).unwrap().replace("\"approve_below\": 0.08", "\"approve_below\": 0.5");
+    let model = std::fs::read_to_string(MODEL)
+        .unwrap()
+        .replace("\"approve_below\": 0.08", "\"approve_below\": 0.5");
     std::fs::write(&path, model).unwrap();
     let out = plumbline(&["inspect", path.to_str().unwrap()], "");
     assert_eq!(out.status.code(), Some(2));
-    assert!(text(&out.stderr).contains("$.policy.decline_at_or_above"), "{}", text(&out.stderr));
+    assert!(
+        text(&out.stderr).contains("$.policy.decline_at_or_above"),
+        "{}",
+        text(&out.stderr)
+    );
     let out = plumbline(&["score", "--model", "no/such/model.json"], "{}");
     assert_eq!(out.status.code(), Some(2));
 }
@@ -75,7 +111,12 @@ fn inspect_shows_digest_fields_cutoffs_and_reasons() {
     let s = text(&out.stdout);
     let model = plumbline::LoadedModel::from_path(std::path::Path::new(MODEL)).unwrap();
     assert!(s.contains(&model.sha256));
-    for needle in ["housing: category [rent, own, mortgage, other], base rent", "approve when PD < 0.08", "INC_MIN", "decision support"] {
+    for needle in [
+        "housing: category [rent, own, mortgage, other], base rent",
+        "approve when PD < 0.08",
+        "INC_MIN",
+        "decision support",
+    ] {
         assert!(s.contains(needle), "inspect lacks {needle:?}:\n{s}");
     }
     let out = plumbline(&["inspect", "--json", MODEL], "");

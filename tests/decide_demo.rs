@@ -43,7 +43,8 @@ fn demo_requests_match_recorded_outputs_byte_for_byte() {
         if std::env::var_os("PLUMBLINE_BLESS").is_some() {
             std::fs::write(&golden, format!("{first}\n")).unwrap();
         }
-        let want = std::fs::read_to_string(&golden).unwrap_or_else(|_| panic!("missing {}", golden.display()));
+        let want = std::fs::read_to_string(&golden)
+            .unwrap_or_else(|_| panic!("missing {}", golden.display()));
         assert_eq!(first, want.trim_end(), "{} changed", path.display());
         seen += 1;
     }
@@ -65,7 +66,11 @@ fn contributions_are_exact_and_dummies_summed_to_fields() {
     let total: f64 = c.base_value + c.fields.iter().map(|f| f.contribution).sum::<f64>();
     assert!((total - c.model_output).abs() < 1e-12);
     assert!((c.model_output - d.log_odds).abs() < 1e-15);
-    assert_eq!(c.fields.len(), 10, "one entry per field, not per dummy column");
+    assert_eq!(
+        c.fields.len(),
+        10,
+        "one entry per field, not per dummy column"
+    );
     // Hand arithmetic from the artifact: housing = mortgage against the reference mix
     // (own 0.25, mortgage 0.40, other 0.05): -0.35*(1-0.4) - 0.25*(0-0.25) + 0.15*(0-0.05).
     let housing = c.fields.iter().find(|f| f.field == "housing").unwrap();
@@ -82,7 +87,11 @@ fn decline_gives_at_most_four_reasons_all_adverse_plus_inquiry_extra() {
         "inquiries_6m": 2, "months_with_employer": 4, "housing": "rent", "loan_purpose": "other"});
     let d = decide_request(&demo(), &request(applicant)).unwrap();
     assert_eq!(d.outcome.name(), "decline");
-    let model_reasons: Vec<_> = d.reasons.iter().filter(|r| r.source != plumbline::reasons::ReasonSource::InquiryExtra).collect();
+    let model_reasons: Vec<_> = d
+        .reasons
+        .iter()
+        .filter(|r| r.source != plumbline::reasons::ReasonSource::InquiryExtra)
+        .collect();
     assert_eq!(model_reasons.len(), 4);
     assert!(d.reasons.iter().all(|r| r.contribution.unwrap() > 0.0));
     for pair in model_reasons.windows(2) {
@@ -96,12 +105,24 @@ fn decline_gives_at_most_four_reasons_all_adverse_plus_inquiry_extra() {
 
 #[test]
 fn rule_check_reason_comes_first() {
-    let d = decide_request(&demo(), &request(with(typical(), "requested_amount", json!(45000)))).unwrap();
+    let d = decide_request(
+        &demo(),
+        &request(with(typical(), "requested_amount", json!(45000))),
+    )
+    .unwrap();
     assert_eq!(d.outcome.name(), "refer");
     assert_eq!(d.reasons[0].code, "AMT_LIMIT");
     assert_eq!(d.rules_fired.len(), 1);
-    let d = decide_request(&demo(), &request(with(typical(), "annual_income", json!(11000)))).unwrap();
-    assert_eq!(d.outcome.name(), "decline", "an income rule declines whatever the model says");
+    let d = decide_request(
+        &demo(),
+        &request(with(typical(), "annual_income", json!(11000))),
+    )
+    .unwrap();
+    assert_eq!(
+        d.outcome.name(),
+        "decline",
+        "an income rule declines whatever the model says"
+    );
     assert_eq!(d.reasons[0].code, "INC_MIN");
 }
 
@@ -112,8 +133,11 @@ fn missing_values_are_stated_never_silent() {
     a["revolving_utilization"] = Value::Null;
     let d = decide_request(&demo(), &request(a)).unwrap();
     let m = serde_json::to_value(&d.missing).unwrap();
-    assert_eq!(m, json!([{"field": "revolving_utilization", "treatment": "imputed", "value": 30},
-                        {"field": "months_with_employer", "treatment": "imputed", "value": 36}]));
+    assert_eq!(
+        m,
+        json!([{"field": "revolving_utilization", "treatment": "imputed", "value": 30},
+                        {"field": "months_with_employer", "treatment": "imputed", "value": 36}])
+    );
 }
 
 #[test]
@@ -122,7 +146,11 @@ fn every_bad_field_is_named_with_its_rule() {
         "months_since_oldest_account": 12.5, "delinquencies_24m": 0, "inquiries_6m": 1,
         "housing": "castle", "loan_purpose": "home_improvement", "ethnicity": "x"});
     let err = decide_request(&demo(), &json!({"applicant": a, "channel": "web"})).unwrap_err();
-    let got: Vec<(String, &str)> = err.errors.iter().map(|e| (e.field.clone(), e.rule)).collect();
+    let got: Vec<(String, &str)> = err
+        .errors
+        .iter()
+        .map(|e| (e.field.clone(), e.rule))
+        .collect();
     for want in [
         ("channel", "unknown_field"),
         ("application_id", "required"),
@@ -132,18 +160,30 @@ fn every_bad_field_is_named_with_its_rule() {
         ("applicant.months_since_oldest_account", "integer"),
         ("applicant.housing", "level"),
     ] {
-        assert!(got.contains(&(want.0.to_string(), want.1)), "missing {want:?} in {got:?}");
+        assert!(
+            got.contains(&(want.0.to_string(), want.1)),
+            "missing {want:?} in {got:?}"
+        );
     }
     let err = decide_request(&demo(), &request(json!({}))).unwrap_err();
-    assert!(err.errors.iter().any(|e| e.field == "applicant.annual_income" && e.rule == "required"));
+    assert!(err
+        .errors
+        .iter()
+        .any(|e| e.field == "applicant.annual_income" && e.rule == "required"));
     assert!(decide_request(&demo(), &json!([1, 2])).is_err());
     assert!(decide_request(&demo(), &request(json!("not an object"))).is_err());
 }
 
 #[test]
 fn range_bounds_are_inclusive() {
-    let d = decide_request(&demo(), &request(with(typical(), "debt_to_income", json!(200))));
+    let d = decide_request(
+        &demo(),
+        &request(with(typical(), "debt_to_income", json!(200))),
+    );
     assert!(d.is_ok());
-    let e = decide_request(&demo(), &request(with(typical(), "debt_to_income", json!(200.0001))));
+    let e = decide_request(
+        &demo(),
+        &request(with(typical(), "debt_to_income", json!(200.0001))),
+    );
     assert_eq!(e.unwrap_err().errors[0].rule, "range");
 }

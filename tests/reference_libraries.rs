@@ -16,7 +16,9 @@ use std::path::Path;
 const DIR: &str = "tests/reference/fixtures";
 
 fn explainer_for(model: &LoadedModel, method: &str) -> Explainer {
-    let Scorer::Trees(ensemble) = &model.scorer else { panic!("reference models are tree ensembles") };
+    let Scorer::Trees(ensemble) = &model.scorer else {
+        panic!("reference models are tree ensembles")
+    };
     match method {
         "tree_path_dependent" => Explainer::PathDependent(PathExplainer::new(ensemble)),
         "tree_interventional" => {
@@ -25,7 +27,13 @@ fn explainer_for(model: &LoadedModel, method: &str) -> Explainer {
                 .explanation
                 .background
                 .iter()
-                .map(|row| model.schema.check_and_encode(&Value::Object(row.clone()), "background").unwrap().columns)
+                .map(|row| {
+                    model
+                        .schema
+                        .check_and_encode(&Value::Object(row.clone()), "background")
+                        .unwrap()
+                        .columns
+                })
                 .collect();
             Explainer::Interventional(InterventionalExplainer::new(ensemble, &background))
         }
@@ -35,7 +43,9 @@ fn explainer_for(model: &LoadedModel, method: &str) -> Explainer {
 
 #[test]
 fn contributions_match_reference_libraries() {
-    let fixture: Value = serde_json::from_slice(&std::fs::read(Path::new(DIR).join("expected.json")).unwrap()).unwrap();
+    let fixture: Value =
+        serde_json::from_slice(&std::fs::read(Path::new(DIR).join("expected.json")).unwrap())
+            .unwrap();
     let cases = fixture["cases"].as_array().unwrap();
     assert!(cases.len() >= 5, "fixture holds too few cases");
     let mut checked = 0;
@@ -43,21 +53,42 @@ fn contributions_match_reference_libraries() {
         let name = case["name"].as_str().unwrap();
         let source = case["source"].as_str().unwrap();
         let tolerance = case["tolerance"].as_f64().unwrap_or(1e-9).max(1e-9);
-        let model = LoadedModel::from_path(&Path::new(DIR).join(case["artifact"].as_str().unwrap())).unwrap();
+        let model =
+            LoadedModel::from_path(&Path::new(DIR).join(case["artifact"].as_str().unwrap()))
+                .unwrap();
         let explainer = explainer_for(&model, case["method"].as_str().unwrap());
-        assert_eq!(plumbline::explain::space_name(model.scorer.space()), case["space"].as_str().unwrap(), "{name}");
+        assert_eq!(
+            plumbline::explain::space_name(model.scorer.space()),
+            case["space"].as_str().unwrap(),
+            "{name}"
+        );
         let base_want = case["rows"][0]["base_value"].as_f64().unwrap();
-        assert!((explainer.base_value() - base_want).abs() <= tolerance, "{name} ({source}): base value {} vs {base_want}", explainer.base_value());
+        assert!(
+            (explainer.base_value() - base_want).abs() <= tolerance,
+            "{name} ({source}): base value {} vs {base_want}",
+            explainer.base_value()
+        );
         for (r, row) in case["rows"].as_array().unwrap().iter().enumerate() {
-            let x = model.schema.check_and_encode(&row["applicant"], "applicant").unwrap().columns;
+            let x = model
+                .schema
+                .check_and_encode(&row["applicant"], "applicant")
+                .unwrap()
+                .columns;
             let output = model.scorer.raw(&x);
             let want_output = row["output"].as_f64().unwrap();
-            assert!((output - want_output).abs() <= 1e-9, "{name} row {r}: model output {output} vs {want_output} ({source})");
+            assert!(
+                (output - want_output).abs() <= 1e-9,
+                "{name} row {r}: model output {output} vs {want_output} ({source})"
+            );
             let mut got = vec![0.0; x.len()];
             explainer.explain_into(&x, &mut got);
             for (c, want) in row["contributions"].as_array().unwrap().iter().enumerate() {
                 let want = want.as_f64().unwrap();
-                assert!((got[c] - want).abs() <= tolerance, "{name} row {r} column {c}: {} vs {want} from {source} (tolerance {tolerance})", got[c]);
+                assert!(
+                    (got[c] - want).abs() <= tolerance,
+                    "{name} row {r} column {c}: {} vs {want} from {source} (tolerance {tolerance})",
+                    got[c]
+                );
             }
             checked += 1;
         }

@@ -35,7 +35,11 @@ fn cond_expectation(nodes: &[Node], id: usize, x: &[f64], known: u32) -> f64 {
 }
 
 fn path_value(e: &Ensemble, x: &[f64], known: u32) -> f64 {
-    let sum: f64 = e.trees.iter().map(|t| cond_expectation(&t.nodes, 0, x, known)).sum();
+    let sum: f64 = e
+        .trees
+        .iter()
+        .map(|t| cond_expectation(&t.nodes, 0, x, known))
+        .sum();
     e.finish(sum)
 }
 
@@ -43,7 +47,9 @@ fn interventional_value(e: &Ensemble, x: &[f64], background: &[Vec<f64>], known:
     let total: f64 = background
         .iter()
         .map(|b| {
-            let hybrid: Vec<f64> = (0..x.len()).map(|c| if known & (1 << c) != 0 { x[c] } else { b[c] }).collect();
+            let hybrid: Vec<f64> = (0..x.len())
+                .map(|c| if known & (1 << c) != 0 { x[c] } else { b[c] })
+                .collect();
             e.raw(&hybrid)
         })
         .sum();
@@ -75,7 +81,10 @@ fn shapley(m: usize, v: impl Fn(u32) -> f64) -> Vec<f64> {
 
 fn assert_close(got: &[f64], want: &[f64], tol: f64, what: &str) {
     for (c, (g, w)) in got.iter().zip(want).enumerate() {
-        assert!((g - w).abs() <= tol, "{what}: column {c}: TreeSHAP {g} vs enumeration {w}");
+        assert!(
+            (g - w).abs() <= tol,
+            "{what}: column {c}: TreeSHAP {g} vs enumeration {w}"
+        );
     }
 }
 
@@ -85,13 +94,22 @@ fn check_path_dependent(seed: u64, columns: usize, depth: usize, trees: usize, a
     for limit in [0, 8] {
         let explainer = PathExplainer::with_table_limit(&e, limit);
         let base = path_value(&e, &[f64::NAN; 16][..columns], 0);
-        assert!((explainer.base_value() - base).abs() < 1e-12, "base {} vs {base}", explainer.base_value());
+        assert!(
+            (explainer.base_value() - base).abs() < 1e-12,
+            "base {} vs {base}",
+            explainer.base_value()
+        );
         for _ in 0..6 {
             let x = random_row(&mut rng, columns);
             let want = shapley(columns, |s| path_value(&e, &x, s));
             let mut got = vec![0.0; columns];
             explainer.explain_into(&x, &mut got);
-            assert_close(&got, &want, 1e-12, &format!("path-dependent seed {seed} table limit {limit}"));
+            assert_close(
+                &got,
+                &want,
+                1e-12,
+                &format!("path-dependent seed {seed} table limit {limit}"),
+            );
         }
     }
 }
@@ -123,7 +141,11 @@ fn interventional_matches_enumeration() {
     for seed in 300..340 {
         let mut rng = Rng(seed);
         let columns = 6;
-        let agg = if seed % 2 == 0 { Aggregation::SumLogOdds } else { Aggregation::MeanProbability };
+        let agg = if seed % 2 == 0 {
+            Aggregation::SumLogOdds
+        } else {
+            Aggregation::MeanProbability
+        };
         let e = random_ensemble(&mut rng, 3, columns, 6, agg);
         let background: Vec<Vec<f64>> = (0..7).map(|_| random_row(&mut rng, columns)).collect();
         let explainer = InterventionalExplainer::new(&e, &background);

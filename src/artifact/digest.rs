@@ -61,7 +61,8 @@ mod tests {
 
     #[test]
     fn key_order_and_whitespace_do_not_matter() {
-        let a: Value = serde_json::from_str(r#"{"b": [1, 2.5], "a": {"y": "x", "x": null}}"#).unwrap();
+        let a: Value =
+            serde_json::from_str(r#"{"b": [1, 2.5], "a": {"y": "x", "x": null}}"#).unwrap();
         let b: Value = serde_json::from_str(r#"{"a":{"x":null,"y":"x"},"b":[1,2.5]}"#).unwrap();
         assert_eq!(canonical_json(&a), canonical_json(&b));
         assert_eq!(

@@ -56,7 +56,11 @@ impl LoadedModel {
     /// Reads, digests and validates an artifact file.
     pub fn from_path(path: &Path) -> Result<Self, ArtifactError> {
         let bytes = std::fs::read(path).map_err(|e| {
-            ArtifactError::new("$", "readable", format!("cannot read {}: {e}", path.display()))
+            ArtifactError::new(
+                "$",
+                "readable",
+                format!("cannot read {}: {e}", path.display()),
+            )
         })?;
         Self::from_slice(&bytes)
     }
@@ -67,7 +71,11 @@ impl LoadedModel {
             ArtifactError::new(
                 "$",
                 "json",
-                format!("not valid JSON: {e} (line {}, column {})", e.line(), e.column()),
+                format!(
+                    "not valid JSON: {e} (line {}, column {})",
+                    e.line(),
+                    e.column()
+                ),
             )
         })?;
         Self::from_value(value)

@@ -45,7 +45,11 @@ pub fn parse(value: &Value) -> Result<ArtifactSpec, ArtifactError> {
 
 fn parse_model(value: &Value) -> Result<ModelSpec, ArtifactError> {
     let Some(obj) = value.as_object() else {
-        return Err(ArtifactError::new("$.model", "shape", "must be an object with a kind"));
+        return Err(ArtifactError::new(
+            "$.model",
+            "shape",
+            "must be an object with a kind",
+        ));
     };
     let mut body = obj.clone();
     let kind = body.remove("kind");
@@ -53,8 +57,16 @@ fn parse_model(value: &Value) -> Result<ModelSpec, ArtifactError> {
     match kind.as_ref().and_then(Value::as_str) {
         Some("logistic") => Ok(ModelSpec::Logistic(at("$.model", &body)?)),
         Some("tree_ensemble") => Ok(ModelSpec::TreeEnsemble(at("$.model", &body)?)),
-        Some(other) => Err(ArtifactError::new("$.model.kind", "shape", format!("unknown model kind \"{other}\"; expected logistic or tree_ensemble"))),
-        None => Err(ArtifactError::new("$.model.kind", "shape", "required: logistic or tree_ensemble")),
+        Some(other) => Err(ArtifactError::new(
+            "$.model.kind",
+            "shape",
+            format!("unknown model kind \"{other}\"; expected logistic or tree_ensemble"),
+        )),
+        None => Err(ArtifactError::new(
+            "$.model.kind",
+            "shape",
+            "required: logistic or tree_ensemble",
+        )),
     }
 }
 
@@ -79,7 +91,12 @@ fn require_objects(v: &Value) -> Result<(), ArtifactError> {
             Some(_) => Err(ArtifactError::new(path, "shape", "must be a JSON object")),
         }
     }
-    fn each(v: &Value, key: &str, path: &str, f: &dyn Fn(&Value, &str) -> Result<(), ArtifactError>) -> Result<(), ArtifactError> {
+    fn each(
+        v: &Value,
+        key: &str,
+        path: &str,
+        f: &dyn Fn(&Value, &str) -> Result<(), ArtifactError>,
+    ) -> Result<(), ArtifactError> {
         if let Some(Value::Array(items)) = v.get(key) {
             for (i, item) in items.iter().enumerate() {
                 let p = format!("{path}.{key}[{i}]");
@@ -92,7 +109,9 @@ fn require_objects(v: &Value) -> Result<(), ArtifactError> {
     let none = |_: &Value, _: &str| Ok(());
     object(Some(v), "$")?;
     object(v.get("identity"), "$.identity")?;
-    each(v, "features", "$", &|f, p| object(f.get("missing"), &format!("{p}.missing")))?;
+    each(v, "features", "$", &|f, p| {
+        object(f.get("missing"), &format!("{p}.missing"))
+    })?;
     object(v.get("model"), "$.model")?;
     if let Some(m) = v.get("model") {
         each(m, "trees", "$.model", &|t, p| each(t, "nodes", p, &none))?;

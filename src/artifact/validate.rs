@@ -30,7 +30,10 @@ pub fn compile(spec: ArtifactSpec, sha256: String) -> Result<LoadedModel> {
         return fail(
             "$.format_version",
             "format",
-            format!("this build reads version {FORMAT_VERSION}, got {}", spec.format_version),
+            format!(
+                "this build reads version {FORMAT_VERSION}, got {}",
+                spec.format_version
+            ),
         );
     }
     check_identity(&spec.identity)?;
@@ -63,7 +66,11 @@ fn check_identity(id: &IdentitySpec) -> Result<()> {
         ("producer", &id.producer),
     ] {
         if v.trim().is_empty() {
-            return fail(format!("$.identity.{name}"), "required", "must not be empty");
+            return fail(
+                format!("$.identity.{name}"),
+                "required",
+                "must not be empty",
+            );
         }
     }
     if !is_token(&id.model_id, 64) {
@@ -85,16 +92,28 @@ fn is_token(s: &str, max: usize) -> bool {
 
 fn compile_reasons(specs: &[ReasonSpec]) -> Result<ReasonTable> {
     if specs.is_empty() {
-        return fail("$.reasons", "required", "the reason table must not be empty");
+        return fail(
+            "$.reasons",
+            "required",
+            "the reason table must not be empty",
+        );
     }
     let mut reasons = Vec::new();
     for (i, r) in specs.iter().enumerate() {
         let at = format!("$.reasons[{i}]");
         if !is_token(&r.code, 16) {
-            return fail(format!("{at}.code"), "token", "use 1-16 of a-z, A-Z, 0-9, '-', '_', '.'");
+            return fail(
+                format!("{at}.code"),
+                "token",
+                "use 1-16 of a-z, A-Z, 0-9, '-', '_', '.'",
+            );
         }
         if reasons.iter().any(|x: &Reason| x.code == r.code) {
-            return fail(format!("{at}.code"), "unique", format!("code {} is defined twice", r.code));
+            return fail(
+                format!("{at}.code"),
+                "unique",
+                format!("code {} is defined twice", r.code),
+            );
         }
         if let Some(why) = vague_text(&r.text) {
             return fail(format!("{at}.text"), "specific", why);
@@ -106,7 +125,11 @@ fn compile_reasons(specs: &[ReasonSpec]) -> Result<ReasonTable> {
         });
     }
     if reasons.iter().filter(|r| r.inquiry).count() > 1 {
-        return fail("$.reasons", "inquiry", "at most one reason may be marked inquiry");
+        return fail(
+            "$.reasons",
+            "inquiry",
+            "at most one reason may be marked inquiry",
+        );
     }
     Ok(ReasonTable { reasons })
 }
@@ -119,20 +142,31 @@ fn compile_schema(specs: &[FieldSpec], reasons: &ReasonTable, is_trees: bool) ->
     let mut columns: Vec<Column> = Vec::new();
     for (i, f) in specs.iter().enumerate() {
         let at = format!("$.features[{i}]");
-        if !f.name.chars().all(|c| c.is_ascii_lowercase() || c.is_ascii_digit() || c == '_')
+        if !f
+            .name
+            .chars()
+            .all(|c| c.is_ascii_lowercase() || c.is_ascii_digit() || c == '_')
             || f.name.is_empty()
             || f.name.len() > 64
         {
             return fail(format!("{at}.name"), "token", "use 1-64 of a-z, 0-9, '_'");
         }
         if fields.iter().any(|x| x.name == f.name) {
-            return fail(format!("{at}.name"), "unique", format!("field {} is defined twice", f.name));
+            return fail(
+                format!("{at}.name"),
+                "unique",
+                format!("field {} is defined twice", f.name),
+            );
         }
         let ty = field_type(f, &at)?;
         check_bounds(f, &ty, &at)?;
         let reason = match (f.scored, &f.reason) {
             (true, None) => {
-                return fail(format!("{at}.reason"), "reason_table", "a scored field needs a reason code")
+                return fail(
+                    format!("{at}.reason"),
+                    "reason_table",
+                    "a scored field needs a reason code",
+                )
             }
             (true, Some(code)) => Some(reasons.index(code).ok_or_else(|| {
                 ArtifactError::new(
@@ -142,20 +176,32 @@ fn compile_schema(specs: &[FieldSpec], reasons: &ReasonTable, is_trees: bool) ->
                 )
             })?),
             (false, Some(_)) => {
-                return fail(format!("{at}.reason"), "reason_table", "a field that is not scored has no reason code")
+                return fail(
+                    format!("{at}.reason"),
+                    "reason_table",
+                    "a field that is not scored has no reason code",
+                )
             }
             (false, None) => None,
         };
         let start = columns.len();
         if f.scored {
             for (name, level) in Schema::column_names(&f.name, &ty) {
-                columns.push(Column { name, field: i, level });
+                columns.push(Column {
+                    name,
+                    field: i,
+                    level,
+                });
             }
         }
         let missing = match &f.missing {
             MissingSpec::Reject(_) => Missing::Reject,
             MissingSpec::TreeDefault(_) if !is_trees => {
-                return fail(format!("{at}.missing"), "missing_policy", "tree_default needs a tree_ensemble model; use impute or reject")
+                return fail(
+                    format!("{at}.missing"),
+                    "missing_policy",
+                    "tree_default needs a tree_ensemble model; use impute or reject",
+                )
             }
             MissingSpec::TreeDefault(_) => Missing::TreeDefault,
             MissingSpec::Impute(ImputeSpec { value }) => Missing::Impute(value.clone()),
@@ -177,7 +223,11 @@ fn compile_schema(specs: &[FieldSpec], reasons: &ReasonTable, is_trees: bool) ->
     for (i, f) in schema.fields.iter().enumerate() {
         if let Missing::Impute(v) = &f.missing {
             if v.is_null() {
-                return fail(format!("$.features[{i}].missing.value"), "impute", "the imputed value must not be null");
+                return fail(
+                    format!("$.features[{i}].missing.value"),
+                    "impute",
+                    "the imputed value must not be null",
+                );
             }
             schema.check_value(i, v).map_err(|(rule, msg)| {
                 ArtifactError::new(format!("$.features[{i}].missing.value"), rule, msg)
@@ -194,27 +244,54 @@ fn field_type(f: &FieldSpec, at: &str) -> Result<FieldType> {
     match f.kind {
         FieldKind::Category => {
             if f.levels.len() < 2 {
-                return fail(format!("{at}.levels"), "levels", "a category needs at least two levels");
+                return fail(
+                    format!("{at}.levels"),
+                    "levels",
+                    "a category needs at least two levels",
+                );
             }
             for (j, l) in f.levels.iter().enumerate() {
                 if l.is_empty() || f.levels[..j].contains(l) {
-                    return fail(format!("{at}.levels[{j}]"), "levels", "levels must be non-empty and distinct");
+                    return fail(
+                        format!("{at}.levels[{j}]"),
+                        "levels",
+                        "levels must be non-empty and distinct",
+                    );
                 }
             }
             let Some(base) = &f.base_level else {
-                return fail(format!("{at}.base_level"), "required", "a category names the base level dropped in n-1 dummy coding");
+                return fail(
+                    format!("{at}.base_level"),
+                    "required",
+                    "a category names the base level dropped in n-1 dummy coding",
+                );
             };
             let Some(base) = f.levels.iter().position(|l| l == base) else {
-                return fail(format!("{at}.base_level"), "levels", format!("base level \"{base}\" is not one of the levels"));
+                return fail(
+                    format!("{at}.base_level"),
+                    "levels",
+                    format!("base level \"{base}\" is not one of the levels"),
+                );
             };
-            Ok(FieldType::Category { levels: f.levels.clone(), base })
+            Ok(FieldType::Category {
+                levels: f.levels.clone(),
+                base,
+            })
         }
         other => {
             if !f.levels.is_empty() {
-                return fail(format!("{at}.levels"), "levels", "only category fields have levels");
+                return fail(
+                    format!("{at}.levels"),
+                    "levels",
+                    "only category fields have levels",
+                );
             }
             if f.base_level.is_some() {
-                return fail(format!("{at}.base_level"), "levels", "only category fields have a base level");
+                return fail(
+                    format!("{at}.base_level"),
+                    "levels",
+                    "only category fields have a base level",
+                );
             }
             Ok(match other {
                 FieldKind::Number => FieldType::Number,
@@ -230,7 +307,11 @@ fn check_bounds(f: &FieldSpec, ty: &FieldType, at: &str) -> Result<()> {
     for (name, v) in [("min", f.min), ("max", f.max)] {
         if let Some(v) = v {
             if !numeric {
-                return fail(format!("{at}.{name}"), "range", "only number and count fields have a range");
+                return fail(
+                    format!("{at}.{name}"),
+                    "range",
+                    "only number and count fields have a range",
+                );
             }
             if !v.is_finite() {
                 return fail(format!("{at}.{name}"), "finite", "must be a finite number");
@@ -240,13 +321,21 @@ fn check_bounds(f: &FieldSpec, ty: &FieldType, at: &str) -> Result<()> {
     if *ty == FieldType::Count {
         for (name, v) in [("min", f.min), ("max", f.max)] {
             if v.is_some_and(|v| v.fract() != 0.0) {
-                return fail(format!("{at}.{name}"), "integer", "a count field's bounds are whole numbers");
+                return fail(
+                    format!("{at}.{name}"),
+                    "integer",
+                    "a count field's bounds are whole numbers",
+                );
             }
         }
     }
     if let (Some(lo), Some(hi)) = (f.min, f.max) {
         if lo > hi {
-            return fail(format!("{at}.max"), "range", format!("max {hi} is below min {lo}"));
+            return fail(
+                format!("{at}.max"),
+                "range",
+                format!("max {hi} is below min {lo}"),
+            );
         }
     }
     Ok(())
@@ -254,7 +343,10 @@ fn check_bounds(f: &FieldSpec, ty: &FieldType, at: &str) -> Result<()> {
 
 fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Result<Scorer> {
     match spec {
-        ModelSpec::Logistic(LogisticSpec { intercept, coefficients }) => {
+        ModelSpec::Logistic(LogisticSpec {
+            intercept,
+            coefficients,
+        }) => {
             if !intercept.is_finite() {
                 return fail("$.model.intercept", "finite", "must be a finite number");
             }
@@ -262,7 +354,11 @@ fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Re
             for (name, &b) in coefficients {
                 let at = format!("$.model.coefficients.{name}");
                 let Some(c) = schema.column_index(name) else {
-                    return fail(at, "known_column", format!("{name} is not an encoded column of a scored field"));
+                    return fail(
+                        at,
+                        "known_column",
+                        format!("{name} is not an encoded column of a scored field"),
+                    );
                 };
                 if !b.is_finite() {
                     return fail(at, "finite", "must be a finite number");
@@ -273,20 +369,38 @@ fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Re
                 return fail(
                     "$.model.coefficients",
                     "complete",
-                    format!("column {} has no coefficient (write 0 if it is meant to have none)", schema.columns[c].name),
+                    format!(
+                        "column {} has no coefficient (write 0 if it is meant to have none)",
+                        schema.columns[c].name
+                    ),
                 );
             }
-            Ok(Scorer::Logistic(Logistic { intercept: *intercept, coefficients: coef }))
+            Ok(Scorer::Logistic(Logistic {
+                intercept: *intercept,
+                coefficients: coef,
+            }))
         }
-        ModelSpec::TreeEnsemble(TreeEnsembleSpec { aggregation, base_score, trees }) => {
+        ModelSpec::TreeEnsemble(TreeEnsembleSpec {
+            aggregation,
+            base_score,
+            trees,
+        }) => {
             if trees.is_empty() {
-                return fail("$.model.trees", "required", "an ensemble needs at least one tree");
+                return fail(
+                    "$.model.trees",
+                    "required",
+                    "an ensemble needs at least one tree",
+                );
             }
             if !base_score.is_finite() {
                 return fail("$.model.base_score", "finite", "must be a finite number");
             }
             if *aggregation == Aggregation::MeanProbability && *base_score != 0.0 {
-                return fail("$.model.base_score", "aggregation", "mean_probability forests have no base score; use 0");
+                return fail(
+                    "$.model.base_score",
+                    "aggregation",
+                    "mean_probability forests have no base score; use 0",
+                );
             }
             let need_cover = method == ExplainMethod::TreePathDependent;
             let trees = trees
@@ -294,15 +408,29 @@ fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Re
                 .enumerate()
                 .map(|(t, tree)| compile_tree(tree, t, schema, *aggregation, need_cover))
                 .collect::<Result<Vec<_>>>()?;
-            Ok(Scorer::Trees(Ensemble { aggregation: *aggregation, base_score: *base_score, trees }))
+            Ok(Scorer::Trees(Ensemble {
+                aggregation: *aggregation,
+                base_score: *base_score,
+                trees,
+            }))
         }
     }
 }
 
-fn compile_tree(spec: &TreeSpec, t: usize, schema: &Schema, agg: Aggregation, need_cover: bool) -> Result<Tree> {
+fn compile_tree(
+    spec: &TreeSpec,
+    t: usize,
+    schema: &Schema,
+    agg: Aggregation,
+    need_cover: bool,
+) -> Result<Tree> {
     let at_tree = format!("$.model.trees[{t}]");
     if spec.nodes.is_empty() {
-        return fail(format!("{at_tree}.nodes"), "required", "a tree needs at least one node");
+        return fail(
+            format!("{at_tree}.nodes"),
+            "required",
+            "a tree needs at least one node",
+        );
     }
     if spec.nodes.len() >= u32::MAX as usize {
         return fail(format!("{at_tree}.nodes"), "size", "too many nodes");
@@ -334,12 +462,31 @@ fn compile_tree(spec: &TreeSpec, t: usize, schema: &Schema, agg: Aggregation, ne
                 return fail(format!("{at}.value"), "finite", "must be a finite number");
             }
             if agg == Aggregation::MeanProbability && !(0.0..=1.0).contains(&v) {
-                return fail(format!("{at}.value"), "probability", "a forest leaf holds a probability in [0, 1]");
+                return fail(
+                    format!("{at}.value"),
+                    "probability",
+                    "a forest leaf holds a probability in [0, 1]",
+                );
             }
-            nodes.push(Node { column: forest::LEAF, left: 0, right: 0, strict: false, missing_left: false, threshold: 0.0, value: v, cover });
+            nodes.push(Node {
+                column: forest::LEAF,
+                left: 0,
+                right: 0,
+                strict: false,
+                missing_left: false,
+                threshold: 0.0,
+                value: v,
+                cover,
+            });
             continue;
         }
-        let need = |name: &str| ArtifactError::new(format!("{at}.{name}"), "required", format!("a split needs {name} (or give the leaf a value)"));
+        let need = |name: &str| {
+            ArtifactError::new(
+                format!("{at}.{name}"),
+                "required",
+                format!("a split needs {name} (or give the leaf a value)"),
+            )
+        };
         let column = n.column.as_ref().ok_or_else(|| need("column"))?;
         let threshold = n.threshold.ok_or_else(|| need("threshold"))?;
         let comparison = n.comparison.ok_or_else(|| need("comparison"))?;
@@ -347,21 +494,44 @@ fn compile_tree(spec: &TreeSpec, t: usize, schema: &Schema, agg: Aggregation, ne
         let left = n.left.ok_or_else(|| need("left"))?;
         let right = n.right.ok_or_else(|| need("right"))?;
         let Some(c) = schema.column_index(column) else {
-            return fail(format!("{at}.column"), "known_column", format!("{column} is not an encoded column of a scored field"));
+            return fail(
+                format!("{at}.column"),
+                "known_column",
+                format!("{column} is not an encoded column of a scored field"),
+            );
         };
         if !threshold.is_finite() {
-            return fail(format!("{at}.threshold"), "finite", "must be a finite number");
+            return fail(
+                format!("{at}.threshold"),
+                "finite",
+                "must be a finite number",
+            );
         }
         for (name, child) in [("left", left), ("right", right)] {
             if child >= spec.nodes.len() {
-                return fail(format!("{at}.{name}"), "index", format!("node {child} does not exist (the tree has {} nodes)", spec.nodes.len()));
+                return fail(
+                    format!("{at}.{name}"),
+                    "index",
+                    format!(
+                        "node {child} does not exist (the tree has {} nodes)",
+                        spec.nodes.len()
+                    ),
+                );
             }
             if child == 0 || child == i {
-                return fail(format!("{at}.{name}"), "acyclic", format!("node {child} cannot be a child here (root or self)"));
+                return fail(
+                    format!("{at}.{name}"),
+                    "acyclic",
+                    format!("node {child} cannot be a child here (root or self)"),
+                );
             }
         }
         if left == right {
-            return fail(format!("{at}.right"), "acyclic", "left and right must be different nodes");
+            return fail(
+                format!("{at}.right"),
+                "acyclic",
+                "left and right must be different nodes",
+            );
         }
         nodes.push(Node {
             column: c as u32,
@@ -382,7 +552,11 @@ fn compile_tree(spec: &TreeSpec, t: usize, schema: &Schema, agg: Aggregation, ne
         }
         for (name, child) in [("left", n.left as usize), ("right", n.right as usize)] {
             if parent[child] != usize::MAX {
-                return fail(format!("{at_tree}.nodes[{i}].{name}"), "acyclic", format!("node {child} already has parent {}", parent[child]));
+                return fail(
+                    format!("{at_tree}.nodes[{i}].{name}"),
+                    "acyclic",
+                    format!("node {child} already has parent {}", parent[child]),
+                );
             }
             parent[child] = i;
         }
@@ -394,7 +568,11 @@ fn compile_tree(spec: &TreeSpec, t: usize, schema: &Schema, agg: Aggregation, ne
     while let Some(i) = stack.pop() {
         max_depth = max_depth.max(depth[i]);
         if depth[i] > MAX_TREE_DEPTH {
-            return fail(format!("{at_tree}.nodes[{i}]"), "depth", format!("trees deeper than {MAX_TREE_DEPTH} are not accepted"));
+            return fail(
+                format!("{at_tree}.nodes[{i}]"),
+                "depth",
+                format!("trees deeper than {MAX_TREE_DEPTH} are not accepted"),
+            );
         }
         let n = nodes[i];
         if !n.is_leaf() {
@@ -405,41 +583,83 @@ fn compile_tree(spec: &TreeSpec, t: usize, schema: &Schema, agg: Aggregation, ne
             if need_cover {
                 let (l, r) = (nodes[n.left as usize].cover, nodes[n.right as usize].cover);
                 if ((l + r) - n.cover).abs() > 1e-9 * n.cover.max(1.0) {
-                    return fail(format!("{at_tree}.nodes[{i}].cover"), "cover", format!("cover {} is not the sum of its children's covers {l} + {r}", n.cover));
+                    return fail(
+                        format!("{at_tree}.nodes[{i}].cover"),
+                        "cover",
+                        format!(
+                            "cover {} is not the sum of its children's covers {l} + {r}",
+                            n.cover
+                        ),
+                    );
                 }
             }
         }
     }
     if let Some(i) = depth.iter().position(|&d| d == usize::MAX) {
-        return fail(format!("{at_tree}.nodes[{i}]"), "reachable", "node is not reachable from the root (node 0)");
+        return fail(
+            format!("{at_tree}.nodes[{i}]"),
+            "reachable",
+            "node is not reachable from the root (node 0)",
+        );
     }
     if need_cover && nodes[0].cover <= 0.0 {
-        return fail(format!("{at_tree}.nodes[0].cover"), "cover", "the root's cover must be positive");
+        return fail(
+            format!("{at_tree}.nodes[0].cover"),
+            "cover",
+            "the root's cover must be positive",
+        );
     }
-    Ok(Tree { nodes, depth: max_depth })
+    Ok(Tree {
+        nodes,
+        depth: max_depth,
+    })
 }
 
 fn compile_policy(spec: &PolicySpec, schema: &Schema, reasons: &ReasonTable) -> Result<Policy> {
     let (a, d) = (spec.approve_below, spec.decline_at_or_above);
     if !(a.is_finite() && a > 0.0 && a <= 1.0) {
-        return fail("$.policy.approve_below", "cutoff", "must be a probability in (0, 1]");
+        return fail(
+            "$.policy.approve_below",
+            "cutoff",
+            "must be a probability in (0, 1]",
+        );
     }
     if !(d.is_finite() && d <= 1.0) || d < a {
-        return fail("$.policy.decline_at_or_above", "cutoff_order", format!("must be a probability at or above approve_below ({a}) and at most 1"));
+        return fail(
+            "$.policy.decline_at_or_above",
+            "cutoff_order",
+            format!("must be a probability at or above approve_below ({a}) and at most 1"),
+        );
     }
     let s = &spec.scaling;
     if !(s.pdo.is_finite() && s.pdo > 0.0) {
-        return fail("$.policy.scaling.pdo", "scaling", "points to double the odds must be positive");
+        return fail(
+            "$.policy.scaling.pdo",
+            "scaling",
+            "points to double the odds must be positive",
+        );
     }
     if !(s.odds.is_finite() && s.odds > 0.0) {
-        return fail("$.policy.scaling.odds", "scaling", "good:bad odds must be positive");
+        return fail(
+            "$.policy.scaling.odds",
+            "scaling",
+            "good:bad odds must be positive",
+        );
     }
     if !s.points.is_finite() {
-        return fail("$.policy.scaling.points", "finite", "must be a finite number");
+        return fail(
+            "$.policy.scaling.points",
+            "finite",
+            "must be a finite number",
+        );
     }
     if let (Some(lo), Some(hi)) = (s.min_score, s.max_score) {
         if !(lo.is_finite() && hi.is_finite()) || lo > hi {
-            return fail("$.policy.scaling.max_score", "range", "min_score and max_score must be finite and ordered");
+            return fail(
+                "$.policy.scaling.max_score",
+                "range",
+                "min_score and max_score must be finite and ordered",
+            );
         }
     }
     if spec.max_reasons == 0 || spec.max_reasons > MAX_REASONS_LIMIT {
@@ -449,24 +669,51 @@ fn compile_policy(spec: &PolicySpec, schema: &Schema, reasons: &ReasonTable) -> 
     for (i, r) in spec.rules.iter().enumerate() {
         let at = format!("$.policy.rules[{i}]");
         let reason = reasons.index(&r.code).ok_or_else(|| {
-            ArtifactError::new(format!("{at}.code"), "reason_table", format!("reason code {} is not in $.reasons", r.code))
+            ArtifactError::new(
+                format!("{at}.code"),
+                "reason_table",
+                format!("reason code {} is not in $.reasons", r.code),
+            )
         })?;
         let field = schema.field_index(&r.field).ok_or_else(|| {
-            ArtifactError::new(format!("{at}.field"), "known_field", format!("{} is not a field", r.field))
+            ArtifactError::new(
+                format!("{at}.field"),
+                "known_field",
+                format!("{} is not a field", r.field),
+            )
         })?;
         let value = match (r.test, &r.value) {
             (RuleTest::Missing, None) => FieldValue::Missing,
-            (RuleTest::Missing, Some(_)) => return fail(format!("{at}.value"), "rule", "a missing test takes no value"),
+            (RuleTest::Missing, Some(_)) => {
+                return fail(
+                    format!("{at}.value"),
+                    "rule",
+                    "a missing test takes no value",
+                )
+            }
             (_, None) => return fail(format!("{at}.value"), "required", "this test needs a value"),
-            (_, Some(v)) => schema.check_value(field, v).map_err(|(rule, msg)| {
-                ArtifactError::new(format!("{at}.value"), rule, msg)
-            })?,
+            (_, Some(v)) => schema
+                .check_value(field, v)
+                .map_err(|(rule, msg)| ArtifactError::new(format!("{at}.value"), rule, msg))?,
         };
-        let ordered = matches!(r.test, RuleTest::Greater | RuleTest::GreaterOrEqual | RuleTest::Less | RuleTest::LessOrEqual);
+        let ordered = matches!(
+            r.test,
+            RuleTest::Greater | RuleTest::GreaterOrEqual | RuleTest::Less | RuleTest::LessOrEqual
+        );
         if ordered && !matches!(value, FieldValue::Number(_)) {
-            return fail(format!("{at}.test"), "rule", "ordering tests need a number or count field");
+            return fail(
+                format!("{at}.test"),
+                "rule",
+                "ordering tests need a number or count field",
+            );
         }
-        rules.push(Rule { reason, field, test: r.test, value, action: r.action });
+        rules.push(Rule {
+            reason,
+            field,
+            test: r.test,
+            value,
+            action: r.action,
+        });
     }
     Ok(Policy {
         approve_below: a,
@@ -484,23 +731,43 @@ fn check_reason_use(spec: &ArtifactSpec, schema: &Schema, reasons: &ReasonTable)
         let by_field = schema.fields.iter().any(|f| f.reason == Some(i));
         let by_rule = spec.policy.rules.iter().any(|x| x.code == r.code);
         if !by_field && !by_rule {
-            return fail(format!("$.reasons[{i}].code"), "unused", format!("reason code {} is used by no field and no rule", r.code));
+            return fail(
+                format!("$.reasons[{i}].code"),
+                "unused",
+                format!("reason code {} is used by no field and no rule", r.code),
+            );
         }
     }
     for (i, f) in schema.fields.iter().enumerate() {
         if !f.scored && !spec.policy.rules.iter().any(|r| r.field == f.name) {
-            return fail(format!("$.features[{i}].scored"), "unused", format!("field {} is neither scored nor read by a rule", f.name));
+            return fail(
+                format!("$.features[{i}].scored"),
+                "unused",
+                format!("field {} is neither scored nor read by a rule", f.name),
+            );
         }
     }
     Ok(())
 }
 
-fn compile_explainer(spec: &ExplanationSpec, schema: &Schema, scorer: &Scorer) -> Result<Explainer> {
+fn compile_explainer(
+    spec: &ExplanationSpec,
+    schema: &Schema,
+    scorer: &Scorer,
+) -> Result<Explainer> {
     if spec.reference.label.trim().is_empty() {
-        return fail("$.explanation.reference.label", "required", "say in words which applicants the reference population holds");
+        return fail(
+            "$.explanation.reference.label",
+            "required",
+            "say in words which applicants the reference population holds",
+        );
     }
     if spec.background.len() > MAX_BACKGROUND_ROWS {
-        return fail("$.explanation.background", "size", format!("at most {MAX_BACKGROUND_ROWS} rows"));
+        return fail(
+            "$.explanation.background",
+            "size",
+            format!("at most {MAX_BACKGROUND_ROWS} rows"),
+        );
     }
     let background = spec
         .background
@@ -528,7 +795,11 @@ fn compile_explainer(spec: &ExplanationSpec, schema: &Schema, scorer: &Scorer) -
                     for (name, &v) in mean {
                         let at = format!("$.explanation.mean.{name}");
                         let c = schema.column_index(name).ok_or_else(|| {
-                            ArtifactError::new(&at, "known_column", format!("{name} is not an encoded column"))
+                            ArtifactError::new(
+                                &at,
+                                "known_column",
+                                format!("{name} is not an encoded column"),
+                            )
                         })?;
                         if !v.is_finite() {
                             return fail(at, "finite", "must be a finite number");
@@ -536,26 +807,53 @@ fn compile_explainer(spec: &ExplanationSpec, schema: &Schema, scorer: &Scorer) -
                         r[c] = v;
                     }
                     if let Some(c) = r.iter().position(|v| v.is_nan()) {
-                        return fail("$.explanation.mean", "complete", format!("column {} has no reference mean", schema.columns[c].name));
+                        return fail(
+                            "$.explanation.mean",
+                            "complete",
+                            format!("column {} has no reference mean", schema.columns[c].name),
+                        );
                     }
                     r
                 }
                 (None, false) => (0..schema.columns.len())
                     .map(|c| background.iter().map(|b| b[c]).sum::<f64>() / background.len() as f64)
                     .collect(),
-                (None, true) => return fail("$.explanation.mean", "required", "a linear explanation needs the reference mean or a background sample"),
+                (None, true) => {
+                    return fail(
+                        "$.explanation.mean",
+                        "required",
+                        "a linear explanation needs the reference mean or a background sample",
+                    )
+                }
             };
             Ok(Explainer::Linear(LinearExplainer::new(m, reference)))
         }
-        (Scorer::Trees(e), ExplainMethod::TreePathDependent) => Ok(Explainer::PathDependent(PathExplainer::new(e))),
+        (Scorer::Trees(e), ExplainMethod::TreePathDependent) => {
+            Ok(Explainer::PathDependent(PathExplainer::new(e)))
+        }
         (Scorer::Trees(e), ExplainMethod::TreeInterventional) => {
             if background.is_empty() {
-                return fail("$.explanation.background", "required", "interventional explanations need a background sample");
+                return fail(
+                    "$.explanation.background",
+                    "required",
+                    "interventional explanations need a background sample",
+                );
             }
-            Ok(Explainer::Interventional(InterventionalExplainer::new(e, &background)))
+            Ok(Explainer::Interventional(InterventionalExplainer::new(
+                e,
+                &background,
+            )))
         }
-        (Scorer::Logistic(_), _) => fail("$.explanation.method", "method", "a logistic model is explained by the linear method"),
-        (Scorer::Trees(_), _) => fail("$.explanation.method", "method", "a tree ensemble is explained by tree_path_dependent or tree_interventional"),
+        (Scorer::Logistic(_), _) => fail(
+            "$.explanation.method",
+            "method",
+            "a logistic model is explained by the linear method",
+        ),
+        (Scorer::Trees(_), _) => fail(
+            "$.explanation.method",
+            "method",
+            "a tree ensemble is explained by tree_path_dependent or tree_interventional",
+        ),
     }
 }
 

@@ -15,7 +15,10 @@ pub fn run(path: &Path, as_json: bool) -> i32 {
         Err(code) => return code,
     };
     if as_json {
-        println!("{}", serde_json::to_string_pretty(&summary(&model)).expect("summary serialises"));
+        println!(
+            "{}",
+            serde_json::to_string_pretty(&summary(&model)).expect("summary serialises")
+        );
     } else {
         print!("{}", text(&model));
     }
@@ -60,10 +63,19 @@ fn model_lines(model: &LoadedModel) -> Vec<String> {
         }
         Scorer::Trees(e) => {
             let leaves: usize = e.trees.iter().map(|t| t.leaves()).sum();
-            let mean_depth = e.trees.iter().map(|t| t.depth).sum::<usize>() as f64 / e.trees.len() as f64;
+            let mean_depth =
+                e.trees.iter().map(|t| t.depth).sum::<usize>() as f64 / e.trees.len() as f64;
             vec![
-                format!("tree ensemble, {}, base score {}", json_name(&e.aggregation), e.base_score),
-                format!("  trees {}, leaves {leaves}, depth max {} mean {mean_depth:.2}", e.trees.len(), e.max_depth()),
+                format!(
+                    "tree ensemble, {}, base score {}",
+                    json_name(&e.aggregation),
+                    e.base_score
+                ),
+                format!(
+                    "  trees {}, leaves {leaves}, depth max {} mean {mean_depth:.2}",
+                    e.trees.len(),
+                    e.max_depth()
+                ),
             ]
         }
     }
@@ -95,15 +107,36 @@ fn text(model: &LoadedModel) -> String {
     let _ = writeln!(s, "sha256     {}", model.sha256);
     let _ = writeln!(s, "created    {} by {}", id.created_at, id.producer);
     let _ = writeln!(s, "about      {}", id.description);
-    let _ = writeln!(s, "\nfields ({} fields, {} encoded columns)", model.schema.fields.len(), model.schema.columns.len());
+    let _ = writeln!(
+        s,
+        "\nfields ({} fields, {} encoded columns)",
+        model.schema.fields.len(),
+        model.schema.columns.len()
+    );
     for f in &model.schema.fields {
         let range = match (f.min, f.max) {
             (None, None) => String::new(),
-            (lo, hi) => format!(" range [{}, {}]", lo.map_or("-".into(), |v| v.to_string()), hi.map_or("-".into(), |v| v.to_string())),
+            (lo, hi) => format!(
+                " range [{}, {}]",
+                lo.map_or("-".into(), |v| v.to_string()),
+                hi.map_or("-".into(), |v| v.to_string())
+            ),
         };
-        let reason = f.reason.map_or("policy only".to_string(), |r| format!("reason {}", model.reasons.reasons[r].code));
-        let unit = if f.unit.is_empty() { String::new() } else { format!(" ({})", f.unit) };
-        let _ = writeln!(s, "  {}{unit}: {}{range}; missing: {}; {reason}", f.name, type_text(&f.ty), missing_text(&f.missing));
+        let reason = f.reason.map_or("policy only".to_string(), |r| {
+            format!("reason {}", model.reasons.reasons[r].code)
+        });
+        let unit = if f.unit.is_empty() {
+            String::new()
+        } else {
+            format!(" ({})", f.unit)
+        };
+        let _ = writeln!(
+            s,
+            "  {}{unit}: {}{range}; missing: {}; {reason}",
+            f.name,
+            type_text(&f.ty),
+            missing_text(&f.missing)
+        );
     }
     let _ = writeln!(s, "\nmodel");
     for line in model_lines(model) {
@@ -113,16 +146,53 @@ fn text(model: &LoadedModel) -> String {
     let p = &model.policy;
     let sc = &p.scaling;
     let _ = writeln!(s, "\npolicy");
-    let _ = writeln!(s, "  approve when PD < {}; decline when PD >= {}; refer between", p.approve_below, p.decline_at_or_above);
-    let _ = writeln!(s, "  score = {:.4} + {:.4} * ln(good:bad odds)  ({} points at {}:1, PDO {})", sc.offset, sc.factor, sc.points, sc.odds, sc.pdo);
-    let _ = writeln!(s, "  at most {} reasons{}", p.max_reasons, if p.inquiry_extra { ", plus an inquiries reason as an extra" } else { "" });
+    let _ = writeln!(
+        s,
+        "  approve when PD < {}; decline when PD >= {}; refer between",
+        p.approve_below, p.decline_at_or_above
+    );
+    let _ = writeln!(
+        s,
+        "  score = {:.4} + {:.4} * ln(good:bad odds)  ({} points at {}:1, PDO {})",
+        sc.offset, sc.factor, sc.points, sc.odds, sc.pdo
+    );
+    let _ = writeln!(
+        s,
+        "  at most {} reasons{}",
+        p.max_reasons,
+        if p.inquiry_extra {
+            ", plus an inquiries reason as an extra"
+        } else {
+            ""
+        }
+    );
     for r in &p.rules {
-        let value = model.spec.policy.rules.iter().find(|x| x.code == model.reasons.reasons[r.reason].code).and_then(|x| x.value.clone());
-        let _ = writeln!(s, "  rule {}: {} {} {} -> {}", model.reasons.reasons[r.reason].code, model.schema.fields[r.field].name, json_name(&r.test), value.map_or(String::new(), |v| v.to_string()), json_name(&r.action));
+        let value = model
+            .spec
+            .policy
+            .rules
+            .iter()
+            .find(|x| x.code == model.reasons.reasons[r.reason].code)
+            .and_then(|x| x.value.clone());
+        let _ = writeln!(
+            s,
+            "  rule {}: {} {} {} -> {}",
+            model.reasons.reasons[r.reason].code,
+            model.schema.fields[r.field].name,
+            json_name(&r.test),
+            value.map_or(String::new(), |v| v.to_string()),
+            json_name(&r.action)
+        );
     }
     let _ = writeln!(s, "\nreasons");
     for r in &model.reasons.reasons {
-        let _ = writeln!(s, "  {:<8} {}{}", r.code, r.text, if r.inquiry { "  [inquiry]" } else { "" });
+        let _ = writeln!(
+            s,
+            "  {:<8} {}{}",
+            r.code,
+            r.text,
+            if r.inquiry { "  [inquiry]" } else { "" }
+        );
     }
     let _ = writeln!(s, "\nModel output is decision support; the lender remains responsible for ECOA/Regulation B, FCRA and local law.");
     s

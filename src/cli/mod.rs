@@ -8,7 +8,11 @@ use clap::{Parser, Subcommand};
 use std::path::PathBuf;
 
 #[derive(Debug, Parser)]
-#[command(name = "plumbline", version, about = "Credit-decision engine: score, explain, decide. Output is decision support, not a credit decision by itself.")]
+#[command(
+    name = "plumbline",
+    version,
+    about = "Credit-decision engine: score, explain, decide. Output is decision support, not a credit decision by itself."
+)]
 pub struct Cli {
     #[command(subcommand)]
     pub command: Command,

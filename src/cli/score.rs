@@ -30,7 +30,12 @@ pub fn run(model: &Path, input: Option<&Path>) -> i32 {
             None => break,
             Some(Ok(v)) => v,
             Some(Err(e)) => {
-                eprintln!("error: request {}: malformed JSON at line {}, column {}: {e}", count + 1, e.line(), e.column());
+                eprintln!(
+                    "error: request {}: malformed JSON at line {}, column {}: {e}",
+                    count + 1,
+                    e.line(),
+                    e.column()
+                );
                 status = EXIT_BAD_INPUT;
                 break;
             }
@@ -46,7 +51,10 @@ pub fn run(model: &Path, input: Option<&Path>) -> i32 {
             }
             Err(e) => {
                 for f in &e.errors {
-                    eprintln!("error: request {count} (line {line}): {}: {} [{}]", f.field, f.message, f.rule);
+                    eprintln!(
+                        "error: request {count} (line {line}): {}: {} [{}]",
+                        f.field, f.message, f.rule
+                    );
                 }
                 status = EXIT_BAD_INPUT;
             }
@@ -63,5 +71,8 @@ pub fn run(model: &Path, input: Option<&Path>) -> i32 {
 }
 
 fn leading_newlines(s: &str) -> usize {
-    s.chars().take_while(|c| c.is_whitespace()).filter(|&c| c == '\n').count()
+    s.chars()
+        .take_while(|c| c.is_whitespace())
+        .filter(|&c| c == '\n')
+        .count()
 }

@@ -83,7 +83,11 @@ pub struct MissingField {
 /// Decides a request envelope `{"application_id": "...", "applicant": {...}}`.
 pub fn decide_request(model: &LoadedModel, request: &Value) -> Result<Decision, InputError> {
     let Some(obj) = request.as_object() else {
-        return Err(InputError::one("$", "type", format!("expected a JSON object, got {}", kind_of(request))));
+        return Err(InputError::one(
+            "$",
+            "type",
+            format!("expected a JSON object, got {}", kind_of(request)),
+        ));
     };
     let mut errors = Vec::new();
     for key in obj.keys() {
@@ -104,11 +108,19 @@ pub fn decide_request(model: &LoadedModel, request: &Value) -> Result<Decision, 
             }
         },
         None | Some(Value::Null) => {
-            errors.push(field_error("application_id", "required", "is required".into()));
+            errors.push(field_error(
+                "application_id",
+                "required",
+                "is required".into(),
+            ));
             None
         }
         Some(v) => {
-            errors.push(field_error("application_id", "type", format!("expected a string, got {}", kind_of(v))));
+            errors.push(field_error(
+                "application_id",
+                "type",
+                format!("expected a string, got {}", kind_of(v)),
+            ));
             None
         }
     };
@@ -130,7 +142,11 @@ pub fn decide_request(model: &LoadedModel, request: &Value) -> Result<Decision, 
 }
 
 fn field_error(field: &str, rule: &'static str, message: String) -> crate::features::FieldError {
-    crate::features::FieldError { field: field.into(), rule, message }
+    crate::features::FieldError {
+        field: field.into(),
+        rule,
+        message,
+    }
 }
 
 fn application_id_problem(s: &str) -> Option<String> {
@@ -144,7 +160,11 @@ fn application_id_problem(s: &str) -> Option<String> {
 }
 
 /// Decides one applicant object.
-pub fn decide(model: &LoadedModel, application_id: &str, applicant: &Value) -> Result<Decision, InputError> {
+pub fn decide(
+    model: &LoadedModel,
+    application_id: &str,
+    applicant: &Value,
+) -> Result<Decision, InputError> {
     let encoded = model.schema.check_and_encode(applicant, "applicant")?;
     let x = &encoded.columns;
     let raw = model.scorer.raw(x);
@@ -184,7 +204,10 @@ pub fn decide(model: &LoadedModel, application_id: &str, applicant: &Value) -> R
         Vec::new()
     } else {
         let rule_codes: Vec<usize> = fired.iter().map(|&r| policy.rules[r].reason).collect();
-        let limits = ReasonLimits { max_reasons: policy.max_reasons, inquiry_extra: policy.inquiry_extra };
+        let limits = ReasonLimits {
+            max_reasons: policy.max_reasons,
+            inquiry_extra: policy.inquiry_extra,
+        };
         model.reasons.principal(&by_code, &rule_codes, limits)
     };
 
@@ -225,7 +248,10 @@ pub fn decide(model: &LoadedModel, application_id: &str, applicant: &Value) -> R
         missing: encoded
             .missing
             .into_iter()
-            .map(|(i, treatment)| MissingField { field: schema.fields[i].name.clone(), treatment })
+            .map(|(i, treatment)| MissingField {
+                field: schema.fields[i].name.clone(),
+                treatment,
+            })
             .collect(),
     })
 }
@@ -233,4 +259,3 @@ pub fn decide(model: &LoadedModel, application_id: &str, applicant: &Value) -> R
 fn given_value(applicant: &Value, name: &str) -> Value {
     applicant.get(name).cloned().unwrap_or(Value::Null)
 }
-

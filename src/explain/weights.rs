@@ -20,11 +20,7 @@ pub fn shapley(k: usize) -> &'static [f64] {
     static TABLE: OnceLock<Vec<Vec<f64>>> = OnceLock::new();
     let t = TABLE.get_or_init(|| {
         (0..=MAX_PATH_COLUMNS)
-            .map(|k| {
-                (0..k)
-                    .map(|s| 1.0 / (k as f64 * binom(k - 1, s)))
-                    .collect()
-            })
+            .map(|k| (0..k).map(|s| 1.0 / (k as f64 * binom(k - 1, s))).collect())
             .collect()
     });
     &t[k]

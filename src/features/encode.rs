@@ -44,7 +44,10 @@ impl Schema {
             return Err(InputError::one(
                 path,
                 "type",
-                format!("expected a JSON object of applicant fields, got {}", kind_of(applicant)),
+                format!(
+                    "expected a JSON object of applicant fields, got {}",
+                    kind_of(applicant)
+                ),
             ));
         };
         let mut errors = Vec::new();
@@ -93,11 +96,13 @@ impl Schema {
                     Ok(FieldValue::Missing)
                 }
             }
-            Some(v) => self.check_value(i, v).map_err(|(rule, message)| FieldError {
-                field: at(),
-                rule,
-                message,
-            }),
+            Some(v) => self
+                .check_value(i, v)
+                .map_err(|(rule, message)| FieldError {
+                    field: at(),
+                    rule,
+                    message,
+                }),
         }
     }
 
@@ -110,7 +115,10 @@ impl Schema {
                     return Err(("type", format!("expected a number, got {}", kind_of(v))));
                 };
                 if field.ty == FieldType::Count && (x.fract() != 0.0 || x < 0.0) {
-                    return Err(("integer", format!("must be a whole number 0 or more, got {x}")));
+                    return Err((
+                        "integer",
+                        format!("must be a whole number 0 or more, got {x}"),
+                    ));
                 }
                 let below = field.min.is_some_and(|m| x < m);
                 let above = field.max.is_some_and(|m| x > m);
@@ -121,7 +129,10 @@ impl Schema {
             }
             FieldType::Boolean => match v {
                 Value::Bool(b) => Ok(FieldValue::Bool(*b)),
-                _ => Err(("type", format!("expected true or false, got {}", kind_of(v)))),
+                _ => Err((
+                    "type",
+                    format!("expected true or false, got {}", kind_of(v)),
+                )),
             },
             FieldType::Category { levels, .. } => match v {
                 Value::String(s) => match levels.iter().position(|l| l == s) {
@@ -131,7 +142,10 @@ impl Schema {
                         format!("must be one of {}; got \"{s}\"", quoted_list(levels)),
                     )),
                 },
-                _ => Err(("type", format!("expected a string level, got {}", kind_of(v)))),
+                _ => Err((
+                    "type",
+                    format!("expected a string level, got {}", kind_of(v)),
+                )),
             },
         }
     }
@@ -161,7 +175,11 @@ impl Schema {
                 FieldValue::Bool(b) => cols[0] = if b { 1.0 } else { 0.0 },
                 FieldValue::Level(l) => {
                     for (c, col) in field.columns.clone().zip(cols.iter_mut()) {
-                        *col = if self.columns[c].level == Some(l) { 1.0 } else { 0.0 };
+                        *col = if self.columns[c].level == Some(l) {
+                            1.0
+                        } else {
+                            0.0
+                        };
                     }
                 }
                 FieldValue::Missing => cols.fill(f64::NAN),

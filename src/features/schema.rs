@@ -9,7 +9,10 @@ pub enum FieldType {
     Count,
     Boolean,
     /// Levels in encoding order and the index of the base (dropped) level.
-    Category { levels: Vec<String>, base: usize },
+    Category {
+        levels: Vec<String>,
+        base: usize,
+    },
 }
 
 impl FieldType {
