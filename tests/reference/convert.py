@@ -33,7 +33,6 @@ scikit-learn (RandomForestClassifier, sklearn >= 1.4 stores tree_.value as class
 
 from __future__ import annotations
 
-import itertools
 import json
 import math
 from typing import Any, Iterable, Sequence

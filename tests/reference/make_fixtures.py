@@ -31,6 +31,7 @@ import shap  # noqa: E402
 import sklearn  # noqa: E402
 from sklearn.ensemble import RandomForestClassifier  # noqa: E402
 
+sys.dont_write_bytecode = True  # keep __pycache__ out of the source tree
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 import convert as cv  # noqa: E402
 

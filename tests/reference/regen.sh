@@ -23,7 +23,7 @@ plumbline_venv
 
 # single-threaded, and no stray configuration from the caller's environment
 export OMP_NUM_THREADS=1 OPENBLAS_NUM_THREADS=1 MKL_NUM_THREADS=1 NUMEXPR_NUM_THREADS=1 NUMBA_NUM_THREADS=1
-export PYTHONHASHSEED=0
+export PYTHONHASHSEED=0 PYTHONDONTWRITEBYTECODE=1
 unset PYTHONPATH
 
 out="$(mktemp -d)"
