@@ -9,7 +9,6 @@ mod common;
 use criterion::{black_box, criterion_group, criterion_main, Criterion};
 use plumbline::artifact::spec::Aggregation;
 use plumbline::explain::{Explainer, PathExplainer};
-use plumbline::model::Scorer;
 use plumbline::LoadedModel;
 use std::path::PathBuf;
 
@@ -68,14 +67,9 @@ fn synthetic() -> Vec<Case> {
         .map(|&(name, trees, depth, agg)| {
             let e = common::random_ensemble(&mut rng, trees, 10, depth, agg);
             let rows = (0..256).map(|_| common::random_row(&mut rng, 10)).collect();
-            let _ = Scorer::Trees(e.clone());
-            let limit: usize = std::env::var("PLUMBLINE_TABLE_LIMIT")
-                .ok()
-                .and_then(|v| v.parse().ok())
-                .unwrap_or(8);
             Case {
                 name: name.to_string(),
-                explainer: Explainer::PathDependent(PathExplainer::with_table_limit(&e, limit)),
+                explainer: Explainer::PathDependent(PathExplainer::new(&e)),
                 rows,
             }
         })

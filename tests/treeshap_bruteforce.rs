@@ -91,8 +91,9 @@ fn assert_close(got: &[f64], want: &[f64], tol: f64, what: &str) {
 fn check_path_dependent(seed: u64, columns: usize, depth: usize, trees: usize, agg: Aggregation) {
     let mut rng = Rng(seed);
     let e = random_ensemble(&mut rng, trees, columns, depth, agg);
-    for limit in [0, 8] {
-        let explainer = PathExplainer::with_table_limit(&e, limit);
+    {
+        let limit = e.max_depth();
+        let explainer = PathExplainer::new(&e);
         let base = path_value(&e, &[f64::NAN; 16][..columns], 0);
         assert!(
             (explainer.base_value() - base).abs() < 1e-12,
@@ -108,7 +109,7 @@ fn check_path_dependent(seed: u64, columns: usize, depth: usize, trees: usize, a
                 &got,
                 &want,
                 1e-12,
-                &format!("path-dependent seed {seed} table limit {limit}"),
+                &format!("path-dependent seed {seed} depth {limit}"),
             );
         }
     }
@@ -128,11 +129,19 @@ fn path_dependent_matches_enumeration_forest() {
     }
 }
 
-/// Paths with more distinct columns than the table holds use the closed form.
+/// Depth 12 needs six quadrature points.
 #[test]
 fn path_dependent_matches_enumeration_deep_paths() {
     for seed in 200..206 {
         check_path_dependent(seed, 11, 12, 2, Aggregation::SumLogOdds);
+    }
+}
+
+/// Trees deeper than the quadrature limit use the per-leaf closed form.
+#[test]
+fn path_dependent_matches_enumeration_deeper_than_quadrature() {
+    for seed in 400..403 {
+        check_path_dependent(seed, 12, 18, 1, Aggregation::SumLogOdds);
     }
 }
 

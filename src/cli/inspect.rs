@@ -85,8 +85,8 @@ fn explain_line(model: &LoadedModel) -> String {
     let space = crate::explain::space_name(model.scorer.space());
     let extra = match &model.explainer {
         Explainer::PathDependent(p) => {
-            let (tab, leaves, values) = p.table_stats();
-            format!(", {tab} of {leaves} leaves tabulated ({values} values)")
+            let (quadrature, per_leaf) = p.algorithm_counts();
+            format!(", {quadrature} trees by quadrature, {per_leaf} per leaf")
         }
         Explainer::Interventional(i) => format!(", background of {} rows", i.background_rows()),
         Explainer::Linear(_) => String::new(),

@@ -6,6 +6,7 @@
 
 mod linear;
 mod paths;
+mod quadrature;
 mod tree_interventional;
 mod tree_path;
 mod weights;

@@ -1,73 +1,206 @@
 //! Exact path-dependent TreeSHAP (Lundberg, Erion, Lee 2018, arXiv:1802.03888).
 //!
-//! Per leaf, the expectation over the training population is a product game: column j on the
-//! path contributes its indicator `o_j` (does the row satisfy every split on j?) when j is known
-//! and its zero fraction `z_j` (cover share) when not. With `o` binary, a row's status on a path is
-//! a bit set H of "hot" columns, and the Shapley values have closed forms in the elementary
-//! symmetric polynomials `e_m` of the hot columns' zero fractions:
+//! For one leaf, the expectation over the training population is a product game: column j on
+//! the path counts with its indicator `o_j` (does the row satisfy every split on j?) when j is
+//! known, and with its zero fraction `z_j` (share of cover) when not. Writing
+//! `g_j(u) = z_j + (o_j - z_j) u`, the Shapley weight s!(k-1-s)!/k! is a Beta integral, so
 //!
-//! * cold column: `-v * prod_cold(z) * sum_s w(s,k) e_{h-s}(z_H)` (the same for every cold column);
-//! * hot column i: `(1 - z_i) * v * prod_cold(z) * sum_s w(s,k) e_{h-1-s}(z_{H\i})`,
+//! ```text
+//! phi_i = v (o_i - z_i) * integral over [0,1] of prod_{j != i} g_j(u) du,
+//! ```
 //!
-//! with `w(s,k) = s!(k-1-s)!/k!`. For short paths we tabulate `T(H) = v * R(H)` over all 2^k bit
-//! sets at load (the idea of Fast TreeSHAP v2, Yang 2021, arXiv:2109.09847), so a row costs k
-//! look-ups per leaf; longer paths, or paths through a zero-cover node, use the closed form.
+//! a polynomial of degree k-1 that Gauss-Legendre quadrature with ceil(depth/2) points gets exactly
+//! (the idea of Linear TreeShap, Yu et al. 2022, arXiv:2209.08192). One depth-first walk per tree
+//! carries `prod_j g_j` down at each quadrature point and sums leaf values times it back up; a
+//! column's contribution is collected on each edge that splits on it, with a telescoping
+//! correction where a column is split on again deeper down. Work is O(nodes x points) per tree
+//! and nothing is allocated per row.
+//!
+//! Trees deeper than [`QUADRATURE_MAX_DEPTH`] use the per-leaf closed form in elementary
+//! symmetric polynomials (`closed_form_into`), O(leaves x depth^2).
 
 use super::paths::{PathTree, TreePaths};
+use super::quadrature::gauss_legendre;
 use super::weights::shapley;
+use crate::artifact::spec::Aggregation;
 use crate::model::{Ensemble, Node};
 
-/// Paths with at most this many distinct columns are tabulated (2^k values per leaf).
-pub const TABLE_MAX_COLUMNS: usize = 8;
+/// Deepest tree explained by quadrature (8 points); deeper trees use the per-leaf closed form.
+pub const QUADRATURE_MAX_DEPTH: usize = 16;
+const MAX_POINTS: usize = QUADRATURE_MAX_DEPTH / 2;
 
 #[derive(Debug, Clone)]
 pub struct PathExplainer {
     trees: Vec<CompiledTree>,
+    /// Tree weight: 1/n for forests (mean), 1 for boosting (sum).
+    weight: f64,
     base: f64,
+    /// Gauss-Legendre rules on [0, 1], indexed by number of points.
+    rules: Vec<Rule>,
+}
+
+#[derive(Debug, Clone, Default)]
+struct Rule {
+    u: [f64; MAX_POINTS],
+    w: [f64; MAX_POINTS],
+    /// 1 / (1 - u)
+    inv_one_minus_u: [f64; MAX_POINTS],
 }
 
 #[derive(Debug, Clone)]
-struct CompiledTree {
-    nodes: Vec<Node>,
-    paths: PathTree,
-    /// Per leaf: offset of its 2^k table in `table`, or `u32::MAX` for the closed form.
-    table_at: Vec<u32>,
-    table: Vec<f64>,
-    /// Per position (aligned with `paths.cols`): (1 - z) / z, for tabulated leaves.
-    hot_factor: Vec<f64>,
+enum CompiledTree {
+    Quadrature(QuadTree),
+    PerLeaf { nodes: Vec<Node>, paths: PathTree },
+}
+
+/// A tree laid out for the quadrature walk: pre-order, so a split's left child is the next node
+/// and the walk reads memory front to back.
+#[derive(Debug, Clone)]
+struct QuadTree {
+    nodes: Vec<QNode>,
+    /// Per node, `points` values: 1 / (z + (1 - z) u_r), the inverse of g when the edge is hot.
+    inv_hot: Vec<f64>,
+    points: usize,
+}
+
+#[derive(Debug, Clone, Copy)]
+struct QNode {
+    /// Split threshold; for a leaf, the leaf value times the tree weight.
+    threshold: f64,
+    /// Zero fraction of the parent's column once the edge into this node is taken (fixed by the
+    /// tree: the product of cover ratios of the splits on that column down to here).
+    zero: f64,
+    /// 1 / zero (infinite for a zero-cover edge, which the walk never uses).
+    inv_zero: f64,
+    right: u32,
+    column: u16,
+    /// Position of this split's column on the path.
+    pos: u8,
+    flags: u8,
+}
+
+const IS_LEAF: u8 = 1;
+const STRICT: u8 = 2;
+const MISSING_LEFT: u8 = 4;
+
+impl QNode {
+    #[inline]
+    fn goes_left(&self, x: f64) -> bool {
+        if x.is_nan() {
+            self.flags & MISSING_LEFT != 0
+        } else if self.flags & STRICT != 0 {
+            x < self.threshold
+        } else {
+            x <= self.threshold
+        }
+    }
+}
+
+impl QuadTree {
+    fn new(nodes: &[Node], pos: &[u8], weight: f64, points: usize) -> Self {
+        let zero = edge_zero_fractions(nodes, pos);
+        let (u, _) = gauss_legendre(points);
+        let mut out = QuadTree {
+            nodes: Vec::with_capacity(nodes.len()),
+            inv_hot: Vec::new(),
+            points,
+        };
+        // Pre-order copy; `right` is patched once the left subtree is laid out.
+        let mut stack = vec![(0u32, None::<usize>)];
+        while let Some((id, parent_slot)) = stack.pop() {
+            let n = &nodes[id as usize];
+            let at = out.nodes.len();
+            if let Some(p) = parent_slot {
+                out.nodes[p].right = at as u32;
+            }
+            let z = zero[id as usize];
+            out.inv_hot
+                .extend(u.iter().map(|&u| 1.0 / (z + (1.0 - z) * u)));
+            if n.is_leaf() {
+                out.nodes.push(QNode {
+                    threshold: n.value * weight,
+                    zero: z,
+                    inv_zero: 1.0 / z,
+                    right: 0,
+                    column: 0,
+                    pos: 0,
+                    flags: IS_LEAF,
+                });
+                continue;
+            }
+            let flags =
+                if n.strict { STRICT } else { 0 } | if n.missing_left { MISSING_LEFT } else { 0 };
+            out.nodes.push(QNode {
+                threshold: n.threshold,
+                zero: z,
+                inv_zero: 1.0 / z,
+                right: 0,
+                column: n.column as u16,
+                pos: pos[id as usize],
+                flags,
+            });
+            stack.push((n.right, Some(at)));
+            stack.push((n.left, None));
+        }
+        out
+    }
 }
 
 impl PathExplainer {
     /// Needs every node's cover (checked at load).
     pub fn new(ensemble: &Ensemble) -> Self {
-        Self::with_table_limit(ensemble, TABLE_MAX_COLUMNS)
-    }
-
-    /// As [`Self::new`], tabulating only paths of at most `limit` distinct columns (0: never);
-    /// both forms are exact, so this trades load time and memory against per-row speed.
-    pub fn with_table_limit(ensemble: &Ensemble, limit: usize) -> Self {
-        let limit = limit.min(TABLE_MAX_COLUMNS);
-        let paths = TreePaths::new(ensemble);
+        let weight = ensemble.tree_weight();
         let mut base = match ensemble.aggregation {
-            crate::artifact::spec::Aggregation::SumLogOdds => ensemble.base_score,
-            crate::artifact::spec::Aggregation::MeanProbability => 0.0,
+            Aggregation::SumLogOdds => ensemble.base_score,
+            Aggregation::MeanProbability => 0.0,
         };
-        let trees = ensemble
-            .trees
-            .iter()
-            .zip(paths.trees)
-            .map(|(tree, paths)| {
-                let root = tree.nodes[0].cover;
-                for (id, node) in tree.nodes.iter().enumerate() {
-                    if node.is_leaf() && root > 0.0 {
-                        let leaf = paths.leaves[paths.leaf_index[id] as usize];
-                        base += leaf.value * node.cover / root;
+        let paths = TreePaths::new(ensemble);
+        let mut trees = Vec::with_capacity(ensemble.trees.len());
+        for (tree, paths) in ensemble.trees.iter().zip(paths.trees) {
+            let root = tree.nodes[0].cover;
+            if root > 0.0 {
+                for node in tree.nodes.iter().filter(|n| n.is_leaf()) {
+                    base += weight * node.value * node.cover / root;
+                }
+            }
+            // The widest leaf game has k players; its integrand has degree k - 1.
+            let players = paths.leaves.iter().map(|l| l.k as usize).max().unwrap_or(0);
+            trees.push(
+                if players <= QUADRATURE_MAX_DEPTH && tree.nodes.len() < u32::MAX as usize {
+                    CompiledTree::Quadrature(QuadTree::new(
+                        &tree.nodes,
+                        &paths.pos,
+                        weight,
+                        players.div_ceil(2).max(1),
+                    ))
+                } else {
+                    CompiledTree::PerLeaf {
+                        nodes: tree.nodes.clone(),
+                        paths,
+                    }
+                },
+            );
+        }
+        let rules = (0..=MAX_POINTS)
+            .map(|q| {
+                let mut rule = Rule::default();
+                if q > 0 {
+                    let (u, w) = gauss_legendre(q);
+                    for r in 0..q {
+                        rule.u[r] = u[r];
+                        rule.w[r] = w[r];
+                        rule.inv_one_minus_u[r] = 1.0 / (1.0 - u[r]);
                     }
                 }
-                CompiledTree::new(tree.nodes.clone(), paths, limit)
+                rule
             })
             .collect();
-        PathExplainer { trees, base }
+        PathExplainer {
+            trees,
+            weight,
+            base,
+            rules,
+        }
     }
 
     /// Expected output over the training population (through the covers).
@@ -77,127 +210,191 @@ impl PathExplainer {
 
     pub fn explain_into(&self, x: &[f64], out: &mut [f64]) {
         for tree in &self.trees {
-            tree.explain_into(x, out);
+            match tree {
+                CompiledTree::Quadrature(t) => {
+                    let rule = &self.rules[t.points];
+                    match t.points {
+                        1 => walk::<1>(t, rule, x, out),
+                        2 => walk::<2>(t, rule, x, out),
+                        3 => walk::<3>(t, rule, x, out),
+                        4 => walk::<4>(t, rule, x, out),
+                        5 => walk::<5>(t, rule, x, out),
+                        6 => walk::<6>(t, rule, x, out),
+                        7 => walk::<7>(t, rule, x, out),
+                        _ => walk::<8>(t, rule, x, out),
+                    }
+                }
+                CompiledTree::PerLeaf { nodes, paths } => {
+                    per_leaf_into(nodes, paths, self.weight, x, out)
+                }
+            }
         }
     }
 
-    /// How many leaves use the table, and how many values the tables hold (for `inspect`).
-    pub fn table_stats(&self) -> (usize, usize, usize) {
-        let mut tabulated = 0;
-        let mut leaves = 0;
-        let mut values = 0;
-        for t in &self.trees {
-            leaves += t.table_at.len();
-            tabulated += t.table_at.iter().filter(|&&o| o != u32::MAX).count();
-            values += t.table.len();
-        }
-        (tabulated, leaves, values)
+    /// (trees explained by quadrature, trees explained per leaf), for `inspect`.
+    pub fn algorithm_counts(&self) -> (usize, usize) {
+        let quad = self
+            .trees
+            .iter()
+            .filter(|t| matches!(t, CompiledTree::Quadrature(_)))
+            .count();
+        (quad, self.trees.len() - quad)
     }
 }
 
-impl CompiledTree {
-    fn new(nodes: Vec<Node>, paths: PathTree, limit: usize) -> Self {
-        let mut table_at = Vec::with_capacity(paths.leaves.len());
-        let mut table = Vec::new();
-        let mut hot_factor = vec![0.0; paths.zero.len()];
-        for leaf in &paths.leaves {
-            let z = &paths.zero[leaf.range()];
-            let k = leaf.k as usize;
-            if k <= limit && z.iter().all(|&z| z > 0.0) {
-                table_at.push(table.len() as u32);
-                for hot in 0..(1u64 << k) {
-                    table.push(if hot == (1u64 << k) - 1 {
-                        0.0 // all hot: no cold column needs it, no hot column looks it up
-                    } else {
-                        leaf.value * reach_weight(z, hot)
-                    });
-                }
-                for (f, z) in hot_factor[leaf.range()].iter_mut().zip(z) {
-                    *f = (1.0 - z) / z;
+/// The zero fraction each edge leaves its parent's column with: the product of the cover ratios
+/// of every split on that column from the root down to and including this edge (1 at the root).
+fn edge_zero_fractions(nodes: &[Node], pos: &[u8]) -> Vec<f64> {
+    let mut zero = vec![1.0; nodes.len()];
+    let mut stack = vec![(0u32, [1.0f64; QUADRATURE_MAX_DEPTH + 1])];
+    while let Some((id, path)) = stack.pop() {
+        let n = &nodes[id as usize];
+        if n.is_leaf() {
+            continue;
+        }
+        let p = pos[id as usize] as usize;
+        for c in [n.left, n.right] {
+            let child = nodes[c as usize].cover;
+            let ratio = if n.cover == 0.0 { 0.0 } else { child / n.cover };
+            let mut next = path;
+            next[p] *= ratio;
+            zero[c as usize] = next[p];
+            stack.push((c, next));
+        }
+    }
+    zero
+}
+
+struct Walk<'a, const Q: usize> {
+    nodes: &'a [QNode],
+    inv_hot: &'a [f64],
+    u: [f64; Q],
+    w: [f64; Q],
+    inv_one_minus_u: [f64; Q],
+    x: &'a [f64],
+    out: &'a mut [f64],
+    /// Per path position: is the column hot, its zero fraction, and 1/g at each point.
+    hot: [bool; QUADRATURE_MAX_DEPTH + 1],
+    zero: [f64; QUADRATURE_MAX_DEPTH + 1],
+    inv_g: [[f64; Q]; QUADRATURE_MAX_DEPTH + 1],
+}
+
+fn walk<const Q: usize>(t: &QuadTree, rule: &Rule, x: &[f64], out: &mut [f64]) {
+    // A column not yet on the path behaves as hot with zero fraction 1: g = 1, coefficient 0.
+    let mut walk = Walk {
+        nodes: &t.nodes,
+        inv_hot: &t.inv_hot,
+        u: std::array::from_fn(|r| rule.u[r]),
+        w: std::array::from_fn(|r| rule.w[r]),
+        inv_one_minus_u: std::array::from_fn(|r| rule.inv_one_minus_u[r]),
+        x,
+        out,
+        hot: [true; QUADRATURE_MAX_DEPTH + 1],
+        zero: [1.0; QUADRATURE_MAX_DEPTH + 1],
+        inv_g: [[1.0; Q]; QUADRATURE_MAX_DEPTH + 1],
+    };
+    walk.visit(0, [1.0; Q]);
+}
+
+impl<const Q: usize> Walk<'_, Q> {
+    /// Returns, at each point, the sum over leaves below `id` of value x prod_j g_j.
+    ///
+    /// Written for the branch predictor: which child is hot depends on the row, so there is one
+    /// data-dependent branch per edge and every other step is unconditional.
+    fn visit(&mut self, id: usize, carried: [f64; Q]) -> [f64; Q] {
+        let node = self.nodes[id];
+        if node.flags & IS_LEAF != 0 {
+            return carried.map(|a| a * node.threshold);
+        }
+        let p = node.pos as usize;
+        let column = node.column as usize;
+        let (old_hot, old_zero, old_inv) = (self.hot[p], self.zero[p], self.inv_g[p]);
+        let o = if old_hot { 1.0 } else { 0.0 };
+        let old_coef: [f64; Q] = std::array::from_fn(|r| (o - old_zero) * old_inv[r]);
+        let goes_left = node.goes_left(self.x[column]);
+        let mut sum = [0.0; Q];
+        for (child, is_left) in [(id + 1, true), (node.right as usize, false)] {
+            let next = self.nodes[child];
+            let zero = next.zero;
+            let hot = old_hot && goes_left == is_left;
+            if !hot && zero == 0.0 {
+                continue; // g = 0 everywhere: no leaf below adds to anyone
+            }
+            let mut coef = [0.0; Q];
+            let mut down = [0.0; Q];
+            let mut inv = [0.0; Q];
+            if hot {
+                let inv_hot = &self.inv_hot[child * Q..child * Q + Q];
+                for r in 0..Q {
+                    inv[r] = inv_hot[r];
+                    coef[r] = (1.0 - zero) * inv[r] - old_coef[r];
+                    down[r] = carried[r] * (zero + (1.0 - zero) * self.u[r]) * old_inv[r];
                 }
             } else {
-                table_at.push(u32::MAX);
+                for r in 0..Q {
+                    inv[r] = self.inv_one_minus_u[r] * next.inv_zero;
+                    coef[r] = -self.inv_one_minus_u[r] - old_coef[r];
+                    down[r] = carried[r] * (zero * (1.0 - self.u[r])) * old_inv[r];
+                }
             }
-        }
-        CompiledTree {
-            nodes,
-            paths,
-            table_at,
-            table,
-            hot_factor,
-        }
-    }
-
-    fn explain_into(&self, x: &[f64], out: &mut [f64]) {
-        // Depth-first walk carrying the hot bit set; bounded stack, no allocation.
-        let mut stack = [(0u32, 0u64); super::weights::MAX_PATH_COLUMNS + 2];
-        let mut top = 1;
-        stack[0] = (0, u64::MAX);
-        while top > 0 {
-            top -= 1;
-            let (id, hot) = stack[top];
-            let node = &self.nodes[id as usize];
-            if node.is_leaf() {
-                self.leaf_into(self.paths.leaf_index[id as usize] as usize, hot, out);
-                continue;
+            self.hot[p] = hot;
+            self.zero[p] = zero;
+            self.inv_g[p] = inv;
+            let below = if next.flags & IS_LEAF != 0 {
+                down.map(|a| a * next.threshold) // a leaf: no call needed
+            } else {
+                self.visit(child, down)
+            };
+            let mut phi = 0.0;
+            for r in 0..Q {
+                phi += self.w[r] * coef[r] * below[r];
+                sum[r] += below[r];
             }
-            let bit = 1u64 << self.paths.pos[id as usize];
-            let left = node.goes_left(x[node.column as usize]);
-            stack[top] = (node.right, if left { hot & !bit } else { hot });
-            stack[top + 1] = (node.left, if left { hot } else { hot & !bit });
-            top += 2;
+            self.out[column] += phi;
         }
-    }
-
-    #[inline]
-    fn leaf_into(&self, leaf_id: usize, hot: u64, out: &mut [f64]) {
-        let leaf = self.paths.leaves[leaf_id];
-        let k = leaf.k as usize;
-        if k == 0 {
-            return; // a single-leaf tree shifts only the base value
-        }
-        let hot = hot & ((1u64 << k) - 1);
-        let cols = &self.paths.cols[leaf.range()];
-        let at = self.table_at[leaf_id];
-        if at != u32::MAX {
-            let table = &self.table[at as usize..at as usize + (1 << k)];
-            let cold = -table[hot as usize];
-            let factors = &self.hot_factor[leaf.range()];
-            // Branch-free: whether a column is hot is data-dependent and unpredictable.
-            for (i, (&c, &f)) in cols.iter().zip(factors).enumerate() {
-                let bit = 1u64 << i;
-                let warm = f * table[(hot ^ bit) as usize & ((1 << k) - 1)];
-                out[c as usize] += if hot & bit != 0 { warm } else { cold };
-            }
-        } else {
-            closed_form_into(leaf.value, &self.paths.zero[leaf.range()], cols, hot, out);
-        }
+        self.hot[p] = old_hot;
+        self.zero[p] = old_zero;
+        self.inv_g[p] = old_inv;
+        sum
     }
 }
 
-/// `R(H) = prod_cold(z) * sum_s w(s,k) e_{h-s}(z_H)`: the Shapley weight that a cold column
-/// loses (before the sign and leaf value), for bit set `hot` with at least one cold column.
-fn reach_weight(z: &[f64], hot: u64) -> f64 {
-    let k = z.len();
-    let mut e = [0.0f64; super::weights::MAX_PATH_COLUMNS + 1];
-    e[0] = 1.0;
-    let mut h = 0;
-    let mut cold = 1.0;
-    for (i, &zi) in z.iter().enumerate() {
-        if hot & (1 << i) != 0 {
-            h += 1;
-            for m in (1..=h).rev() {
-                e[m] += zi * e[m - 1];
+/// Per-leaf closed form for deep trees: with H the hot columns of a path (h of k) and e_m the
+/// elementary symmetric polynomials of their zero fractions, a cold column gets
+/// `-v prod_cold(z) sum_s w(s,k) e_{h-s}(z_H)` and a hot column i
+/// `(1 - z_i) v prod_cold(z) sum_s w(s,k) e_{h-1-s}(z_{H\i})`, w(s,k) = s!(k-1-s)!/k!.
+fn per_leaf_into(nodes: &[Node], paths: &PathTree, weight: f64, x: &[f64], out: &mut [f64]) {
+    let _ = weight; // leaf values in `paths` already carry the tree weight
+    let mut stack = [(0u32, 0u64); super::weights::MAX_PATH_COLUMNS + 2];
+    let mut top = 1;
+    stack[0] = (0, u64::MAX);
+    while top > 0 {
+        top -= 1;
+        let (id, hot) = stack[top];
+        let node = &nodes[id as usize];
+        if node.is_leaf() {
+            let leaf = paths.leaves[paths.leaf_index[id as usize] as usize];
+            let k = leaf.k as usize;
+            if k > 0 {
+                let mask = if k == 64 { u64::MAX } else { (1u64 << k) - 1 };
+                closed_form_into(
+                    leaf.value,
+                    &paths.zero[leaf.range()],
+                    &paths.cols[leaf.range()],
+                    hot & mask,
+                    out,
+                );
             }
-        } else {
-            cold *= zi;
+            continue;
         }
+        let bit = 1u64 << paths.pos[id as usize];
+        let left = node.goes_left(x[node.column as usize]);
+        stack[top] = (node.right, if left { hot & !bit } else { hot });
+        stack[top + 1] = (node.left, if left { hot } else { hot & !bit });
+        top += 2;
     }
-    let w = shapley(k);
-    cold * (0..=h).map(|s| w[s] * e[h - s]).sum::<f64>()
 }
 
-/// The closed form for one leaf, without tables or divisions (zero covers are fine).
 fn closed_form_into(value: f64, z: &[f64], cols: &[u32], hot: u64, out: &mut [f64]) {
     let k = z.len();
     let w = shapley(k);
