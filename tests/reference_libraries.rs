@@ -22,20 +22,8 @@ fn explainer_for(model: &LoadedModel, method: &str) -> Explainer {
     match method {
         "tree_path_dependent" => Explainer::PathDependent(PathExplainer::new(ensemble)),
         "tree_interventional" => {
-            let background: Vec<Vec<f64>> = model
-                .spec
-                .explanation
-                .background
-                .iter()
-                .map(|row| {
-                    model
-                        .schema
-                        .check_and_encode(&Value::Object(row.clone()), "background")
-                        .unwrap()
-                        .columns
-                })
-                .collect();
-            Explainer::Interventional(InterventionalExplainer::new(ensemble, &background))
+            let background = &model.background;
+            Explainer::Interventional(InterventionalExplainer::new(ensemble, background))
         }
         other => panic!("unknown method {other}"),
     }

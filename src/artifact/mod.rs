@@ -1,6 +1,7 @@
 //! Model artifacts: our own JSON format (documented in models/README.md), loaded, digested and
 //! validated into a [`LoadedModel`] ready to decide.
 
+mod canonical;
 mod digest;
 mod parse;
 pub mod spec;
@@ -13,7 +14,7 @@ use crate::features::Schema;
 use crate::model::Scorer;
 use crate::policy::Policy;
 use crate::reasons::ReasonTable;
-use spec::{ArtifactSpec, IdentitySpec, ReferenceSpec};
+use spec::{IdentitySpec, ReferenceSpec};
 use std::path::Path;
 
 /// A problem with an artifact: where in the JSON, which rule, and what to do.
@@ -48,8 +49,10 @@ pub struct LoadedModel {
     pub reference: ReferenceSpec,
     pub reasons: ReasonTable,
     pub policy: Policy,
-    /// The artifact as read, for inspection.
-    pub spec: ArtifactSpec,
+    /// Encoded rows of the artifact's background sample (empty when it has none).
+    pub background: Vec<Vec<f64>>,
+    /// The artifact's `provenance` object, as written.
+    pub provenance: Option<serde_json::Value>,
 }
 
 impl LoadedModel {
@@ -67,25 +70,16 @@ impl LoadedModel {
 
     /// Parses, digests and validates artifact bytes.
     pub fn from_slice(bytes: &[u8]) -> Result<Self, ArtifactError> {
-        let value: serde_json::Value = serde_json::from_slice(bytes).map_err(|e| {
-            ArtifactError::new(
-                "$",
-                "json",
-                format!(
-                    "not valid JSON: {e} (line {}, column {})",
-                    e.line(),
-                    e.column()
-                ),
-            )
-        })?;
-        Self::from_value(value)
+        // Two streaming passes over the bytes, no JSON tree in memory: the canonical form (which
+        // also checks JSON syntax and object shapes), then the typed read.
+        let sha256 = sha256_hex(&canonical::canonicalize(bytes)?);
+        let spec = parse::parse(bytes)?;
+        validate::compile(spec, sha256)
     }
 
     /// Digests and validates an already-parsed artifact.
-    pub fn from_value(value: serde_json::Value) -> Result<Self, ArtifactError> {
-        let sha256 = sha256_hex(&canonical_json(&value));
-        let spec = parse::parse(&value)?;
-        validate::compile(spec, sha256)
+    pub fn from_value(value: &serde_json::Value) -> Result<Self, ArtifactError> {
+        Self::from_slice(&canonical_json(value))
     }
 
     /// Number of encoded model columns.

@@ -43,7 +43,7 @@ pub fn compile(spec: ArtifactSpec, sha256: String) -> Result<LoadedModel> {
     let scorer = compile_model(&spec.model, &schema, spec.explanation.method)?;
     let policy = compile_policy(&spec.policy, &schema, &reasons)?;
     check_reason_use(&spec, &schema, &reasons)?;
-    let explainer = compile_explainer(&spec.explanation, &schema, &scorer)?;
+    let (explainer, background) = compile_explainer(&spec.explanation, &schema, &scorer)?;
     check_base_below_decline(&scorer, &explainer, &policy)?;
     Ok(LoadedModel {
         identity: spec.identity.clone(),
@@ -54,7 +54,8 @@ pub fn compile(spec: ArtifactSpec, sha256: String) -> Result<LoadedModel> {
         reference: spec.explanation.reference.clone(),
         reasons,
         policy,
-        spec,
+        background,
+        provenance: spec.provenance,
     })
 }
 
@@ -712,6 +713,7 @@ fn compile_policy(spec: &PolicySpec, schema: &Schema, reasons: &ReasonTable) -> 
             field,
             test: r.test,
             value,
+            given: r.value.clone(),
             action: r.action,
         });
     }
@@ -754,7 +756,7 @@ fn compile_explainer(
     spec: &ExplanationSpec,
     schema: &Schema,
     scorer: &Scorer,
-) -> Result<Explainer> {
+) -> Result<(Explainer, Vec<Vec<f64>>)> {
     if spec.reference.label.trim().is_empty() {
         return fail(
             "$.explanation.reference.label",
@@ -787,7 +789,7 @@ fn compile_explainer(
     if spec.mean.is_some() && !matches!(scorer, Scorer::Logistic(_)) {
         return fail("$.explanation.mean", "method", "a reference mean is used only by linear explanations; tree explanations use covers or the background");
     }
-    match (scorer, spec.method) {
+    let explainer = match (scorer, spec.method) {
         (Scorer::Logistic(m), ExplainMethod::Linear) => {
             let reference = match (&spec.mean, background.is_empty()) {
                 (Some(mean), _) => {
@@ -854,7 +856,8 @@ fn compile_explainer(
             "method",
             "a tree ensemble is explained by tree_path_dependent or tree_interventional",
         ),
-    }
+    };
+    explainer.map(|e| (e, background))
 }
 
 /// A declined applicant must have at least one adverse contribution, which holds when the

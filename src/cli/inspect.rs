@@ -167,13 +167,7 @@ fn text(model: &LoadedModel) -> String {
         }
     );
     for r in &p.rules {
-        let value = model
-            .spec
-            .policy
-            .rules
-            .iter()
-            .find(|x| x.code == model.reasons.reasons[r.reason].code)
-            .and_then(|x| x.value.clone());
+        let value = r.given.clone();
         let _ = writeln!(
             s,
             "  rule {}: {} {} {} -> {}",

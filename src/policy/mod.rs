@@ -89,6 +89,8 @@ pub struct Rule {
     pub test: RuleTest,
     /// The compared value, checked against the field's type at load.
     pub value: FieldValue,
+    /// The compared value as the artifact wrote it (for display).
+    pub given: Option<serde_json::Value>,
     pub action: RuleAction,
 }
 
@@ -198,6 +200,7 @@ mod tests {
             field: 0,
             test: RuleTest::Greater,
             value: FieldValue::Number(40000.0),
+            given: None,
             action: RuleAction::Refer,
         };
         assert!(r.fires(FieldValue::Number(40000.5)));
