@@ -7,6 +7,8 @@ mod parse;
 pub mod spec;
 mod validate;
 
+pub use validate::MAX_TREE_DEPTH;
+
 pub use digest::{canonical_json, sha256_hex};
 
 use crate::explain::Explainer;
