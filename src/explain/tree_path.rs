@@ -271,7 +271,6 @@ struct Walk<'a, const Q: usize> {
     u: [f64; Q],
     w: [f64; Q],
     inv_one_minus_u: [f64; Q],
-    one_minus_u: [f64; Q],
     x: &'a [f64],
     out: &'a mut [f64],
     /// Per path position: is the column hot, its zero fraction, and 1/g at each point.
@@ -288,7 +287,6 @@ fn walk<const Q: usize>(t: &QuadTree, rule: &Rule, x: &[f64], out: &mut [f64]) {
         u: std::array::from_fn(|r| rule.u[r]),
         w: std::array::from_fn(|r| rule.w[r]),
         inv_one_minus_u: std::array::from_fn(|r| rule.inv_one_minus_u[r]),
-        one_minus_u: std::array::from_fn(|r| 1.0 - rule.u[r]),
         x,
         out,
         hot: [true; QUADRATURE_MAX_DEPTH + 1],
@@ -314,39 +312,37 @@ impl<const Q: usize> Walk<'_, Q> {
         let o = if old_hot { 1.0 } else { 0.0 };
         let old_coef: [f64; Q] = std::array::from_fn(|r| (o - old_zero) * old_inv[r]);
         let goes_left = node.goes_left(self.x[column]);
-        let nodes = self.nodes;
         let mut sum = [0.0; Q];
         for (child, is_left) in [(id + 1, true), (node.right as usize, false)] {
-            let next = &nodes[child];
+            let next = self.nodes[child];
             let zero = next.zero;
             let hot = old_hot && goes_left == is_left;
             if !hot && zero == 0.0 {
                 continue; // g = 0 everywhere: no leaf below adds to anyone
             }
-            let inv_hot = &self.inv_hot[child * Q..child * Q + Q];
             let mut coef = [0.0; Q];
             let mut down = [0.0; Q];
+            let mut inv = [0.0; Q];
             if hot {
+                let inv_hot = &self.inv_hot[child * Q..child * Q + Q];
                 for r in 0..Q {
-                    coef[r] = (1.0 - zero) * inv_hot[r] - old_coef[r];
+                    inv[r] = inv_hot[r];
+                    coef[r] = (1.0 - zero) * inv[r] - old_coef[r];
                     down[r] = carried[r] * (zero + (1.0 - zero) * self.u[r]) * old_inv[r];
                 }
             } else {
                 for r in 0..Q {
+                    inv[r] = self.inv_one_minus_u[r] * next.inv_zero;
                     coef[r] = -self.inv_one_minus_u[r] - old_coef[r];
-                    down[r] = carried[r] * (zero * self.one_minus_u[r]) * old_inv[r];
+                    down[r] = carried[r] * (zero * (1.0 - self.u[r])) * old_inv[r];
                 }
             }
+            self.hot[p] = hot;
+            self.zero[p] = zero;
+            self.inv_g[p] = inv;
             let below = if next.flags & IS_LEAF != 0 {
-                down.map(|a| a * next.threshold) // a leaf: no call, and no state to pass on
+                down.map(|a| a * next.threshold) // a leaf: no call needed
             } else {
-                self.hot[p] = hot;
-                self.zero[p] = zero;
-                self.inv_g[p] = if hot {
-                    std::array::from_fn(|r| inv_hot[r])
-                } else {
-                    std::array::from_fn(|r| self.inv_one_minus_u[r] * next.inv_zero)
-                };
                 self.visit(child, down)
             };
             let mut phi = 0.0;
