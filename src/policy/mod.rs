@@ -167,9 +167,9 @@ mod tests {
 
     #[test]
     fn scores_clamp_and_round() {
-        let s = Scaling::new(600.0, 50.0, 20.0, Some(300.0), Some(850.0));
-        assert_eq!(s.score(50.0), 300);
-        assert_eq!(s.score(-50.0), 850);
+        let s = Scaling::new(600.0, 50.0, 20.0, Some(200.0), Some(900.0));
+        assert_eq!(s.score(50.0), 200);
+        assert_eq!(s.score(-50.0), 900);
         assert_eq!(s.score((1.0f64 / 50.0).ln()), 600);
     }
 
