@@ -5,15 +5,16 @@
 use crate::artifact::spec::{Population, RuleAction};
 use crate::artifact::LoadedModel;
 use crate::explain::{self, Method};
-use crate::features::{kind_of, InputError, MissingTreatment};
+use crate::features::{FieldError, InputError, MissingTreatment};
 use crate::model::Space;
 use crate::policy::Outcome;
 use crate::reasons::{PrincipalReason, ReasonLimits};
 use serde::Serialize;
 use serde_json::Value;
 
-/// Longest application id accepted.
-pub const MAX_APPLICATION_ID: usize = 128;
+mod envelope;
+
+pub use envelope::{Envelope, ModelSelector, MAX_APPLICATION_ID, MAX_IDEMPOTENCY_KEY};
 
 /// Which model made a decision: id, version and artifact digest.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -80,82 +81,42 @@ pub struct MissingField {
     pub treatment: MissingTreatment,
 }
 
-/// Decides a request envelope `{"application_id": "...", "applicant": {...}}`.
+/// Decides a request envelope (see [`Envelope`]) with this model; a `model` selector in the
+/// request must name this model.
 pub fn decide_request(model: &LoadedModel, request: &Value) -> Result<Decision, InputError> {
-    let Some(obj) = request.as_object() else {
-        return Err(InputError::one(
-            "$",
-            "type",
-            format!("expected a JSON object, got {}", kind_of(request)),
-        ));
-    };
-    let mut errors = Vec::new();
-    for key in obj.keys() {
-        if key != "application_id" && key != "applicant" {
-            errors.push(crate::features::FieldError {
-                field: key.clone(),
-                rule: "unknown_field",
-                message: "is not part of a decision request (application_id, applicant)".into(),
+    let mut envelope = Envelope::parse(request)?;
+    if let Some(selector) = &envelope.model {
+        if !selector.matches(model) {
+            envelope.errors.push(FieldError {
+                field: "model".into(),
+                rule: "unknown_model",
+                message: format!(
+                    "this model is {} version {}; the request asks for {}",
+                    model.identity.model_id,
+                    model.identity.version,
+                    selector.describe()
+                ),
             });
         }
     }
-    let id = match obj.get("application_id") {
-        Some(Value::String(s)) => match application_id_problem(s) {
-            None => Some(s.as_str()),
-            Some(msg) => {
-                errors.push(field_error("application_id", "format", msg));
-                None
-            }
-        },
-        None | Some(Value::Null) => {
-            errors.push(field_error(
-                "application_id",
-                "required",
-                "is required".into(),
-            ));
-            None
-        }
-        Some(v) => {
-            errors.push(field_error(
-                "application_id",
-                "type",
-                format!("expected a string, got {}", kind_of(v)),
-            ));
-            None
-        }
-    };
-    let applicant = match obj.get("applicant") {
-        None | Some(Value::Null) => {
-            errors.push(field_error("applicant", "required", "is required".into()));
-            None
-        }
-        Some(v) => Some(v),
-    };
-    let result = applicant.map(|a| decide(model, id.unwrap_or(""), a));
+    decide_envelope(model, &envelope)
+}
+
+/// Decides a parsed envelope, reporting envelope and applicant problems together.
+pub fn decide_envelope(
+    model: &LoadedModel,
+    envelope: &Envelope<'_>,
+) -> Result<Decision, InputError> {
+    let mut errors = envelope.errors.clone();
+    let result = envelope
+        .applicant
+        .map(|a| decide(model, envelope.application_id.as_deref().unwrap_or(""), a));
     if let Some(Err(e)) = &result {
         errors.extend(e.errors.iter().cloned());
     }
     match result {
         Some(Ok(d)) if errors.is_empty() => Ok(d),
         _ => Err(InputError { errors }),
-    }
-}
-
-fn field_error(field: &str, rule: &'static str, message: String) -> crate::features::FieldError {
-    crate::features::FieldError {
-        field: field.into(),
-        rule,
-        message,
-    }
-}
-
-fn application_id_problem(s: &str) -> Option<String> {
-    if s.is_empty() || s.chars().count() > MAX_APPLICATION_ID {
-        Some(format!("must be 1 to {MAX_APPLICATION_ID} characters"))
-    } else if s.chars().any(char::is_control) {
-        Some("must not contain control characters".into())
-    } else {
-        None
     }
 }
 

@@ -1,0 +1,173 @@
+//! The decision request envelope, shared by `plumbline score` and `POST /v1/decisions`:
+//!
+//! ```json
+//! {"application_id": "FH-2026-000101", "idempotency_key": "optional",
+//!  "model": {"id": "optional", "version": "optional"}, "applicant": {"field": "value", ...}}
+//! ```
+
+use crate::features::{kind_of, FieldError, InputError};
+use crate::LoadedModel;
+use serde_json::{Map, Value};
+
+/// Longest application id accepted.
+pub const MAX_APPLICATION_ID: usize = 128;
+/// Longest idempotency key accepted.
+pub const MAX_IDEMPOTENCY_KEY: usize = 128;
+
+const KEYS: &[&str] = &["application_id", "idempotency_key", "model", "applicant"];
+
+/// Which loaded model a request asks for; absent means the champion.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct ModelSelector {
+    pub id: String,
+    pub version: Option<String>,
+}
+
+impl ModelSelector {
+    pub fn matches(&self, model: &LoadedModel) -> bool {
+        self.id == model.identity.model_id
+            && self
+                .version
+                .as_ref()
+                .is_none_or(|v| *v == model.identity.version)
+    }
+
+    pub fn describe(&self) -> String {
+        match &self.version {
+            Some(v) => format!("{} version {v}", self.id),
+            None => self.id.clone(),
+        }
+    }
+}
+
+/// A parsed envelope. Problems with the envelope are collected in `errors`, so they can be
+/// reported together with the applicant's.
+#[derive(Debug, Clone)]
+pub struct Envelope<'a> {
+    pub application_id: Option<String>,
+    pub idempotency_key: Option<String>,
+    pub model: Option<ModelSelector>,
+    pub applicant: Option<&'a Value>,
+    pub errors: Vec<FieldError>,
+}
+
+fn error(field: &str, rule: &'static str, message: impl Into<String>) -> FieldError {
+    FieldError {
+        field: field.into(),
+        rule,
+        message: message.into(),
+    }
+}
+
+/// A non-empty printable string of at most `max` characters, or the problem with it.
+fn text(
+    obj: &Map<String, Value>,
+    key: &str,
+    max: usize,
+    errors: &mut Vec<FieldError>,
+) -> Option<String> {
+    match obj.get(key) {
+        None | Some(Value::Null) => None,
+        Some(Value::String(s)) if s.is_empty() || s.chars().count() > max => {
+            errors.push(error(
+                key,
+                "format",
+                format!("must be 1 to {max} characters"),
+            ));
+            None
+        }
+        Some(Value::String(s)) if s.chars().any(char::is_control) => {
+            errors.push(error(key, "format", "must not contain control characters"));
+            None
+        }
+        Some(Value::String(s)) => Some(s.clone()),
+        Some(v) => {
+            errors.push(error(
+                key,
+                "type",
+                format!("expected a string, got {}", kind_of(v)),
+            ));
+            None
+        }
+    }
+}
+
+impl<'a> Envelope<'a> {
+    /// Fails only when the request is not a JSON object at all.
+    pub fn parse(request: &'a Value) -> Result<Self, InputError> {
+        let Some(obj) = request.as_object() else {
+            return Err(InputError::one(
+                "$",
+                "type",
+                format!("expected a JSON object, got {}", kind_of(request)),
+            ));
+        };
+        let mut errors = Vec::new();
+        for key in obj.keys().filter(|k| !KEYS.contains(&k.as_str())) {
+            errors.push(error(
+                key,
+                "unknown_field",
+                format!("is not part of a decision request ({})", KEYS.join(", ")),
+            ));
+        }
+        let application_id = text(obj, "application_id", MAX_APPLICATION_ID, &mut errors);
+        if application_id.is_none() && !errors.iter().any(|e| e.field == "application_id") {
+            errors.push(error("application_id", "required", "is required"));
+        }
+        let idempotency_key = text(obj, "idempotency_key", MAX_IDEMPOTENCY_KEY, &mut errors);
+        let model = match obj.get("model") {
+            None | Some(Value::Null) => None,
+            Some(Value::Object(m)) => {
+                for key in m.keys().filter(|k| *k != "id" && *k != "version") {
+                    errors.push(error(
+                        &format!("model.{key}"),
+                        "unknown_field",
+                        "a model selector has id and version",
+                    ));
+                }
+                let mut inner = Vec::new();
+                let id = text(m, "id", 64, &mut inner);
+                let version = text(m, "version", 64, &mut inner);
+                errors.extend(inner.into_iter().map(|e| FieldError {
+                    field: format!("model.{}", e.field),
+                    ..e
+                }));
+                match id {
+                    Some(id) => Some(ModelSelector { id, version }),
+                    None => {
+                        if !errors.iter().any(|e| e.field == "model.id") {
+                            errors.push(error(
+                                "model.id",
+                                "required",
+                                "a model selector names the model id",
+                            ));
+                        }
+                        None
+                    }
+                }
+            }
+            Some(v) => {
+                errors.push(error(
+                    "model",
+                    "type",
+                    format!("expected an object with id and version, got {}", kind_of(v)),
+                ));
+                None
+            }
+        };
+        let applicant = match obj.get("applicant") {
+            None | Some(Value::Null) => {
+                errors.push(error("applicant", "required", "is required"));
+                None
+            }
+            Some(v) => Some(v),
+        };
+        Ok(Envelope {
+            application_id,
+            idempotency_key,
+            model,
+            applicant,
+            errors,
+        })
+    }
+}
