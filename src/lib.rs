@@ -10,6 +10,7 @@
 //! Model output is decision support. Lenders remain responsible for complying with ECOA /
 //! Regulation B, FCRA and local law, and for their own model-risk review.
 
+pub mod api;
 pub mod artifact;
 pub mod cli;
 pub mod decide;

@@ -226,7 +226,7 @@ pub struct ReferenceSpec {
 }
 
 /// The two example methods of Regulation B, Official Interpretation comment 9(b)(2)-5.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum Population {
     AllApplicants,
@@ -309,7 +309,9 @@ pub enum RuleTest {
     Missing,
 }
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize)]
+#[derive(
+    Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize, utoipa::ToSchema,
+)]
 #[serde(rename_all = "snake_case")]
 pub enum RuleAction {
     Refer,

@@ -3,6 +3,7 @@
 
 mod inspect;
 mod score;
+mod serve;
 
 use clap::{Parser, Subcommand};
 use std::path::PathBuf;
@@ -36,6 +37,18 @@ pub enum Command {
         /// Requests `{"application_id": ..., "applicant": {...}}`; `-` or absent reads stdin.
         input: Option<PathBuf>,
     },
+    /// Run the decision service (HTTP). With no arguments: the bundled demo model on 127.0.0.1:8080.
+    Serve(serve::ServeArgs),
+    /// Print the key-file entry for an API key read from stdin (its SHA-256; the key itself is
+    /// never stored).
+    HashKey {
+        /// Name of the key's holder, e.g. `los-production`.
+        #[arg(long)]
+        name: String,
+        /// scoring, review or admin.
+        #[arg(long)]
+        role: String,
+    },
 }
 
 /// Exit status for bad input.
@@ -48,6 +61,8 @@ pub fn run(cli: Cli) -> i32 {
     match cli.command {
         Command::Inspect { model, json } => inspect::run(&model, json),
         Command::Score { model, input } => score::run(&model, input.as_deref()),
+        Command::Serve(args) => serve::run(args),
+        Command::HashKey { name, role } => serve::hash_key(&name, &role),
     }
 }
 

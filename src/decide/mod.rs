@@ -17,14 +17,14 @@ mod envelope;
 pub use envelope::{Envelope, ModelSelector, MAX_APPLICATION_ID, MAX_IDEMPOTENCY_KEY};
 
 /// Which model made a decision: id, version and artifact digest.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct ModelRef {
     pub id: String,
     pub version: String,
     pub sha256: String,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct Decision {
     pub application_id: String,
     pub model: ModelRef,
@@ -41,7 +41,7 @@ pub struct Decision {
     pub missing: Vec<MissingField>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct FiredRule {
     pub code: String,
     pub field: String,
@@ -49,7 +49,7 @@ pub struct FiredRule {
 }
 
 /// Exact contributions: `base_value + sum(fields[].contribution) = model_output`, in `space`.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct ContributionReport {
     pub space: Space,
     pub method: Method,
@@ -60,13 +60,13 @@ pub struct ContributionReport {
     pub fields: Vec<FieldContribution>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct ReferenceRef {
     pub population: Population,
     pub label: String,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct FieldContribution {
     pub field: String,
     /// The value as given (null when missing).
@@ -74,7 +74,7 @@ pub struct FieldContribution {
     pub contribution: f64,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct MissingField {
     pub field: String,
     #[serde(flatten)]

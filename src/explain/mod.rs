@@ -19,7 +19,7 @@ pub use tree_path::PathExplainer;
 use crate::model::Space;
 
 /// Which algorithm produced a set of contributions.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum Method {
     Linear,

@@ -10,7 +10,7 @@ pub use schema::{Column, Field, FieldType, Missing, Schema};
 use serde::Serialize;
 
 /// One problem with one input field: where, which rule, and a sentence for a person.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, utoipa::ToSchema)]
 pub struct FieldError {
     /// JSON path of the offending value, e.g. `applicant.annual_income`.
     pub field: String,

@@ -10,7 +10,7 @@ pub use logistic::Logistic;
 use serde::Serialize;
 
 /// The space a raw model output and its contributions are in.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum Space {
     /// Log-odds of default (logistic models, boosted trees).

@@ -5,7 +5,7 @@ use crate::features::FieldValue;
 use serde::Serialize;
 
 /// Outcome of one application, ordered by severity (approve < refer < decline).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum Outcome {
     Approve,

@@ -20,7 +20,7 @@ pub struct ReasonTable {
 }
 
 /// Why a reason is on the list.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
 pub enum ReasonSource {
     /// A policy rule check that referred or declined.
@@ -31,7 +31,7 @@ pub enum ReasonSource {
     InquiryExtra,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct PrincipalReason {
     pub rank: usize,
     pub code: String,

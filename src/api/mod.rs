@@ -1,0 +1,174 @@
+//! The HTTP service (actix-web): routes over the same library calls as the command line.
+//!
+//! Limits are explicit and documented in [`Limits`]; errors are RFC 9457 problem details;
+//! every request gets an id, a structured log line (no applicant values) and metrics.
+
+pub mod auth;
+mod body;
+mod metrics;
+pub mod openapi;
+pub mod problem;
+pub mod registry;
+mod routes;
+
+use actix_web::dev::{ServerHandle, Service};
+use actix_web::{web, App, HttpServer};
+use std::net::SocketAddr;
+use std::path::PathBuf;
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::time::{Duration, Instant};
+
+pub use auth::{Auth, Keys, Role};
+pub use registry::Registry;
+
+/// Request limits. Defaults: 64 KiB per decision, 8 MiB and 1,000 items per batch, 5 s for a
+/// body to arrive, 5 s for a client to send its request head, 30 s to finish in-flight work on
+/// shutdown.
+#[derive(Debug, Clone)]
+pub struct Limits {
+    pub max_body_bytes: usize,
+    pub max_batch_body_bytes: usize,
+    pub max_batch_items: usize,
+    pub body_timeout: Duration,
+    pub head_timeout: Duration,
+    pub shutdown_timeout: Duration,
+}
+
+impl Default for Limits {
+    fn default() -> Self {
+        Limits {
+            max_body_bytes: 64 * 1024,
+            max_batch_body_bytes: 8 * 1024 * 1024,
+            max_batch_items: 1_000,
+            body_timeout: Duration::from_secs(5),
+            head_timeout: Duration::from_secs(5),
+            shutdown_timeout: Duration::from_secs(30),
+        }
+    }
+}
+
+/// Everything the service needs to start.
+#[derive(Debug, Clone)]
+pub struct ServeConfig {
+    pub addr: SocketAddr,
+    /// Model files; the first is the champion.
+    pub models: Vec<PathBuf>,
+    pub auth: Auth,
+    pub limits: Limits,
+    pub workers: usize,
+}
+
+/// Shared by all workers.
+pub struct State {
+    pub registry: Registry,
+    pub auth: Auth,
+    pub metrics: metrics::Metrics,
+    pub limits: Limits,
+}
+
+/// A started server: where it listens and how to stop it.
+pub struct Running {
+    pub addr: SocketAddr,
+    pub handle: ServerHandle,
+    pub server: actix_web::dev::Server,
+}
+
+static REQUEST_SEQ: AtomicU64 = AtomicU64::new(0);
+
+/// A caller's `x-request-id` if it is short and printable, else a new one.
+fn request_id(req: &actix_web::dev::ServiceRequest) -> String {
+    match req
+        .headers()
+        .get("x-request-id")
+        .and_then(|v| v.to_str().ok())
+    {
+        Some(id)
+            if !id.is_empty() && id.len() <= 64 && id.chars().all(|c| c.is_ascii_graphic()) =>
+        {
+            id.to_string()
+        }
+        _ => format!(
+            "{:x}-{:x}",
+            std::process::id(),
+            REQUEST_SEQ.fetch_add(1, Ordering::Relaxed)
+        ),
+    }
+}
+
+/// Validates every model and binds the address; the returned server runs once awaited.
+pub fn start(config: ServeConfig) -> Result<Running, String> {
+    let registry = Registry::new(config.models.clone())?;
+    let state = web::Data::new(State {
+        registry,
+        auth: config.auth.clone(),
+        metrics: Default::default(),
+        limits: config.limits.clone(),
+    });
+    let limits = config.limits.clone();
+    let server = HttpServer::new(move || {
+        App::new()
+            .app_data(state.clone())
+            .wrap_fn(|req, srv| {
+                let started = Instant::now();
+                let id = request_id(&req);
+                let method = req.method().to_string();
+                let data = req.app_data::<web::Data<State>>().cloned();
+                let fut = srv.call(req);
+                async move {
+                    let mut res = fut.await?;
+                    let route = res.request().match_pattern().unwrap_or_else(|| "unmatched".into());
+                    let status = res.status().as_u16();
+                    let seconds = started.elapsed().as_secs_f64();
+                    if let Some(d) = data {
+                        d.metrics.observe_request(&route, &method, status, seconds);
+                    }
+                    tracing::info!(request_id = %id, method = %method, route = %route, status, micros = (seconds * 1e6) as u64, "request");
+                    if let Ok(v) = actix_web::http::header::HeaderValue::from_str(&id) {
+                        res.headers_mut().insert(actix_web::http::header::HeaderName::from_static("x-request-id"), v);
+                    }
+                    Ok(res)
+                }
+            })
+            .route("/v1/decisions", web::post().to(routes::post_decision))
+            .route("/v1/decisions/batch", web::post().to(routes::post_batch))
+            .route("/v1/models", web::get().to(routes::get_models))
+            .route("/v1/models/{id}", web::get().to(routes::get_model))
+            .route("/v1/admin/reload", web::post().to(routes::reload))
+            .route("/health/live", web::get().to(routes::live))
+            .route("/health/ready", web::get().to(routes::ready))
+            .route("/metrics", web::get().to(routes::metrics))
+            .route("/openapi.json", web::get().to(routes::openapi))
+            .default_service(web::to(routes::not_found))
+    })
+    .workers(config.workers.max(1))
+    .client_request_timeout(limits.head_timeout)
+    .client_disconnect_timeout(Duration::from_secs(1))
+    .shutdown_timeout(limits.shutdown_timeout.as_secs())
+    .bind(config.addr)
+    .map_err(|e| format!("cannot listen on {}: {e}", config.addr))?;
+    let addr = server.addrs().first().copied().unwrap_or(config.addr);
+    let server = server.run();
+    Ok(Running {
+        addr,
+        handle: server.handle(),
+        server,
+    })
+}
+
+/// Starts the service and runs it until SIGINT / SIGTERM (then stops accepting, finishes
+/// in-flight requests and exits).
+pub fn serve(config: ServeConfig) -> Result<(), String> {
+    let system = actix_web::rt::System::new();
+    system.block_on(async move {
+        let no_auth = config.auth.0.is_none();
+        let running = start(config)?;
+        if no_auth {
+            let banner = "AUTHENTICATION IS OFF (--no-auth): anyone who can reach this port can request decisions and reload models";
+            tracing::warn!("{banner}");
+            eprintln!("\n*** WARNING: {banner} ***\n");
+        }
+        tracing::info!(addr = %running.addr, "listening");
+        eprintln!("plumbline listening on http://{}", running.addr);
+        running.server.await.map_err(|e| e.to_string())
+    })
+}

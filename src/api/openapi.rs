@@ -1,0 +1,48 @@
+//! The OpenAPI 3.1 document, generated from the handlers and types (utoipa). A test keeps the
+//! checked-in copy, openapi/plumbline.json, equal to it.
+
+use super::routes;
+use utoipa::openapi::security::{HttpAuthScheme, HttpBuilder, SecurityScheme};
+use utoipa::{Modify, OpenApi};
+
+#[derive(OpenApi)]
+#[openapi(
+    info(
+        title = "plumbline decision service",
+        description = "Scores loan applications with a validated model and returns the probability of default, a scaled score, an approve / refer / decline outcome, ranked reason codes and exact per-field contributions.\n\nModel output is decision support, not a credit decision by itself. Lenders remain responsible for complying with ECOA / Regulation B, FCRA and local law, for their adverse-action notices, and for their own model-risk review; defer to compliance counsel.\n\nErrors are RFC 9457 problem details (`application/problem+json`) naming each bad field with the rule it broke.",
+        license(name = "Apache-2.0")
+    ),
+    paths(routes::post_decision, routes::post_batch, routes::get_models, routes::get_model, routes::live, routes::ready, routes::metrics, routes::reload),
+    components(schemas(crate::decide::Decision, super::problem::Problem, routes::DecisionRequest, routes::BatchResponse)),
+    modifiers(&ApiKey),
+    tags(
+        (name = "decisions", description = "Decide applications"),
+        (name = "models", description = "What is loaded"),
+        (name = "operations", description = "Probes, metrics, reload"),
+    )
+)]
+struct Document;
+
+struct ApiKey;
+
+impl Modify for ApiKey {
+    fn modify(&self, openapi: &mut utoipa::openapi::OpenApi) {
+        let components = openapi.components.get_or_insert_with(Default::default);
+        components.add_security_scheme(
+            "api_key",
+            SecurityScheme::Http(
+                HttpBuilder::new()
+                    .scheme(HttpAuthScheme::Bearer)
+                    .description(Some("API key with a role: scoring, review or admin"))
+                    .build(),
+            ),
+        );
+    }
+}
+
+/// The document as pretty JSON, with a trailing newline (as checked in).
+pub fn document() -> String {
+    let mut doc = Document::openapi();
+    doc.info.version = crate::VERSION.to_string();
+    format!("{}\n", doc.to_pretty_json().unwrap_or_default())
+}

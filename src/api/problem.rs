@@ -1,0 +1,188 @@
+//! RFC 9457 problem details: every error the service returns, with the fields at fault.
+
+use crate::features::{FieldError, InputError};
+use actix_web::http::StatusCode;
+use actix_web::HttpResponse;
+use serde::Serialize;
+
+/// `application/problem+json` body. `type` is a stable identifier for the class of problem.
+#[derive(Debug, Clone, Serialize, utoipa::ToSchema)]
+pub struct Problem {
+    /// Problem class, e.g. `/problems/invalid-input`.
+    #[serde(rename = "type")]
+    #[schema(example = "/problems/invalid-input")]
+    pub kind: &'static str,
+    pub title: &'static str,
+    #[schema(example = 422)]
+    pub status: u16,
+    pub detail: String,
+    /// Each offending field: JSON path, rule broken, and a sentence for a person.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub errors: Vec<FieldError>,
+}
+
+impl Problem {
+    fn new(
+        status: StatusCode,
+        kind: &'static str,
+        title: &'static str,
+        detail: impl Into<String>,
+    ) -> Self {
+        Problem {
+            kind,
+            title,
+            status: status.as_u16(),
+            detail: detail.into(),
+            errors: Vec::new(),
+        }
+    }
+
+    fn with(mut self, field: &str, rule: &'static str, message: impl Into<String>) -> Self {
+        self.errors.push(FieldError {
+            field: field.into(),
+            rule,
+            message: message.into(),
+        });
+        self
+    }
+
+    pub fn invalid(e: InputError) -> Self {
+        let n = e.errors.len();
+        let mut p = Problem::new(
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "/problems/invalid-input",
+            "The request has invalid fields",
+            format!(
+                "{n} field{} failed validation; see errors",
+                if n == 1 { "" } else { "s" }
+            ),
+        );
+        p.errors = e.errors;
+        p
+    }
+
+    pub fn malformed_json(e: &serde_json::Error) -> Self {
+        Problem::new(
+            StatusCode::BAD_REQUEST,
+            "/problems/malformed-json",
+            "The body is not valid JSON",
+            format!("line {}, column {}: {e}", e.line(), e.column()),
+        )
+        .with(
+            "$",
+            "json",
+            format!("not valid JSON at line {}, column {}", e.line(), e.column()),
+        )
+    }
+
+    pub fn unsupported_media_type(got: &str) -> Self {
+        Problem::new(
+            StatusCode::UNSUPPORTED_MEDIA_TYPE,
+            "/problems/unsupported-media-type",
+            "Send JSON",
+            format!("Content-Type must be application/json, got \"{got}\""),
+        )
+    }
+
+    pub fn too_large(limit: usize) -> Self {
+        Problem::new(
+            StatusCode::PAYLOAD_TOO_LARGE,
+            "/problems/body-too-large",
+            "The body is too large",
+            format!("bodies on this route are limited to {limit} bytes"),
+        )
+    }
+
+    pub fn batch_too_large(items: usize, limit: usize) -> Self {
+        Problem::new(
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "/problems/batch-too-large",
+            "Too many items in one batch",
+            format!("{items} items sent; at most {limit} per batch"),
+        )
+        .with("items", "max_items", format!("at most {limit} items"))
+    }
+
+    pub fn body_timeout(ms: u64) -> Self {
+        Problem::new(
+            StatusCode::REQUEST_TIMEOUT,
+            "/problems/body-timeout",
+            "The body arrived too slowly",
+            format!("the whole body must arrive within {ms} ms"),
+        )
+    }
+
+    pub fn unknown_model(what: &str) -> Self {
+        Problem::new(
+            StatusCode::NOT_FOUND,
+            "/problems/unknown-model",
+            "No such model is loaded",
+            format!("{what} is not loaded; GET /v1/models lists what is"),
+        )
+        .with("model", "unknown_model", format!("{what} is not loaded"))
+    }
+
+    pub fn not_found(path: &str) -> Self {
+        Problem::new(
+            StatusCode::NOT_FOUND,
+            "/problems/not-found",
+            "No such route",
+            format!("{path} is not a route of this service; see /openapi.json"),
+        )
+    }
+
+    pub fn unauthorized() -> Self {
+        Problem::new(
+            StatusCode::UNAUTHORIZED,
+            "/problems/unauthorized",
+            "An API key is required",
+            "send Authorization: Bearer <key>",
+        )
+    }
+
+    pub fn forbidden(role: &str, needed: &str) -> Self {
+        Problem::new(
+            StatusCode::FORBIDDEN,
+            "/problems/forbidden",
+            "This key may not do that",
+            format!("a {role} key cannot use this route; it needs {needed}"),
+        )
+    }
+
+    pub fn reload_failed(detail: String) -> Self {
+        Problem::new(
+            StatusCode::CONFLICT,
+            "/problems/reload-failed",
+            "The models on disk do not load; the current models stay in service",
+            detail,
+        )
+    }
+
+    pub fn status(&self) -> StatusCode {
+        StatusCode::from_u16(self.status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR)
+    }
+
+    pub fn response(&self) -> HttpResponse {
+        let mut r = HttpResponse::build(self.status());
+        if self.status == 401 {
+            r.insert_header(("WWW-Authenticate", "Bearer"));
+        }
+        r.content_type("application/problem+json")
+            .body(serde_json::to_string(self).unwrap_or_default())
+    }
+}
+
+impl std::fmt::Display for Problem {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{} ({}): {}", self.title, self.status, self.detail)
+    }
+}
+
+impl actix_web::ResponseError for Problem {
+    fn status_code(&self) -> StatusCode {
+        self.status()
+    }
+    fn error_response(&self) -> HttpResponse {
+        self.response()
+    }
+}

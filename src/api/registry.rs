@@ -1,0 +1,82 @@
+//! The loaded models: one champion and any number of named others, swapped atomically on
+//! reload (requests in flight keep the set they started with).
+
+use crate::decide::ModelSelector;
+use crate::LoadedModel;
+use std::path::PathBuf;
+use std::sync::{Arc, RwLock};
+
+/// An immutable set of loaded models.
+#[derive(Debug)]
+pub struct ModelSet {
+    /// The first file given; requests without a model selector use it.
+    pub champion: Arc<LoadedModel>,
+    pub models: Vec<Arc<LoadedModel>>,
+}
+
+impl ModelSet {
+    /// Loads and validates every file; any failure names the file and the JSON path.
+    pub fn load(paths: &[PathBuf]) -> Result<ModelSet, String> {
+        if paths.is_empty() {
+            return Err("no model files given".into());
+        }
+        let mut models: Vec<Arc<LoadedModel>> = Vec::new();
+        for p in paths {
+            let m = LoadedModel::from_path(p).map_err(|e| format!("model {}: {e}", p.display()))?;
+            if models.iter().any(|x| {
+                x.identity.model_id == m.identity.model_id
+                    && x.identity.version == m.identity.version
+            }) {
+                return Err(format!(
+                    "model {}: {} version {} is loaded twice",
+                    p.display(),
+                    m.identity.model_id,
+                    m.identity.version
+                ));
+            }
+            models.push(Arc::new(m));
+        }
+        Ok(ModelSet {
+            champion: models[0].clone(),
+            models,
+        })
+    }
+
+    /// The champion, or the newest-listed model matching the selector.
+    pub fn select(&self, selector: Option<&ModelSelector>) -> Option<Arc<LoadedModel>> {
+        match selector {
+            None => Some(self.champion.clone()),
+            Some(s) => self.models.iter().find(|m| s.matches(m)).cloned(),
+        }
+    }
+}
+
+/// The current set and the files it came from.
+pub struct Registry {
+    paths: Vec<PathBuf>,
+    current: RwLock<Arc<ModelSet>>,
+}
+
+impl Registry {
+    pub fn new(paths: Vec<PathBuf>) -> Result<Registry, String> {
+        let set = ModelSet::load(&paths)?;
+        Ok(Registry {
+            paths,
+            current: RwLock::new(Arc::new(set)),
+        })
+    }
+
+    pub fn current(&self) -> Arc<ModelSet> {
+        self.current
+            .read()
+            .unwrap_or_else(|e| e.into_inner())
+            .clone()
+    }
+
+    /// Loads the files again; on success swaps the new set in, on failure keeps the old one.
+    pub fn reload(&self) -> Result<Arc<ModelSet>, String> {
+        let set = Arc::new(ModelSet::load(&self.paths)?);
+        *self.current.write().unwrap_or_else(|e| e.into_inner()) = set.clone();
+        Ok(set)
+    }
+}

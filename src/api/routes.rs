@@ -1,0 +1,401 @@
+//! Route handlers: thin shells over the library. Each checks the key's role, reads the body
+//! within its limits, and calls the same functions as the command line.
+
+use super::auth::Role;
+use super::body::read_json;
+use super::problem::Problem;
+use super::State;
+use crate::decide::{decide_envelope, Decision, Envelope};
+use crate::features::{FieldType, Missing};
+use crate::LoadedModel;
+use actix_web::{web, HttpRequest, HttpResponse};
+use serde::Serialize;
+use serde_json::Value;
+use utoipa::ToSchema;
+
+const DECIDERS: &[Role] = &[Role::Scoring];
+const READERS: &[Role] = &[Role::Scoring, Role::Review];
+const ADMINS: &[Role] = &[Role::Admin];
+
+fn authorize(state: &State, req: &HttpRequest, allowed: &[Role]) -> Result<(), Problem> {
+    let header = req
+        .headers()
+        .get("authorization")
+        .and_then(|v| v.to_str().ok());
+    state.auth.check(header, allowed).map(|_| ())
+}
+
+fn json<T: Serialize>(value: &T) -> HttpResponse {
+    HttpResponse::Ok()
+        .content_type("application/json")
+        .body(serde_json::to_string(value).unwrap_or_default())
+}
+
+/// A decision request (documentation of the body; the server reads it as JSON and checks every
+/// field against the model's schema).
+#[derive(ToSchema)]
+#[allow(dead_code)]
+pub struct DecisionRequest {
+    /// The lender's id for the application, 1-128 characters.
+    #[schema(example = "FH-2026-000101")]
+    application_id: String,
+    /// Optional key for safe retries (recorded with the decision once records exist).
+    idempotency_key: Option<String>,
+    /// Optional model selector; the champion when absent.
+    model: Option<ModelSelectorDoc>,
+    /// Applicant fields keyed by the model's field names (GET /v1/models/{id} lists them).
+    #[schema(value_type = Object, example = json!({"requested_amount": 12000, "annual_income": 85000, "debt_to_income": 14.5, "revolving_utilization": 22, "months_since_oldest_account": 190, "delinquencies_24m": 0, "inquiries_6m": 1, "months_with_employer": 72, "housing": "mortgage", "loan_purpose": "home_improvement"}))]
+    applicant: Value,
+}
+
+#[derive(ToSchema)]
+#[allow(dead_code)]
+pub struct ModelSelectorDoc {
+    id: String,
+    version: Option<String>,
+}
+
+fn decide_value(state: &State, request: &Value) -> Result<(Decision, &'static str), Problem> {
+    let envelope = Envelope::parse(request).map_err(Problem::invalid)?;
+    let set = state.registry.current();
+    let model = set.select(envelope.model.as_ref()).ok_or_else(|| {
+        Problem::unknown_model(
+            &envelope
+                .model
+                .as_ref()
+                .map(|m| m.describe())
+                .unwrap_or_default(),
+        )
+    })?;
+    let decision = decide_envelope(&model, &envelope).map_err(Problem::invalid)?;
+    let outcome = decision.outcome.name();
+    state
+        .metrics
+        .observe_decision(&model.identity.model_id, &model.identity.version, outcome);
+    Ok((decision, outcome))
+}
+
+/// Decide one application.
+#[utoipa::path(post, path = "/v1/decisions", tag = "decisions", request_body = DecisionRequest,
+    responses(
+        (status = 200, description = "The decision: probability, score, outcome, reasons and exact contributions", body = Decision),
+        (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "The key's role may not decide", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "The selected model is not loaded", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "The body arrived too slowly", body = Problem, content_type = "application/problem+json"),
+        (status = 413, description = "Body larger than the limit", body = Problem, content_type = "application/problem+json"),
+        (status = 415, description = "Content-Type is not application/json", body = Problem, content_type = "application/problem+json"),
+        (status = 422, description = "Fields break the model's schema: each is named with its rule", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("api_key" = [])))]
+pub async fn post_decision(
+    state: web::Data<State>,
+    req: HttpRequest,
+    payload: web::Payload,
+) -> Result<HttpResponse, Problem> {
+    authorize(&state, &req, DECIDERS)?;
+    let request = read_json(
+        &req,
+        payload,
+        state.limits.max_body_bytes,
+        state.limits.body_timeout,
+    )
+    .await?;
+    let (decision, _) = decide_value(&state, &request)?;
+    Ok(json(&decision))
+}
+
+#[derive(ToSchema)]
+#[allow(dead_code)]
+pub struct BatchRequestDoc {
+    /// Decision requests, each as for POST /v1/decisions.
+    items: Vec<DecisionRequest>,
+}
+
+/// One item's result: a decision or the problem with that item alone.
+#[derive(Serialize, ToSchema)]
+pub struct BatchItem {
+    pub index: usize,
+    pub status: u16,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub decision: Option<Decision>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub problem: Option<Problem>,
+}
+
+#[derive(Serialize, ToSchema)]
+pub struct BatchResponse {
+    pub results: Vec<BatchItem>,
+    pub approved: usize,
+    pub referred: usize,
+    pub declined: usize,
+    pub failed: usize,
+}
+
+/// Decide many applications; one bad item never fails the others.
+#[utoipa::path(post, path = "/v1/decisions/batch", tag = "decisions", request_body = BatchRequestDoc,
+    responses(
+        (status = 200, description = "Per-item decisions and per-item problems", body = BatchResponse),
+        (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "The key's role may not decide", body = Problem, content_type = "application/problem+json"),
+        (status = 413, description = "Body larger than the batch limit", body = Problem, content_type = "application/problem+json"),
+        (status = 415, description = "Content-Type is not application/json", body = Problem, content_type = "application/problem+json"),
+        (status = 422, description = "Not a batch, or more items than allowed", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("api_key" = [])))]
+pub async fn post_batch(
+    state: web::Data<State>,
+    req: HttpRequest,
+    payload: web::Payload,
+) -> Result<HttpResponse, Problem> {
+    authorize(&state, &req, DECIDERS)?;
+    let body = read_json(
+        &req,
+        payload,
+        state.limits.max_batch_body_bytes,
+        state.limits.body_timeout,
+    )
+    .await?;
+    let items = match body.get("items") {
+        Some(Value::Array(items)) if body.as_object().is_some_and(|o| o.len() == 1) => items,
+        _ => {
+            return Err(Problem::invalid(crate::InputError::one(
+                "items",
+                "required",
+                "a batch is {\"items\": [request, ...]} and nothing else",
+            )));
+        }
+    };
+    if items.len() > state.limits.max_batch_items {
+        return Err(Problem::batch_too_large(
+            items.len(),
+            state.limits.max_batch_items,
+        ));
+    }
+    let mut response = BatchResponse {
+        results: Vec::with_capacity(items.len()),
+        approved: 0,
+        referred: 0,
+        declined: 0,
+        failed: 0,
+    };
+    for (index, item) in items.iter().enumerate() {
+        response.results.push(match decide_value(&state, item) {
+            Ok((decision, outcome)) => {
+                match outcome {
+                    "approve" => response.approved += 1,
+                    "refer" => response.referred += 1,
+                    _ => response.declined += 1,
+                }
+                BatchItem {
+                    index,
+                    status: 200,
+                    decision: Some(decision),
+                    problem: None,
+                }
+            }
+            Err(problem) => {
+                response.failed += 1;
+                BatchItem {
+                    index,
+                    status: problem.status,
+                    decision: None,
+                    problem: Some(problem),
+                }
+            }
+        });
+    }
+    Ok(json(&response))
+}
+
+/// What a loaded model is: identity, digest, fields, cutoffs and reasons.
+#[derive(Serialize, ToSchema)]
+pub struct ModelSummary {
+    pub id: String,
+    pub version: String,
+    pub sha256: String,
+    pub description: String,
+    pub champion: bool,
+    /// `logistic` or `tree_ensemble`.
+    pub kind: &'static str,
+    pub explanation: crate::explain::Method,
+    pub reference: crate::artifact::spec::Population,
+    pub approve_below: f64,
+    pub decline_at_or_above: f64,
+    pub fields: Vec<FieldSummary>,
+    pub reasons: Vec<ReasonSummary>,
+}
+
+#[derive(Serialize, ToSchema)]
+pub struct FieldSummary {
+    pub name: String,
+    pub kind: &'static str,
+    pub unit: String,
+    pub min: Option<f64>,
+    pub max: Option<f64>,
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub levels: Vec<String>,
+    /// `required`, `impute`, or `tree_default`.
+    pub missing: &'static str,
+    pub scored: bool,
+}
+
+#[derive(Serialize, ToSchema)]
+pub struct ReasonSummary {
+    pub code: String,
+    pub text: String,
+}
+
+fn summary(m: &LoadedModel, champion: bool) -> ModelSummary {
+    ModelSummary {
+        id: m.identity.model_id.clone(),
+        version: m.identity.version.clone(),
+        sha256: m.sha256.clone(),
+        description: m.identity.description.clone(),
+        champion,
+        kind: match m.scorer {
+            crate::model::Scorer::Logistic(_) => "logistic",
+            crate::model::Scorer::Trees(_) => "tree_ensemble",
+        },
+        explanation: m.explainer.method(),
+        reference: m.reference.population,
+        approve_below: m.policy.approve_below,
+        decline_at_or_above: m.policy.decline_at_or_above,
+        fields: m
+            .schema
+            .fields
+            .iter()
+            .map(|f| FieldSummary {
+                name: f.name.clone(),
+                kind: f.ty.name(),
+                unit: f.unit.clone(),
+                min: f.min,
+                max: f.max,
+                levels: match &f.ty {
+                    FieldType::Category { levels, .. } => levels.clone(),
+                    _ => Vec::new(),
+                },
+                missing: match f.missing {
+                    Missing::Reject => "required",
+                    Missing::Impute(_) => "impute",
+                    Missing::TreeDefault => "tree_default",
+                },
+                scored: f.scored,
+            })
+            .collect(),
+        reasons: m
+            .reasons
+            .reasons
+            .iter()
+            .map(|r| ReasonSummary {
+                code: r.code.clone(),
+                text: r.text.clone(),
+            })
+            .collect(),
+    }
+}
+
+/// The loaded models.
+#[utoipa::path(get, path = "/v1/models", tag = "models",
+    responses((status = 200, body = Vec<ModelSummary>), (status = 401, body = Problem, content_type = "application/problem+json")),
+    security(("api_key" = [])))]
+pub async fn get_models(
+    state: web::Data<State>,
+    req: HttpRequest,
+) -> Result<HttpResponse, Problem> {
+    authorize(&state, &req, READERS)?;
+    let set = state.registry.current();
+    let list: Vec<ModelSummary> = set
+        .models
+        .iter()
+        .map(|m| summary(m, std::sync::Arc::ptr_eq(m, &set.champion)))
+        .collect();
+    Ok(json(&list))
+}
+
+/// One loaded model by id (the newest-listed version when several are loaded).
+#[utoipa::path(get, path = "/v1/models/{id}", tag = "models", params(("id" = String, Path, description = "model id")),
+    responses((status = 200, body = ModelSummary), (status = 404, body = Problem, content_type = "application/problem+json")),
+    security(("api_key" = [])))]
+pub async fn get_model(
+    state: web::Data<State>,
+    req: HttpRequest,
+    id: web::Path<String>,
+) -> Result<HttpResponse, Problem> {
+    authorize(&state, &req, READERS)?;
+    let set = state.registry.current();
+    let m = set
+        .models
+        .iter()
+        .find(|m| m.identity.model_id == *id)
+        .ok_or_else(|| Problem::unknown_model(&id))?;
+    Ok(json(&summary(m, std::sync::Arc::ptr_eq(m, &set.champion))))
+}
+
+#[derive(Serialize, ToSchema)]
+pub struct Health {
+    pub status: &'static str,
+    pub models: usize,
+}
+
+/// Liveness: the process answers.
+#[utoipa::path(get, path = "/health/live", tag = "operations", responses((status = 200, body = Health)))]
+pub async fn live(state: web::Data<State>) -> HttpResponse {
+    json(&Health {
+        status: "live",
+        models: state.registry.current().models.len(),
+    })
+}
+
+/// Readiness: models are loaded and validated (and, once records exist, the store answers).
+#[utoipa::path(get, path = "/health/ready", tag = "operations", responses((status = 200, body = Health)))]
+pub async fn ready(state: web::Data<State>) -> HttpResponse {
+    json(&Health {
+        status: "ready",
+        models: state.registry.current().models.len(),
+    })
+}
+
+/// Counters and latency histograms, Prometheus text format.
+#[utoipa::path(get, path = "/metrics", tag = "operations", responses((status = 200, content_type = "text/plain", body = String)))]
+pub async fn metrics(state: web::Data<State>) -> HttpResponse {
+    HttpResponse::Ok()
+        .content_type("text/plain; version=0.0.4")
+        .body(state.metrics.render())
+}
+
+#[derive(Serialize, ToSchema)]
+pub struct Reloaded {
+    pub models: Vec<ModelSummary>,
+}
+
+/// Load the model files again and swap them in atomically (admin only). Requests in flight finish
+/// on the models they started with; if any file fails, nothing changes.
+#[utoipa::path(post, path = "/v1/admin/reload", tag = "operations",
+    responses((status = 200, body = Reloaded), (status = 403, body = Problem, content_type = "application/problem+json"),
+        (status = 409, description = "A model file does not load; the old models stay", body = Problem, content_type = "application/problem+json")),
+    security(("api_key" = [])))]
+pub async fn reload(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
+    authorize(&state, &req, ADMINS)?;
+    let set = state.registry.reload().map_err(Problem::reload_failed)?;
+    tracing::info!(models = set.models.len(), "models reloaded");
+    Ok(json(&Reloaded {
+        models: set
+            .models
+            .iter()
+            .map(|m| summary(m, std::sync::Arc::ptr_eq(m, &set.champion)))
+            .collect(),
+    }))
+}
+
+pub async fn openapi() -> HttpResponse {
+    HttpResponse::Ok()
+        .content_type("application/json")
+        .body(super::openapi::document())
+}
+
+pub async fn not_found(req: HttpRequest) -> HttpResponse {
+    Problem::not_found(req.path()).response()
+}

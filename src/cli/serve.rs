@@ -1,0 +1,155 @@
+//! `plumbline serve` and `plumbline hash-key`.
+
+use super::{EXIT_BAD_INPUT, EXIT_FAILURE};
+use crate::api::{Auth, Keys, Limits, ServeConfig};
+use clap::Args;
+use std::io::Read;
+use std::path::PathBuf;
+use std::time::Duration;
+
+#[derive(Debug, Args)]
+pub struct ServeArgs {
+    /// Address to listen on.
+    #[arg(long, env = "PLUMBLINE_ADDR", default_value = "127.0.0.1:8080")]
+    addr: std::net::SocketAddr,
+    /// Model artifact; repeat for several. The first is the champion.
+    #[arg(
+        long = "model",
+        env = "PLUMBLINE_MODELS",
+        value_delimiter = ',',
+        default_value = "models/fernhill-logistic.json"
+    )]
+    models: Vec<PathBuf>,
+    /// API key file: `[{"name": ..., "role": "scoring|review|admin", "sha256": ...}]`
+    /// (see `plumbline hash-key`). PLUMBLINE_KEYS may hold the same JSON instead.
+    #[arg(long, env = "PLUMBLINE_KEYS_FILE")]
+    keys: Option<PathBuf>,
+    /// Turn authentication off. For local trials only; announced loudly at start.
+    #[arg(long)]
+    no_auth: bool,
+    /// Largest body of POST /v1/decisions, in bytes.
+    #[arg(long, default_value_t = 64 * 1024)]
+    max_body_bytes: usize,
+    /// Largest body of POST /v1/decisions/batch, in bytes.
+    #[arg(long, default_value_t = 8 * 1024 * 1024)]
+    max_batch_body_bytes: usize,
+    /// Most items in one batch.
+    #[arg(long, default_value_t = 1_000)]
+    max_batch_items: usize,
+    /// Time for a request body to arrive, in milliseconds.
+    #[arg(long, default_value_t = 5_000)]
+    body_timeout_ms: u64,
+    /// Worker threads (default: one per core).
+    #[arg(long)]
+    workers: Option<usize>,
+}
+
+fn keys(args: &ServeArgs) -> Result<Auth, String> {
+    if args.no_auth {
+        return Ok(Auth(None));
+    }
+    let text = match (&args.keys, std::env::var("PLUMBLINE_KEYS")) {
+        (Some(path), _) => std::fs::read_to_string(path)
+            .map_err(|e| format!("cannot read key file {}: {e}", path.display()))?,
+        (None, Ok(text)) => text,
+        (None, Err(_)) => {
+            return Err("no API keys: pass --keys FILE (or set PLUMBLINE_KEYS), or --no-auth for a local trial".into());
+        }
+    };
+    let keys = Keys::from_json(&text)?;
+    if keys.is_empty() {
+        return Err("the key file holds no keys".into());
+    }
+    Ok(Auth(Some(keys)))
+}
+
+fn check_limits(args: &ServeArgs) -> Result<(), String> {
+    let rules = [
+        (
+            args.max_body_bytes >= 1024 && args.max_body_bytes <= 16 << 20,
+            "--max-body-bytes must be 1 KiB to 16 MiB",
+        ),
+        (
+            args.max_batch_body_bytes >= 1024 && args.max_batch_body_bytes <= 256 << 20,
+            "--max-batch-body-bytes must be 1 KiB to 256 MiB",
+        ),
+        (
+            (1..=100_000).contains(&args.max_batch_items),
+            "--max-batch-items must be 1 to 100000",
+        ),
+        (
+            (10..=600_000).contains(&args.body_timeout_ms),
+            "--body-timeout-ms must be 10 to 600000",
+        ),
+        (
+            args.workers.is_none_or(|w| (1..=256).contains(&w)),
+            "--workers must be 1 to 256",
+        ),
+    ];
+    match rules.iter().find(|(ok, _)| !ok) {
+        Some((_, msg)) => Err(msg.to_string()),
+        None => Ok(()),
+    }
+}
+
+pub fn run(args: ServeArgs) -> i32 {
+    let filter = tracing_subscriber::EnvFilter::try_from_env("PLUMBLINE_LOG")
+        .unwrap_or_else(|_| "info".into());
+    let _ = tracing_subscriber::fmt()
+        .json()
+        .with_env_filter(filter)
+        .with_writer(std::io::stderr)
+        .try_init();
+    if let Err(e) = check_limits(&args) {
+        eprintln!("error: {e}");
+        return EXIT_BAD_INPUT;
+    }
+    let auth = match keys(&args) {
+        Ok(a) => a,
+        Err(e) => {
+            eprintln!("error: {e}");
+            return EXIT_BAD_INPUT;
+        }
+    };
+    let config = ServeConfig {
+        addr: args.addr,
+        models: args.models,
+        auth,
+        limits: Limits {
+            max_body_bytes: args.max_body_bytes,
+            max_batch_body_bytes: args.max_batch_body_bytes,
+            max_batch_items: args.max_batch_items,
+            body_timeout: Duration::from_millis(args.body_timeout_ms),
+            ..Limits::default()
+        },
+        workers: args
+            .workers
+            .unwrap_or_else(|| std::thread::available_parallelism().map_or(2, |n| n.get())),
+    };
+    match crate::api::serve(config) {
+        Ok(()) => 0,
+        Err(e) => {
+            eprintln!("error: {e}");
+            EXIT_BAD_INPUT
+        }
+    }
+}
+
+pub fn hash_key(name: &str, role: &str) -> i32 {
+    if !matches!(role, "scoring" | "review" | "admin") {
+        eprintln!("error: --role must be scoring, review or admin");
+        return EXIT_BAD_INPUT;
+    }
+    let mut key = String::new();
+    if std::io::stdin().read_to_string(&mut key).is_err() {
+        return EXIT_FAILURE;
+    }
+    let key = key.trim();
+    if key.len() < 16 {
+        eprintln!("error: a key must be at least 16 characters");
+        return EXIT_BAD_INPUT;
+    }
+    let entry = serde_json::json!({"name": name, "role": role, "sha256": crate::api::auth::key_digest_hex(key)});
+    println!("{entry}");
+    0
+}
