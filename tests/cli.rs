@@ -31,14 +31,14 @@ fn score_prints_the_library_decision_bytes() {
             "score",
             "--model",
             MODEL,
-            "demo-requests/typical-approve.json",
+            "demo-requests/applications/typical-approve.json",
         ],
         "",
     );
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
     let model = plumbline::LoadedModel::from_path(std::path::Path::new(MODEL)).unwrap();
     let req: serde_json::Value = serde_json::from_str(
-        &std::fs::read_to_string("demo-requests/typical-approve.json").unwrap(),
+        &std::fs::read_to_string("demo-requests/applications/typical-approve.json").unwrap(),
     )
     .unwrap();
     let want = serde_json::to_string(&plumbline::decide_request(&model, &req).unwrap()).unwrap();
@@ -47,7 +47,7 @@ fn score_prints_the_library_decision_bytes() {
 
 #[test]
 fn json_lines_keep_good_requests_and_name_bad_ones() {
-    let good = std::fs::read_to_string("demo-requests/typical-approve.json").unwrap();
+    let good = std::fs::read_to_string("demo-requests/applications/typical-approve.json").unwrap();
     let bad = good.replace("\"housing\": \"mortgage\"", "\"housing\": \"boat\"");
     let input = format!("{}\n{}\n{}\n", good.trim(), bad.trim(), good.trim());
     let out = plumbline(&["score", "--model", MODEL, "-"], &input);

@@ -1,6 +1,8 @@
 //! Shared test helpers: a seeded generator of random tree ensembles and rows.
 #![allow(dead_code)]
 
+pub mod server;
+
 use plumbline::artifact::spec::Aggregation;
 use plumbline::model::{forest::LEAF, Ensemble, Node, Tree};
 
