@@ -20,7 +20,8 @@ fn recorded_pairs_replay_exactly() {
     assert!(files.len() >= 25, "at least 25 recorded pairs");
     let mut statuses = std::collections::BTreeSet::new();
     for path in files {
-        let mut pair: Value = serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
+        let mut pair: Value =
+            serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
         let req = &pair["request"];
         let body = match (&req["body"], &req["body_text"]) {
             (Value::Null, Value::String(text)) => Some(text.clone()),

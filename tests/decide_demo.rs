@@ -5,7 +5,6 @@ use plumbline::{decide_request, LoadedModel};
 use serde_json::{json, Value};
 use std::path::Path;
 
-
 fn demo() -> LoadedModel {
     LoadedModel::from_path(Path::new("models/fernhill-logistic.json")).expect("demo model loads")
 }

@@ -16,11 +16,21 @@ pub struct TestServer {
 impl TestServer {
     /// The demo model with the demo keys, default limits.
     pub fn demo() -> Self {
-        Self::start(vec![PathBuf::from("models/fernhill-logistic.json")], demo_auth(), Limits::default())
+        Self::start(
+            vec![PathBuf::from("models/fernhill-logistic.json")],
+            demo_auth(),
+            Limits::default(),
+        )
     }
 
     pub fn start(models: Vec<PathBuf>, auth: Auth, limits: Limits) -> Self {
-        let config = ServeConfig { addr: "127.0.0.1:0".parse().unwrap(), models, auth, limits, workers: 2 };
+        let config = ServeConfig {
+            addr: "127.0.0.1:0".parse().unwrap(),
+            models,
+            auth,
+            limits,
+            workers: 2,
+        };
         let (tx, rx) = std::sync::mpsc::channel();
         let thread = std::thread::spawn(move || {
             let system = actix_web::rt::System::new();
@@ -31,7 +41,11 @@ impl TestServer {
             });
         });
         let (addr, handle) = rx.recv().expect("server reports its address");
-        TestServer { base: format!("http://{addr}"), handle, thread: Some(thread) }
+        TestServer {
+            base: format!("http://{addr}"),
+            handle,
+            thread: Some(thread),
+        }
     }
 
     pub fn url(&self, path: &str) -> String {
@@ -60,7 +74,9 @@ impl Drop for TestServer {
 }
 
 pub fn demo_auth() -> Auth {
-    Auth(Some(Keys::from_json(&std::fs::read_to_string("models/demo-keys.json").unwrap()).unwrap()))
+    Auth(Some(
+        Keys::from_json(&std::fs::read_to_string("models/demo-keys.json").unwrap()).unwrap(),
+    ))
 }
 
 pub fn key_for(role: Option<&str>) -> Option<&'static str> {
@@ -73,7 +89,13 @@ pub fn key_for(role: Option<&str>) -> Option<&'static str> {
 }
 
 /// Sends a request; returns (status, content type, body text). Never fails on 4xx/5xx.
-pub fn send(method: &str, url: &str, key: Option<&str>, content_type: Option<&str>, body: Option<&str>) -> (u16, String, String) {
+pub fn send(
+    method: &str,
+    url: &str,
+    key: Option<&str>,
+    content_type: Option<&str>,
+    body: Option<&str>,
+) -> (u16, String, String) {
     let agent = ureq::AgentBuilder::new().build();
     let mut req = agent.request(method, url);
     if let Some(k) = key {

@@ -1,0 +1,385 @@
+//! The service over real HTTP on a loopback port: same bytes as the command line, roles, limits,
+//! models, probes, metrics, OpenAPI, reload under load, graceful shutdown with requests in flight.
+
+mod common;
+
+use common::server::{send, TestServer, ADMIN, REVIEW, SCORING};
+use plumbline::api::{Auth, Limits};
+use serde_json::{json, Value};
+use std::path::PathBuf;
+
+const JSON: Option<&str> = Some("application/json");
+
+fn demo_request() -> String {
+    std::fs::read_to_string("demo-requests/applications/thin-file-decline.json").unwrap()
+}
+
+#[test]
+fn decision_bytes_equal_the_command_line() {
+    let server = TestServer::demo();
+    let (status, ct, body) = send(
+        "POST",
+        &server.url("/v1/decisions"),
+        Some(SCORING),
+        JSON,
+        Some(&demo_request()),
+    );
+    assert_eq!((status, ct.as_str()), (200, "application/json"));
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args([
+            "score",
+            "--model",
+            "models/fernhill-logistic.json",
+            "demo-requests/applications/thin-file-decline.json",
+        ])
+        .output()
+        .unwrap();
+    assert_eq!(String::from_utf8(out.stdout).unwrap(), format!("{body}\n"));
+}
+
+#[test]
+fn roles_decide_read_and_reload() {
+    let server = TestServer::demo();
+    let decide = |key| {
+        send(
+            "POST",
+            &server.url("/v1/decisions"),
+            key,
+            JSON,
+            Some(&demo_request()),
+        )
+        .0
+    };
+    assert_eq!(decide(Some(SCORING)), 200);
+    assert_eq!(decide(Some(ADMIN)), 200, "admin may do everything");
+    assert_eq!(decide(Some(REVIEW)), 403);
+    assert_eq!(decide(Some("not-a-key-at-all")), 401);
+    assert_eq!(decide(None), 401);
+    assert_eq!(
+        send("GET", &server.url("/v1/models"), Some(REVIEW), None, None).0,
+        200
+    );
+    assert_eq!(
+        send(
+            "POST",
+            &server.url("/v1/admin/reload"),
+            Some(SCORING),
+            None,
+            None
+        )
+        .0,
+        403
+    );
+    assert_eq!(
+        send(
+            "POST",
+            &server.url("/v1/admin/reload"),
+            Some(ADMIN),
+            None,
+            None
+        )
+        .0,
+        200
+    );
+    // Probes, metrics and the document need no key.
+    for path in ["/health/live", "/health/ready", "/metrics", "/openapi.json"] {
+        assert_eq!(
+            send("GET", &server.url(path), None, None, None).0,
+            200,
+            "{path}"
+        );
+    }
+}
+
+#[test]
+fn auth_off_only_when_asked() {
+    let server = TestServer::start(
+        vec![PathBuf::from("models/fernhill-logistic.json")],
+        Auth(None),
+        Limits::default(),
+    );
+    assert_eq!(
+        send(
+            "POST",
+            &server.url("/v1/decisions"),
+            None,
+            JSON,
+            Some(&demo_request())
+        )
+        .0,
+        200
+    );
+}
+
+#[test]
+fn models_and_probes_describe_what_is_loaded() {
+    let server = TestServer::demo();
+    let (status, _, body) = send(
+        "GET",
+        &server.url("/v1/models/fernhill-personal-logistic"),
+        Some(SCORING),
+        None,
+        None,
+    );
+    assert_eq!(status, 200);
+    let m: Value = serde_json::from_str(&body).unwrap();
+    let loaded =
+        plumbline::LoadedModel::from_path(std::path::Path::new("models/fernhill-logistic.json"))
+            .unwrap();
+    assert_eq!(m["sha256"], loaded.sha256.as_str());
+    assert_eq!(m["champion"], true);
+    assert_eq!(m["approve_below"], 0.08);
+    assert_eq!(m["fields"].as_array().unwrap().len(), 10);
+    assert_eq!(
+        send(
+            "GET",
+            &server.url("/v1/models/nope"),
+            Some(SCORING),
+            None,
+            None
+        )
+        .0,
+        404
+    );
+    let (_, _, ready) = send("GET", &server.url("/health/ready"), None, None, None);
+    assert_eq!(
+        serde_json::from_str::<Value>(&ready).unwrap(),
+        json!({"status": "ready", "models": 1})
+    );
+}
+
+#[test]
+fn metrics_count_requests_and_decisions() {
+    let server = TestServer::demo();
+    for _ in 0..3 {
+        send(
+            "POST",
+            &server.url("/v1/decisions"),
+            Some(SCORING),
+            JSON,
+            Some(&demo_request()),
+        );
+    }
+    send(
+        "POST",
+        &server.url("/v1/decisions"),
+        Some(SCORING),
+        JSON,
+        Some("{"),
+    );
+    let (_, ct, text) = send("GET", &server.url("/metrics"), None, None, None);
+    assert!(ct.starts_with("text/plain"));
+    assert!(
+        text.contains(
+            r#"plumbline_http_requests_total{route="/v1/decisions",method="POST",status="200"} 3"#
+        ),
+        "{text}"
+    );
+    assert!(text.contains(
+        r#"plumbline_http_requests_total{route="/v1/decisions",method="POST",status="400"} 1"#
+    ));
+    assert!(text.contains(r#"plumbline_decisions_total{model="fernhill-personal-logistic",version="0.1.0",outcome="decline"} 3"#));
+    assert!(text.contains(r#"plumbline_http_request_duration_seconds_bucket{route="/v1/decisions",method="POST",status="200",le="+Inf"} 3"#));
+}
+
+#[test]
+fn limits_are_enforced() {
+    let limits = Limits {
+        max_batch_items: 2,
+        max_body_bytes: 2048,
+        ..Limits::default()
+    };
+    let server = TestServer::start(
+        vec![PathBuf::from("models/fernhill-logistic.json")],
+        common::server::demo_auth(),
+        limits,
+    );
+    let (status, ct, _) = send(
+        "POST",
+        &server.url("/v1/decisions"),
+        Some(SCORING),
+        JSON,
+        Some(&" ".repeat(4096)),
+    );
+    assert_eq!((status, ct.as_str()), (413, "application/problem+json"));
+    let item: Value = serde_json::from_str(&demo_request()).unwrap();
+    let batch = json!({"items": [item, item, item]}).to_string();
+    let (status, _, body) = send(
+        "POST",
+        &server.url("/v1/decisions/batch"),
+        Some(SCORING),
+        JSON,
+        Some(&batch),
+    );
+    assert_eq!(status, 422);
+    assert!(body.contains("at most 2 items"));
+    let (status, _, _) = send(
+        "POST",
+        &server.url("/v1/decisions/batch"),
+        Some(SCORING),
+        JSON,
+        Some(r#"[1, 2]"#),
+    );
+    assert_eq!(status, 422, "a batch is an object with items");
+}
+
+#[test]
+fn checked_in_openapi_document_is_current() {
+    let generated = plumbline::api::openapi::document();
+    if std::env::var_os("PLUMBLINE_BLESS").is_some() {
+        std::fs::write("openapi/plumbline.json", &generated).unwrap();
+    }
+    let checked_in =
+        std::fs::read_to_string("openapi/plumbline.json").expect("openapi/plumbline.json");
+    assert!(
+        generated == checked_in,
+        "openapi/plumbline.json is stale: run PLUMBLINE_BLESS=1 cargo test --test api"
+    );
+    let doc: Value = serde_json::from_str(&generated).unwrap();
+    assert!(doc["openapi"].as_str().unwrap().starts_with("3.1"));
+    for path in [
+        "/v1/decisions",
+        "/v1/decisions/batch",
+        "/v1/models",
+        "/v1/models/{id}",
+        "/v1/admin/reload",
+        "/health/live",
+        "/health/ready",
+        "/metrics",
+    ] {
+        assert!(doc["paths"][path].is_object(), "{path} is not documented");
+    }
+    assert!(doc["components"]["schemas"]["Problem"].is_object());
+    assert!(doc["info"]["description"]
+        .as_str()
+        .unwrap()
+        .contains("decision support"));
+}
+
+#[test]
+fn reload_under_load_drops_nothing() {
+    let server = TestServer::demo();
+    let url = server.url("/v1/decisions");
+    let body = demo_request();
+    std::thread::scope(|s| {
+        let clients: Vec<_> = (0..4)
+            .map(|_| {
+                s.spawn(|| {
+                    (0..100)
+                        .map(|_| send("POST", &url, Some(SCORING), JSON, Some(&body)).0)
+                        .filter(|&st| st != 200)
+                        .count()
+                })
+            })
+            .collect();
+        for _ in 0..10 {
+            assert_eq!(
+                send(
+                    "POST",
+                    &server.url("/v1/admin/reload"),
+                    Some(ADMIN),
+                    None,
+                    None
+                )
+                .0,
+                200
+            );
+        }
+        let failures: usize = clients.into_iter().map(|c| c.join().unwrap()).sum();
+        assert_eq!(failures, 0, "requests failed during reloads");
+    });
+}
+
+#[test]
+fn failed_reload_keeps_the_models_in_service() {
+    let dir = std::env::temp_dir().join(format!("plumbline-reload-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let path = dir.join("model.json");
+    std::fs::copy("models/fernhill-logistic.json", &path).unwrap();
+    let server = TestServer::start(
+        vec![path.clone()],
+        common::server::demo_auth(),
+        Limits::default(),
+    );
+    std::fs::write(&path, "{ not json").unwrap();
+    let (status, _, body) = send(
+        "POST",
+        &server.url("/v1/admin/reload"),
+        Some(ADMIN),
+        None,
+        None,
+    );
+    assert_eq!(status, 409, "{body}");
+    assert!(body.contains("model.json"));
+    assert_eq!(
+        send(
+            "POST",
+            &server.url("/v1/decisions"),
+            Some(SCORING),
+            JSON,
+            Some(&demo_request())
+        )
+        .0,
+        200
+    );
+}
+
+/// SIGTERM with requests in flight: every request sent before the signal gets its answer, then
+/// the process exits 0.
+#[test]
+fn graceful_shutdown_finishes_in_flight_requests() {
+    use std::io::{BufRead, BufReader};
+    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args([
+            "serve",
+            "--no-auth",
+            "--addr",
+            "127.0.0.1:0",
+            "--workers",
+            "2",
+        ])
+        .env("PLUMBLINE_LOG", "warn")
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut stderr = BufReader::new(child.stderr.take().unwrap());
+    let mut line = String::new();
+    let addr = loop {
+        line.clear();
+        assert!(
+            stderr.read_line(&mut line).unwrap() > 0,
+            "server exited before listening"
+        );
+        if let Some(rest) = line.trim().strip_prefix("plumbline listening on ") {
+            break rest.to_string();
+        }
+    };
+    let item: Value = serde_json::from_str(&demo_request()).unwrap();
+    let batch = json!({"items": vec![item; 1000]}).to_string();
+    let url = format!("{addr}/v1/decisions/batch");
+    let (tx, rx) = std::sync::mpsc::channel();
+    let clients: Vec<_> = (0..4)
+        .map(|_| {
+            let (url, batch, tx) = (url.clone(), batch.clone(), tx.clone());
+            std::thread::spawn(move || {
+                tx.send(()).unwrap();
+                send("POST", &url, None, JSON, Some(&batch)).0
+            })
+        })
+        .collect();
+    for _ in 0..4 {
+        rx.recv().unwrap();
+    }
+    std::thread::sleep(std::time::Duration::from_millis(50));
+    let pid = child.id().to_string();
+    assert!(std::process::Command::new("kill")
+        .args(["-TERM", &pid])
+        .status()
+        .unwrap()
+        .success());
+    for c in clients {
+        assert_eq!(c.join().unwrap(), 200, "an in-flight batch was dropped");
+    }
+    let status = child.wait().unwrap();
+    assert!(status.success(), "exit status {status}");
+}
