@@ -149,6 +149,15 @@ impl Problem {
         )
     }
 
+    pub fn internal(detail: &str) -> Self {
+        Problem::new(
+            StatusCode::INTERNAL_SERVER_ERROR,
+            "/problems/internal",
+            "The service failed",
+            detail,
+        )
+    }
+
     pub fn reload_failed(detail: String) -> Self {
         Problem::new(
             StatusCode::CONFLICT,

@@ -174,6 +174,20 @@ pub async fn post_batch(
             state.limits.max_batch_items,
         ));
     }
+    // A full batch is milliseconds of CPU: run it on the blocking pool so this worker keeps
+    // reading other requests (and finishes them on shutdown) meanwhile.
+    let state = state.into_inner();
+    let response = web::block(move || decide_batch(&state, &body))
+        .await
+        .map_err(|_| Problem::internal("the batch worker stopped"))?;
+    Ok(json(&response))
+}
+
+fn decide_batch(state: &State, body: &Value) -> BatchResponse {
+    let items = body["items"]
+        .as_array()
+        .map(Vec::as_slice)
+        .unwrap_or_default();
     let mut response = BatchResponse {
         results: Vec::with_capacity(items.len()),
         approved: 0,
@@ -207,7 +221,7 @@ pub async fn post_batch(
             }
         });
     }
-    Ok(json(&response))
+    response
 }
 
 /// What a loaded model is: identity, digest, fields, cutoffs and reasons.
