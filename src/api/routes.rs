@@ -196,7 +196,7 @@ fn decide_batch(state: &State, body: &Value) -> BatchResponse {
         failed: 0,
     };
     for (index, item) in items.iter().enumerate() {
-        response.results.push(match decide_value(&state, item) {
+        response.results.push(match decide_value(state, item) {
             Ok((decision, outcome)) => {
                 match outcome {
                     "approve" => response.approved += 1,
