@@ -383,3 +383,58 @@ fn graceful_shutdown_finishes_in_flight_requests() {
     let status = child.wait().unwrap();
     assert!(status.success(), "exit status {status}");
 }
+
+/// A body that stops arriving is cut off after the body timeout (408), not left to pin a worker.
+#[test]
+fn slow_body_times_out() {
+    use std::io::{Read, Write};
+    let limits = Limits {
+        body_timeout: std::time::Duration::from_millis(300),
+        ..Limits::default()
+    };
+    let server = TestServer::start(
+        vec![PathBuf::from("models/fernhill-logistic.json")],
+        Auth(None),
+        limits,
+    );
+    let addr = server.base.trim_start_matches("http://").to_string();
+    let mut stream = std::net::TcpStream::connect(addr).unwrap();
+    stream
+        .set_read_timeout(Some(std::time::Duration::from_secs(5)))
+        .unwrap();
+    write!(stream, "POST /v1/decisions HTTP/1.1\r\nHost: x\r\nContent-Type: application/json\r\nContent-Length: 500\r\n\r\n{{\"application_id\": ").unwrap();
+    stream.flush().unwrap();
+    let mut answer = String::new();
+    let _ = stream.read_to_string(&mut answer);
+    assert!(answer.starts_with("HTTP/1.1 408"), "{answer}");
+    assert!(answer.contains("/problems/body-timeout"));
+}
+
+/// A bad model file stops the service at start with a message naming the file and JSON path.
+#[test]
+fn bad_model_stops_startup() {
+    let dir = std::env::temp_dir().join(format!("plumbline-badstart-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let path = dir.join("broken.json");
+    let text = std::fs::read_to_string("models/fernhill-logistic.json")
+        .unwrap()
+        .replace("\"approve_below\": 0.08", "\"approve_below\": -1");
+    std::fs::write(&path, text).unwrap();
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args([
+            "serve",
+            "--no-auth",
+            "--addr",
+            "127.0.0.1:0",
+            "--model",
+            path.to_str().unwrap(),
+        ])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("broken.json") && err.contains("$.policy.approve_below"),
+        "{err}"
+    );
+}
