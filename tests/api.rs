@@ -258,20 +258,31 @@ fn checked_in_openapi_document_is_current() {
 
 #[test]
 fn reload_under_load_drops_nothing() {
+    use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
     let server = TestServer::demo();
     let url = server.url("/v1/decisions");
     let body = demo_request();
+    let (done, stop, failures) = (
+        AtomicUsize::new(0),
+        AtomicBool::new(false),
+        AtomicUsize::new(0),
+    );
     std::thread::scope(|s| {
-        let clients: Vec<_> = (0..4)
-            .map(|_| {
-                s.spawn(|| {
-                    (0..100)
-                        .map(|_| send("POST", &url, Some(SCORING), JSON, Some(&body)).0)
-                        .filter(|&st| st != 200)
-                        .count()
-                })
-            })
-            .collect();
+        for _ in 0..4 {
+            s.spawn(|| {
+                while !stop.load(Ordering::Relaxed) {
+                    if send("POST", &url, Some(SCORING), JSON, Some(&body)).0 != 200 {
+                        failures.fetch_add(1, Ordering::Relaxed);
+                    }
+                    done.fetch_add(1, Ordering::Relaxed);
+                }
+            });
+        }
+        // Reload only once traffic flows, and keep it flowing through every reload.
+        while done.load(Ordering::Relaxed) < 20 {
+            std::thread::yield_now();
+        }
+        let before = done.load(Ordering::Relaxed);
         for _ in 0..10 {
             assert_eq!(
                 send(
@@ -285,9 +296,46 @@ fn reload_under_load_drops_nothing() {
                 200
             );
         }
-        let failures: usize = clients.into_iter().map(|c| c.join().unwrap()).sum();
-        assert_eq!(failures, 0, "requests failed during reloads");
+        let during = done.load(Ordering::Relaxed) - before;
+        stop.store(true, Ordering::Relaxed);
+        assert!(during > 0, "no request overlapped the reloads");
     });
+    assert_eq!(
+        failures.load(Ordering::Relaxed),
+        0,
+        "requests failed during reloads"
+    );
+}
+
+#[test]
+fn wrong_method_is_405_and_scheme_is_case_insensitive() {
+    let server = TestServer::demo();
+    let (status, ct, _) = send(
+        "GET",
+        &server.url("/v1/decisions"),
+        Some(SCORING),
+        None,
+        None,
+    );
+    assert_eq!((status, ct.as_str()), (405, "application/problem+json"));
+    assert_eq!(
+        send(
+            "POST",
+            &server.url("/v1/decisions"),
+            Some(SCORING),
+            JSON,
+            Some(&demo_request())
+        )
+        .0,
+        200
+    );
+    let agent = ureq::AgentBuilder::new().build();
+    let r = agent
+        .post(&server.url("/v1/decisions"))
+        .set("Authorization", &format!("bearer {SCORING}"))
+        .set("Content-Type", "application/json")
+        .send_string(&demo_request());
+    assert_eq!(r.map(|r| r.status()).unwrap_or(0), 200);
 }
 
 #[test]
@@ -371,12 +419,37 @@ fn graceful_shutdown_finishes_in_flight_requests() {
         rx.recv().unwrap();
     }
     std::thread::sleep(std::time::Duration::from_millis(50));
+    // One request certainly in flight: its head and half its body are sent before the signal,
+    // the rest after.
+    let mut slow = std::net::TcpStream::connect(addr.trim_start_matches("http://")).unwrap();
+    let body = demo_request();
+    let (first, rest) = body.split_at(body.len() / 2);
+    {
+        use std::io::Write;
+        write!(slow, "POST /v1/decisions HTTP/1.1\r\nHost: x\r\nContent-Type: application/json\r\nContent-Length: {}\r\n\r\n{first}", body.len()).unwrap();
+        slow.flush().unwrap();
+    }
+    std::thread::sleep(std::time::Duration::from_millis(50));
     let pid = child.id().to_string();
     assert!(std::process::Command::new("kill")
         .args(["-TERM", &pid])
         .status()
         .unwrap()
         .success());
+    std::thread::sleep(std::time::Duration::from_millis(100));
+    {
+        use std::io::{Read, Write};
+        slow.write_all(rest.as_bytes()).unwrap();
+        slow.flush().unwrap();
+        slow.set_read_timeout(Some(std::time::Duration::from_secs(10)))
+            .unwrap();
+        let mut answer = [0u8; 12];
+        slow.read_exact(&mut answer).unwrap();
+        assert_eq!(
+            &answer, b"HTTP/1.1 200",
+            "the request in flight at SIGTERM was not answered"
+        );
+    }
     for c in clients {
         assert_eq!(c.join().unwrap(), 200, "an in-flight batch was dropped");
     }

@@ -98,7 +98,7 @@ fn decline_gives_at_most_four_reasons_all_adverse_plus_inquiry_extra() {
         assert!(pair[0].contribution >= pair[1].contribution);
     }
     // Inquiries (2 against a reference of 0.8: +0.216) rank below the top four here, so
-    // FCRA 15 U.S.C. 1681g(f)(1)(C) lets them travel as a fifth factor.
+    // FCRA 15 U.S.C. 1681g(f)(9) has them listed as a fifth factor.
     assert_eq!(d.reasons.len(), 5);
     assert_eq!(d.reasons[4].code, "INQ");
 }

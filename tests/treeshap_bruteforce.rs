@@ -91,9 +91,16 @@ fn assert_close(got: &[f64], want: &[f64], tol: f64, what: &str) {
 fn check_path_dependent(seed: u64, columns: usize, depth: usize, trees: usize, agg: Aggregation) {
     let mut rng = Rng(seed);
     let e = random_ensemble(&mut rng, trees, columns, depth, agg);
-    {
-        let limit = e.max_depth();
-        let explainer = PathExplainer::new(&e);
+    // Quadrature (the default) and the per-leaf closed form (forced with limit 0) both exact.
+    for quadrature in [true, false] {
+        let explainer = if quadrature {
+            PathExplainer::new(&e)
+        } else {
+            PathExplainer::with_quadrature_limit(&e, 0)
+        };
+        let (by_quadrature, per_leaf) = explainer.algorithm_counts();
+        assert_eq!(by_quadrature > 0, quadrature);
+        assert_eq!(per_leaf > 0, !quadrature);
         let base = path_value(&e, &[f64::NAN; 16][..columns], 0);
         assert!(
             (explainer.base_value() - base).abs() < 1e-12,
@@ -109,7 +116,7 @@ fn check_path_dependent(seed: u64, columns: usize, depth: usize, trees: usize, a
                 &got,
                 &want,
                 1e-12,
-                &format!("path-dependent seed {seed} depth {limit}"),
+                &format!("path-dependent seed {seed}, quadrature {quadrature}"),
             );
         }
     }
@@ -137,9 +144,9 @@ fn path_dependent_matches_enumeration_deep_paths() {
     }
 }
 
-/// Trees deeper than the quadrature limit use the per-leaf closed form.
+/// Deep trees that split on the same columns again and again (positions shared along a path).
 #[test]
-fn path_dependent_matches_enumeration_deeper_than_quadrature() {
+fn path_dependent_matches_enumeration_deep_repeated_columns() {
     for seed in 400..403 {
         check_path_dependent(seed, 12, 18, 1, Aggregation::SumLogOdds);
     }

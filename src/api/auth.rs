@@ -124,9 +124,11 @@ impl Auth {
         let Some(keys) = &self.0 else {
             return Ok(None);
         };
+        // The scheme name is case-insensitive (RFC 9110 section 11.1).
         let presented = authorization
-            .and_then(|h| h.strip_prefix("Bearer "))
-            .map(str::trim)
+            .and_then(|h| h.split_once(' '))
+            .filter(|(scheme, _)| scheme.eq_ignore_ascii_case("bearer"))
+            .map(|(_, key)| key.trim())
             .filter(|k| !k.is_empty());
         let key = presented
             .and_then(|k| keys.find(k))

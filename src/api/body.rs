@@ -35,7 +35,10 @@ pub async fn read_json(
     let read = async {
         let mut body = web::BytesMut::new();
         while let Some(chunk) = payload.next().await {
-            let chunk = chunk.map_err(|_| Problem::too_large(limit))?;
+            let chunk = chunk.map_err(|e| match e {
+                actix_web::error::PayloadError::Overflow => Problem::too_large(limit),
+                other => Problem::bad_body(&other.to_string()),
+            })?;
             if body.len() + chunk.len() > limit {
                 return Err(Problem::too_large(limit));
             }

@@ -75,6 +75,9 @@ pub struct Running {
 
 static REQUEST_SEQ: AtomicU64 = AtomicU64::new(0);
 
+/// How [`start`] words a failure to bind, so callers can tell it from a bad model.
+pub const LISTEN_FAILED: &str = "cannot listen on";
+
 /// A caller's `x-request-id` if it is short and printable, else a new one.
 fn request_id(req: &actix_web::dev::ServiceRequest) -> String {
     match req
@@ -93,6 +96,13 @@ fn request_id(req: &actix_web::dev::ServiceRequest) -> String {
             REQUEST_SEQ.fetch_add(1, Ordering::Relaxed)
         ),
     }
+}
+
+/// A route that answers other methods with a 405 problem.
+fn resource(path: &str, route: actix_web::Route) -> actix_web::Resource {
+    web::resource(path)
+        .route(route)
+        .default_service(web::to(routes::method_not_allowed))
 }
 
 /// Validates every model and binds the address; the returned server runs once awaited.
@@ -129,15 +139,15 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
                     Ok(res)
                 }
             })
-            .route("/v1/decisions", web::post().to(routes::post_decision))
-            .route("/v1/decisions/batch", web::post().to(routes::post_batch))
-            .route("/v1/models", web::get().to(routes::get_models))
-            .route("/v1/models/{id}", web::get().to(routes::get_model))
-            .route("/v1/admin/reload", web::post().to(routes::reload))
-            .route("/health/live", web::get().to(routes::live))
-            .route("/health/ready", web::get().to(routes::ready))
-            .route("/metrics", web::get().to(routes::metrics))
-            .route("/openapi.json", web::get().to(routes::openapi))
+            .service(resource("/v1/decisions", web::post().to(routes::post_decision)))
+            .service(resource("/v1/decisions/batch", web::post().to(routes::post_batch)))
+            .service(resource("/v1/models", web::get().to(routes::get_models)))
+            .service(resource("/v1/models/{id}", web::get().to(routes::get_model)))
+            .service(resource("/v1/admin/reload", web::post().to(routes::reload)))
+            .service(resource("/health/live", web::get().to(routes::live)))
+            .service(resource("/health/ready", web::get().to(routes::ready)))
+            .service(resource("/metrics", web::get().to(routes::metrics)))
+            .service(resource("/openapi.json", web::get().to(routes::openapi)))
             .default_service(web::to(routes::not_found))
     })
     .workers(config.workers.max(1))
@@ -145,7 +155,7 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
     .client_disconnect_timeout(Duration::from_secs(1))
     .shutdown_timeout(limits.shutdown_timeout.as_secs())
     .bind(config.addr)
-    .map_err(|e| format!("cannot listen on {}: {e}", config.addr))?;
+    .map_err(|e| format!("{LISTEN_FAILED} {}: {e}", config.addr))?;
     let addr = server.addrs().first().copied().unwrap_or(config.addr);
     let server = server.run();
     Ok(Running {

@@ -12,7 +12,7 @@ use utoipa::{Modify, OpenApi};
         description = "Scores loan applications with a validated model and returns the probability of default, a scaled score, an approve / refer / decline outcome, ranked reason codes and exact per-field contributions.\n\nModel output is decision support, not a credit decision by itself. Lenders remain responsible for complying with ECOA / Regulation B, FCRA and local law, for their adverse-action notices, and for their own model-risk review; defer to compliance counsel.\n\nErrors are RFC 9457 problem details (`application/problem+json`) naming each bad field with the rule it broke.",
         license(name = "Apache-2.0")
     ),
-    paths(routes::post_decision, routes::post_batch, routes::get_models, routes::get_model, routes::live, routes::ready, routes::metrics, routes::reload),
+    paths(routes::post_decision, routes::post_batch, routes::get_models, routes::get_model, routes::live, routes::ready, routes::metrics, routes::reload, routes::openapi),
     components(schemas(crate::decide::Decision, super::problem::Problem, routes::DecisionRequest, routes::BatchResponse)),
     modifiers(&ApiKey),
     tags(

@@ -75,6 +75,24 @@ impl Problem {
         )
     }
 
+    pub fn bad_body(why: &str) -> Self {
+        Problem::new(
+            StatusCode::BAD_REQUEST,
+            "/problems/bad-body",
+            "The body could not be read",
+            why.to_string(),
+        )
+    }
+
+    pub fn method_not_allowed(method: &str, path: &str) -> Self {
+        Problem::new(
+            StatusCode::METHOD_NOT_ALLOWED,
+            "/problems/method-not-allowed",
+            "Wrong method for this route",
+            format!("{method} is not allowed on {path}; see /openapi.json"),
+        )
+    }
+
     pub fn unsupported_media_type(got: &str) -> Self {
         Problem::new(
             StatusCode::UNSUPPORTED_MEDIA_TYPE,

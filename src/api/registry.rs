@@ -42,7 +42,7 @@ impl ModelSet {
         })
     }
 
-    /// The champion, or the newest-listed model matching the selector.
+    /// The champion, or the first-listed model matching the selector.
     pub fn select(&self, selector: Option<&ModelSelector>) -> Option<Arc<LoadedModel>> {
         match selector {
             None => Some(self.champion.clone()),

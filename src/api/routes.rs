@@ -329,9 +329,9 @@ pub async fn get_models(
     Ok(json(&list))
 }
 
-/// One loaded model by id (the newest-listed version when several are loaded).
+/// One loaded model by id (the first-listed version when several are loaded).
 #[utoipa::path(get, path = "/v1/models/{id}", tag = "models", params(("id" = String, Path, description = "model id")),
-    responses((status = 200, body = ModelSummary), (status = 404, body = Problem, content_type = "application/problem+json")),
+    responses((status = 200, body = ModelSummary), (status = 401, body = Problem, content_type = "application/problem+json"), (status = 404, body = Problem, content_type = "application/problem+json")),
     security(("api_key" = [])))]
 pub async fn get_model(
     state: web::Data<State>,
@@ -388,7 +388,7 @@ pub struct Reloaded {
 /// Load the model files again and swap them in atomically (admin only). Requests in flight finish
 /// on the models they started with; if any file fails, nothing changes.
 #[utoipa::path(post, path = "/v1/admin/reload", tag = "operations",
-    responses((status = 200, body = Reloaded), (status = 403, body = Problem, content_type = "application/problem+json"),
+    responses((status = 200, body = Reloaded), (status = 401, body = Problem, content_type = "application/problem+json"), (status = 403, body = Problem, content_type = "application/problem+json"),
         (status = 409, description = "A model file does not load; the old models stay", body = Problem, content_type = "application/problem+json")),
     security(("api_key" = [])))]
 pub async fn reload(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
@@ -404,10 +404,16 @@ pub async fn reload(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
     }))
 }
 
+/// This document.
+#[utoipa::path(get, path = "/openapi.json", tag = "operations", responses((status = 200, description = "The OpenAPI 3.1 document", content_type = "application/json", body = Object)))]
 pub async fn openapi() -> HttpResponse {
     HttpResponse::Ok()
         .content_type("application/json")
         .body(super::openapi::document())
+}
+
+pub async fn method_not_allowed(req: HttpRequest) -> HttpResponse {
+    Problem::method_not_allowed(req.method().as_str(), req.path()).response()
 }
 
 pub async fn not_found(req: HttpRequest) -> HttpResponse {

@@ -239,7 +239,7 @@ pub struct ReasonSpec {
     pub code: String,
     /// Specific, applicant-facing statement of the reason.
     pub text: String,
-    /// Marks the inquiries reason that FCRA 15 U.S.C. 1681g(f)(1)(C) lets travel as an extra factor.
+    /// Marks the inquiries reason, which FCRA 15 U.S.C. 1681g(f)(9) lists beyond the usual limit.
     #[serde(default)]
     pub inquiry: bool,
 }
@@ -254,8 +254,10 @@ pub struct PolicySpec {
     pub scaling: ScalingSpec,
     #[serde(default = "four")]
     pub max_reasons: usize,
-    /// Add the inquiry reason as one extra when it is adverse but outside the top `max_reasons`.
-    #[serde(default)]
+    /// Add the inquiry reason as one extra when it is adverse but outside the top `max_reasons`
+    /// (default true: 15 U.S.C. 1681g(f)(9) requires it in credit-score disclosures; turn it off
+    /// only where that rule does not apply, on counsel's advice).
+    #[serde(default = "yes_policy")]
     pub inquiry_extra: bool,
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub rules: Vec<RuleSpec>,
@@ -263,6 +265,10 @@ pub struct PolicySpec {
 
 fn four() -> usize {
     4
+}
+
+fn yes_policy() -> bool {
+    true
 }
 
 /// score = offset + factor * ln(good:bad odds), factor = pdo / ln 2, anchored at `points` for `odds`.

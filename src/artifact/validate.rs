@@ -13,6 +13,8 @@ use crate::reasons::{vague_text, Reason, ReasonTable};
 pub const MAX_TREE_DEPTH: usize = 60;
 /// Largest background sample accepted (interventional cost grows with it, per request).
 pub const MAX_BACKGROUND_ROWS: usize = 2_000;
+/// Most encoded columns a model may have (tree nodes store the column in 16 bits).
+pub const MAX_COLUMNS: usize = 65_535;
 /// Largest number of principal reasons a policy may ask for.
 pub const MAX_REASONS_LIMIT: usize = 8;
 
@@ -237,6 +239,16 @@ fn compile_schema(specs: &[FieldSpec], reasons: &ReasonTable, is_trees: bool) ->
     }
     if schema.columns.is_empty() {
         return fail("$.features", "required", "no field is scored");
+    }
+    if schema.columns.len() > MAX_COLUMNS {
+        return fail(
+            "$.features",
+            "size",
+            format!(
+                "{} encoded columns; at most {MAX_COLUMNS}",
+                schema.columns.len()
+            ),
+        );
     }
     Ok(schema)
 }

@@ -37,7 +37,8 @@ pub enum Command {
         /// Requests `{"application_id": ..., "applicant": {...}}`; `-` or absent reads stdin.
         input: Option<PathBuf>,
     },
-    /// Run the decision service (HTTP). With no arguments: the bundled demo model on 127.0.0.1:8080.
+    /// Run the decision service (HTTP): by default the bundled demo model on 127.0.0.1:8080;
+    /// needs --keys FILE (or PLUMBLINE_KEYS), or --no-auth for a local trial.
     Serve(serve::ServeArgs),
     /// Print the key-file entry for an API key read from stdin (its SHA-256; the key itself is
     /// never stored).

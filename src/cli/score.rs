@@ -23,6 +23,8 @@ pub fn run(model: &Path, input: Option<&Path>) -> i32 {
     let mut out = std::io::BufWriter::new(stdout.lock());
     let mut status = 0;
     let mut count = 0;
+    // Line of the current request, counted as we go (not rescanned per request).
+    let (mut counted_to, mut line_base) = (0usize, 1usize);
     let mut stream = serde_json::Deserializer::from_str(&text).into_iter::<serde_json::Value>();
     loop {
         let start = stream.byte_offset();
@@ -41,7 +43,9 @@ pub fn run(model: &Path, input: Option<&Path>) -> i32 {
             }
         };
         count += 1;
-        let line = text[..start].matches('\n').count() + 1 + leading_newlines(&text[start..]);
+        line_base += text[counted_to..start].matches('\n').count();
+        counted_to = start;
+        let line = line_base + leading_newlines(&text[start..]);
         match crate::decide_request(&model, &request) {
             Ok(decision) => {
                 let json = serde_json::to_string(&decision).expect("decisions serialise");

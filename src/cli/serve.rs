@@ -130,7 +130,12 @@ pub fn run(args: ServeArgs) -> i32 {
         Ok(()) => 0,
         Err(e) => {
             eprintln!("error: {e}");
-            EXIT_BAD_INPUT
+            // A bad model or key file is bad input; failing to bind or run is not.
+            if e.starts_with(crate::api::LISTEN_FAILED) {
+                EXIT_FAILURE
+            } else {
+                EXIT_BAD_INPUT
+            }
         }
     }
 }

@@ -64,13 +64,23 @@ impl Explainer {
     }
 }
 
-/// Tolerance of the additivity check: |base + sum - output| <= 1e-9 * max(1, |output|).
+/// Tolerance of the additivity check, relative to the size of the terms added:
+/// |base + sum - output| <= 1e-9 * max(1, |output|, |base|, sum |contribution|).
 pub const ADDITIVITY_TOLERANCE: f64 = 1e-9;
 
-/// Whether contributions add up to the output within [`ADDITIVITY_TOLERANCE`].
+/// Whether contributions add up to the output within [`ADDITIVITY_TOLERANCE`]. The scale
+/// includes the terms themselves, since rounding grows with them (huge inputs to a logistic
+/// model give huge, cancelling terms).
 pub fn is_additive(base: f64, contributions: &[f64], output: f64) -> bool {
     let total = base + contributions.iter().sum::<f64>();
-    (total - output).abs() <= ADDITIVITY_TOLERANCE * output.abs().max(1.0)
+    let scale = contributions
+        .iter()
+        .map(|c| c.abs())
+        .sum::<f64>()
+        .max(base.abs())
+        .max(output.abs())
+        .max(1.0);
+    (total - output).abs() <= ADDITIVITY_TOLERANCE * scale
 }
 
 /// Convenience for tests and tools: contributions and base for one row.

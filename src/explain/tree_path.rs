@@ -16,7 +16,7 @@
 //! correction where a column is split on again deeper down. Work is O(nodes x points) per tree
 //! and nothing is allocated per row.
 //!
-//! Trees deeper than [`QUADRATURE_MAX_DEPTH`] use the per-leaf closed form in elementary
+//! Trees with more than [`QUADRATURE_MAX_DEPTH`] distinct columns on a path use the per-leaf closed form in elementary
 //! symmetric polynomials (`closed_form_into`), O(leaves x depth^2).
 
 use super::paths::{PathTree, TreePaths};
@@ -25,7 +25,8 @@ use super::weights::shapley;
 use crate::artifact::spec::Aggregation;
 use crate::model::{Ensemble, Node};
 
-/// Deepest tree explained by quadrature (8 points); deeper trees use the per-leaf closed form.
+/// Most distinct columns on one path explained by quadrature (8 points); wider trees use the
+/// per-leaf closed form.
 pub const QUADRATURE_MAX_DEPTH: usize = 16;
 const MAX_POINTS: usize = QUADRATURE_MAX_DEPTH / 2;
 
@@ -149,6 +150,14 @@ impl QuadTree {
 impl PathExplainer {
     /// Needs every node's cover (checked at load).
     pub fn new(ensemble: &Ensemble) -> Self {
+        Self::with_quadrature_limit(ensemble, QUADRATURE_MAX_DEPTH)
+    }
+
+    /// As [`Self::new`], using quadrature only for trees whose paths hold at most `limit` distinct
+    /// columns (0: never) and the per-leaf closed form for the others. Both are exact; tests use
+    /// this to check the closed form on small trees.
+    pub fn with_quadrature_limit(ensemble: &Ensemble, limit: usize) -> Self {
+        let limit = limit.min(QUADRATURE_MAX_DEPTH);
         let weight = ensemble.tree_weight();
         let mut base = match ensemble.aggregation {
             Aggregation::SumLogOdds => ensemble.base_score,
@@ -166,7 +175,7 @@ impl PathExplainer {
             // The widest leaf game has k players; its integrand has degree k - 1.
             let players = paths.leaves.iter().map(|l| l.k as usize).max().unwrap_or(0);
             trees.push(
-                if players <= QUADRATURE_MAX_DEPTH && tree.nodes.len() < u32::MAX as usize {
+                if players <= limit && tree.nodes.len() < u32::MAX as usize {
                     CompiledTree::Quadrature(QuadTree::new(
                         &tree.nodes,
                         &paths.pos,

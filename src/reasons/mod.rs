@@ -2,8 +2,9 @@
 //!
 //! Rules followed (Regulation B, 12 CFR 1002.9(b)(2) and its Official Interpretation; FCRA
 //! 15 U.S.C. 1681g(f)): reasons are specific (vague texts are refused at load), come only from
-//! factors actually considered, at most four by default, and an inquiries reason may travel as
-//! one extra key factor. Only codes whose summed contribution pushes toward default are eligible.
+//! factors actually considered, at most four by default (15 U.S.C. 1681g(f)(1)(C)), and an
+//! adverse inquiries factor is added beyond that limit (15 U.S.C. 1681g(f)(9)). Only codes whose
+//! summed contribution pushes toward default are eligible.
 
 use serde::Serialize;
 
@@ -27,7 +28,7 @@ pub enum ReasonSource {
     Rule,
     /// The model: its fields' summed contributions pushed toward default.
     Model,
-    /// The inquiries reason added beyond the limit, as FCRA 15 U.S.C. 1681g(f)(1)(C) allows.
+    /// The inquiries reason added beyond the limit, as FCRA 15 U.S.C. 1681g(f)(9) requires for credit-score disclosures.
     InquiryExtra,
 }
 
@@ -191,7 +192,7 @@ mod tests {
         assert_eq!(got[0].contribution, None);
     }
 
-    // FCRA 15 U.S.C. 1681g(f)(1)(C): inquiries may be listed beyond the four key factors.
+    // FCRA 15 U.S.C. 1681g(f)(9): an adverse inquiries factor is listed beyond the four key factors.
     #[test]
     fn inquiry_extra_only_when_adverse_and_left_out() {
         let limits = ReasonLimits {
