@@ -19,6 +19,7 @@ pub mod features;
 pub mod model;
 pub mod policy;
 pub mod reasons;
+pub mod train;
 
 pub use artifact::{ArtifactError, LoadedModel};
 pub use decide::{decide, decide_request, Decision};

@@ -40,6 +40,20 @@ pub enum Command {
     /// Run the decision service (HTTP): by default the bundled demo model on 127.0.0.1:8080;
     /// needs --keys FILE (or PLUMBLINE_KEYS), or --no-auth for a local trial.
     Serve(serve::ServeArgs),
+    /// Write invented applications of the demo lender (CSV), and optionally synthetic
+    /// group-membership probabilities for the fairness demo. Demo data only.
+    DemoData {
+        #[arg(long, default_value_t = 10_000)]
+        rows: usize,
+        #[arg(long, default_value_t = 2026)]
+        seed: u64,
+        /// Applications CSV.
+        #[arg(long)]
+        out: PathBuf,
+        /// Group-membership probabilities CSV (never model inputs).
+        #[arg(long)]
+        groups_out: Option<PathBuf>,
+    },
     /// Print the key-file entry for an API key read from stdin (its SHA-256; the key itself is
     /// never stored).
     HashKey {
@@ -64,7 +78,41 @@ pub fn run(cli: Cli) -> i32 {
         Command::Score { model, input } => score::run(&model, input.as_deref()),
         Command::Serve(args) => serve::run(args),
         Command::HashKey { name, role } => serve::hash_key(&name, &role),
+        Command::DemoData {
+            rows,
+            seed,
+            out,
+            groups_out,
+        } => demo_data(rows, seed, &out, groups_out.as_deref()),
     }
+}
+
+fn demo_data(
+    rows: usize,
+    seed: u64,
+    out: &std::path::Path,
+    groups: Option<&std::path::Path>,
+) -> i32 {
+    if rows == 0 || rows > 10_000_000 {
+        eprintln!("error: --rows must be 1 to 10000000");
+        return EXIT_BAD_INPUT;
+    }
+    let (apps, group_csv) = crate::train::demo_data::applications_csv(rows, seed);
+    let mut writes = vec![(out, apps)];
+    if let Some(g) = groups {
+        writes.push((g, group_csv));
+    }
+    for (path, text) in writes {
+        if let Err(e) = std::fs::write(path, text) {
+            eprintln!("error: cannot write {}: {e}", path.display());
+            return EXIT_FAILURE;
+        }
+    }
+    eprintln!(
+        "wrote {rows} invented applications (seed {seed}) to {}",
+        out.display()
+    );
+    0
 }
 
 fn load(path: &std::path::Path) -> Result<crate::LoadedModel, i32> {
