@@ -2,6 +2,7 @@
 //! cross-validation follow (see the model-building issue).
 
 pub mod demo_data;
+pub mod logistic;
 mod rng;
 
 pub use rng::Rng;
