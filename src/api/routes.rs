@@ -58,15 +58,24 @@ pub struct ModelSelectorDoc {
 fn decide_value(state: &State, request: &Value) -> Result<(Decision, &'static str), Problem> {
     let envelope = Envelope::parse(request).map_err(Problem::invalid)?;
     let set = state.registry.current();
-    let model = set.select(envelope.model.as_ref()).ok_or_else(|| {
-        Problem::unknown_model(
-            &envelope
-                .model
-                .as_ref()
-                .map(|m| m.describe())
-                .unwrap_or_default(),
-        )
-    })?;
+    let Some(model) = set.select(envelope.model.as_ref()) else {
+        let what = envelope
+            .model
+            .as_ref()
+            .map(|m| m.describe())
+            .unwrap_or_default();
+        // Alone, an unknown model is a 404; with other problems, all are reported together.
+        if envelope.errors.is_empty() {
+            return Err(Problem::unknown_model(&what));
+        }
+        let mut errors = envelope.errors.clone();
+        errors.push(crate::features::FieldError {
+            field: "model".into(),
+            rule: "unknown_model",
+            message: format!("{what} is not loaded"),
+        });
+        return Err(Problem::invalid(crate::InputError { errors }));
+    };
     let decision = decide_envelope(&model, &envelope).map_err(Problem::invalid)?;
     let outcome = decision.outcome.name();
     state
