@@ -14,6 +14,7 @@ pub mod api;
 pub mod artifact;
 pub mod cli;
 pub mod decide;
+pub mod evaluate;
 pub mod explain;
 pub mod features;
 pub mod model;

@@ -7,7 +7,7 @@ mod parse;
 pub mod spec;
 mod validate;
 
-pub use validate::MAX_TREE_DEPTH;
+pub use validate::{schema_from_specs, MAX_TREE_DEPTH};
 
 pub use digest::{canonical_json, sha256_hex};
 

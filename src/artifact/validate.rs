@@ -137,6 +137,15 @@ fn compile_reasons(specs: &[ReasonSpec]) -> Result<ReasonTable> {
     Ok(ReasonTable { reasons })
 }
 
+/// The schema alone (for tools that read data against a model's fields before a model exists).
+pub fn schema_from_specs(
+    specs: &[FieldSpec],
+    reasons: &[ReasonSpec],
+    is_trees: bool,
+) -> Result<Schema> {
+    compile_schema(specs, &compile_reasons(reasons)?, is_trees)
+}
+
 fn compile_schema(specs: &[FieldSpec], reasons: &ReasonTable, is_trees: bool) -> Result<Schema> {
     if specs.is_empty() {
         return fail("$.features", "required", "a model needs at least one field");

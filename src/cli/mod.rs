@@ -54,6 +54,23 @@ pub enum Command {
         #[arg(long)]
         groups_out: Option<PathBuf>,
     },
+    /// Fit a logistic model from a CSV of past applications and a training spec; writes the
+    /// artifact only if it validates.
+    Train {
+        /// CSV with a header naming every field of the spec and the target column.
+        #[arg(long)]
+        data: PathBuf,
+        /// Training spec (fields, reasons, policy, reference population, penalty).
+        #[arg(long)]
+        spec: PathBuf,
+        /// Where to write the artifact.
+        #[arg(long)]
+        out: PathBuf,
+        #[arg(long, default_value_t = 5)]
+        folds: usize,
+        #[arg(long, default_value_t = 2026)]
+        seed: u64,
+    },
     /// Print the key-file entry for an API key read from stdin (its SHA-256; the key itself is
     /// never stored).
     HashKey {
@@ -78,12 +95,84 @@ pub fn run(cli: Cli) -> i32 {
         Command::Score { model, input } => score::run(&model, input.as_deref()),
         Command::Serve(args) => serve::run(args),
         Command::HashKey { name, role } => serve::hash_key(&name, &role),
+        Command::Train {
+            data,
+            spec,
+            out,
+            folds,
+            seed,
+        } => train(&data, &spec, &out, folds, seed),
         Command::DemoData {
             rows,
             seed,
             out,
             groups_out,
         } => demo_data(rows, seed, &out, groups_out.as_deref()),
+    }
+}
+
+fn train(
+    data: &std::path::Path,
+    spec: &std::path::Path,
+    out: &std::path::Path,
+    folds: usize,
+    seed: u64,
+) -> i32 {
+    let read = |p: &std::path::Path| {
+        std::fs::read_to_string(p).map_err(|e| format!("cannot read {}: {e}", p.display()))
+    };
+    let (csv, spec_text) = match (read(data), read(spec)) {
+        (Ok(a), Ok(b)) => (a, b),
+        (Err(e), _) | (_, Err(e)) => {
+            eprintln!("error: {e}");
+            return EXIT_BAD_INPUT;
+        }
+    };
+    let spec: crate::train::build::TrainingSpec = match serde_json::from_str(&spec_text) {
+        Ok(s) => s,
+        Err(e) => {
+            eprintln!("error: spec {}: {e}", spec.display());
+            return EXIT_BAD_INPUT;
+        }
+    };
+    match crate::train::build::train_logistic(&spec, &csv, folds, seed) {
+        Ok((artifact, report)) => {
+            if let Err(e) = std::fs::write(out, artifact) {
+                eprintln!("error: cannot write {}: {e}", out.display());
+                return EXIT_FAILURE;
+            }
+            let mean = report.cv_auc.iter().sum::<f64>() / report.cv_auc.len() as f64;
+            eprintln!(
+                "trained on {} rows, base rate {:.4}; {}-fold CV AUC {:.4} (folds {:?})",
+                report.rows,
+                report.base_rate,
+                report.cv_auc.len(),
+                mean,
+                report
+                    .cv_auc
+                    .iter()
+                    .map(|a| format!("{a:.4}"))
+                    .collect::<Vec<_>>()
+            );
+            eprintln!(
+                "{:<32} {:>14} {:>12}",
+                "column", "coefficient", "std. error"
+            );
+            let names =
+                std::iter::once("(intercept)".to_string()).chain(report.columns.iter().cloned());
+            for ((n, b), se) in names
+                .zip(&report.fit.coefficients)
+                .zip(&report.fit.std_errors)
+            {
+                eprintln!("{n:<32} {b:>14.6e} {se:>12.4e}");
+            }
+            eprintln!("wrote {}", out.display());
+            0
+        }
+        Err(e) => {
+            eprintln!("error: {e}\nnothing was written");
+            EXIT_BAD_INPUT
+        }
     }
 }
 

@@ -1,6 +1,9 @@
-//! Model building. So far: the demo lender's generated applications; fitting and
-//! cross-validation follow (see the model-building issue).
+//! Model building: the demo lender's generated applications, reading training CSVs against a
+//! spec, logistic fitting with standard errors, stratified cross-validation, and writing a
+//! validated artifact. Forests follow (see the model-building issue).
 
+pub mod build;
+mod dataset;
 pub mod demo_data;
 pub mod logistic;
 mod rng;

@@ -1,0 +1,140 @@
+//! Reading a training CSV against a model's fields: every cell is checked by the same rules as
+//! a live applicant, and every problem names its row and column.
+
+use crate::features::{FieldType, Schema};
+use serde_json::{Map, Value};
+
+/// Encoded rows and outcomes.
+#[derive(Debug, Clone)]
+pub struct Dataset {
+    pub columns: Vec<Vec<f64>>,
+    pub defaulted: Vec<bool>,
+    /// SHA-256 of the file's bytes, for provenance.
+    pub sha256: String,
+}
+
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{}", self.problems.join("; "))]
+pub struct DataError {
+    /// "row R, column C: message", data rows numbered from 1 after the header.
+    pub problems: Vec<String>,
+}
+
+fn problem(msg: String) -> DataError {
+    DataError {
+        problems: vec![msg],
+    }
+}
+
+/// Reads `text` (comma-separated, header first, no quoted commas), encodes each row, and stops
+/// after 20 problems.
+pub fn read_csv(text: &str, schema: &Schema, target: &str) -> Result<Dataset, DataError> {
+    let mut lines = text.lines();
+    let header: Vec<&str> = lines
+        .next()
+        .ok_or_else(|| problem("the file is empty".into()))?
+        .split(',')
+        .map(str::trim)
+        .collect();
+    let col = |name: &str| header.iter().position(|h| *h == name);
+    let target_at =
+        col(target).ok_or_else(|| problem(format!("header: no target column \"{target}\"")))?;
+    let mut at = Vec::new();
+    let mut missing_columns = Vec::new();
+    for f in &schema.fields {
+        match col(&f.name) {
+            Some(i) => at.push(i),
+            None => missing_columns.push(format!("header: no column \"{}\"", f.name)),
+        }
+    }
+    if !missing_columns.is_empty() {
+        return Err(DataError {
+            problems: missing_columns,
+        });
+    }
+    let mut problems = Vec::new();
+    let (mut columns, mut defaulted) = (Vec::new(), Vec::new());
+    for (n, line) in lines.enumerate() {
+        let row = n + 1;
+        if line.trim().is_empty() {
+            continue;
+        }
+        let cells: Vec<&str> = line.split(',').map(str::trim).collect();
+        if cells.len() != header.len() {
+            problems.push(format!(
+                "row {row}: {} cells, the header has {}",
+                cells.len(),
+                header.len()
+            ));
+            continue;
+        }
+        let mut applicant = Map::new();
+        for (f, &i) in schema.fields.iter().zip(&at) {
+            let cell = cells[i];
+            let value = if cell.is_empty() {
+                Value::Null
+            } else {
+                match &f.ty {
+                    FieldType::Number | FieldType::Count => match cell.parse::<f64>() {
+                        Ok(x) if x.is_finite() => serde_json::json!(x),
+                        _ => {
+                            problems.push(format!(
+                                "row {row}, column {}: \"{cell}\" is not a number",
+                                f.name
+                            ));
+                            continue;
+                        }
+                    },
+                    FieldType::Boolean => match cell {
+                        "true" | "1" => Value::Bool(true),
+                        "false" | "0" => Value::Bool(false),
+                        _ => {
+                            problems.push(format!(
+                                "row {row}, column {}: \"{cell}\" is not true/false",
+                                f.name
+                            ));
+                            continue;
+                        }
+                    },
+                    FieldType::Category { .. } => Value::String(cell.to_string()),
+                }
+            };
+            applicant.insert(f.name.clone(), value);
+        }
+        match schema.check_and_encode(&Value::Object(applicant), "") {
+            Ok(e) if problems.is_empty() => columns.push(e.columns),
+            Ok(_) => {}
+            Err(e) => {
+                for fe in e.errors {
+                    problems.push(format!(
+                        "row {row}, column {}: {} [{}]",
+                        fe.field.trim_start_matches('.'),
+                        fe.message,
+                        fe.rule
+                    ));
+                }
+            }
+        }
+        match cells[target_at] {
+            "1" => defaulted.push(true),
+            "0" => defaulted.push(false),
+            other => problems.push(format!(
+                "row {row}, column {target}: \"{other}\" is not 0 or 1"
+            )),
+        }
+        if problems.len() >= 20 {
+            break;
+        }
+    }
+    if !problems.is_empty() {
+        return Err(DataError { problems });
+    }
+    if columns.is_empty() {
+        return Err(problem("no data rows".into()));
+    }
+    Ok(Dataset {
+        columns,
+        defaulted,
+        sha256: crate::artifact::sha256_hex(text.as_bytes()),
+    })
+}
