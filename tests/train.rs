@@ -128,3 +128,53 @@ fn bad_data_is_named_by_row_and_column_and_nothing_is_written() {
         assert!(!out.exists(), "case {i}: an artifact was written");
     }
 }
+
+/// A forest: smartcore fits, we re-count covers and leaf rates on the training rows. Then the
+/// path-dependent base value is exactly the training default rate (every row passes through every
+/// tree), the artifact validates (covers add up at every split), and rebuilding is byte-identical.
+#[test]
+fn trains_a_forest_with_recounted_covers() {
+    let mut spec: TrainingSpec = serde_json::from_str(
+        &std::fs::read_to_string("models/fernhill-forest.train.json").unwrap(),
+    )
+    .unwrap();
+    spec.forest = Some(plumbline::train::forest::ForestParams {
+        trees: 8,
+        max_depth: 5,
+        min_samples_leaf: 20,
+    });
+    let (csv, _) = applications_csv(3_000, 5);
+    let (a, report) = train_logistic_or_forest(&spec, &csv);
+    let (b, _) = train_logistic_or_forest(&spec, &csv);
+    assert_eq!(a, b, "rebuilds are byte-identical");
+    let model = plumbline::LoadedModel::from_slice(a.as_bytes()).unwrap();
+    assert!(
+        (model.explainer.base_value() - report.base_rate).abs() < 1e-12,
+        "base value {} vs base rate {}",
+        model.explainer.base_value(),
+        report.base_rate
+    );
+    let auc = model.provenance.as_ref().unwrap()["cv_auc_mean"]
+        .as_f64()
+        .unwrap();
+    assert!((0.6..0.85).contains(&auc), "CV AUC {auc}");
+    let req: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string("demo-requests/applications/thin-file-decline.json").unwrap(),
+    )
+    .unwrap();
+    let d = plumbline::decide_request(&model, &req).unwrap();
+    let total = d.contributions.base_value
+        + d.contributions
+            .fields
+            .iter()
+            .map(|f| f.contribution)
+            .sum::<f64>();
+    assert!((total - d.probability_of_default).abs() < 1e-12);
+}
+
+fn train_logistic_or_forest(
+    spec: &TrainingSpec,
+    csv: &str,
+) -> (String, plumbline::train::build::TrainReport) {
+    plumbline::train::build::train(spec, csv, 3, 9).unwrap()
+}

@@ -135,7 +135,7 @@ fn train(
             return EXIT_BAD_INPUT;
         }
     };
-    match crate::train::build::train_logistic(&spec, &csv, folds, seed) {
+    match crate::train::build::train(&spec, &csv, folds, seed) {
         Ok((artifact, report)) => {
             if let Err(e) = std::fs::write(out, artifact) {
                 eprintln!("error: cannot write {}: {e}", out.display());

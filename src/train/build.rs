@@ -24,9 +24,47 @@ pub struct TrainingSpec {
     pub reasons: Vec<ReasonSpec>,
     pub policy: PolicySpec,
     pub reference: ReferenceChoice,
-    /// L2 penalty on standardised slopes; 0 = maximum likelihood.
+    /// L2 penalty on standardised slopes (logistic); 0 = maximum likelihood.
     #[serde(default)]
     pub l2: f64,
+    /// `logistic` (default) or `forest`.
+    #[serde(default)]
+    pub kind: ModelKind,
+    /// Forest settings (kind `forest`).
+    #[serde(default)]
+    pub forest: Option<super::forest::ForestParams>,
+}
+
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ModelKind {
+    #[default]
+    Logistic,
+    Forest,
+}
+
+/// Rows of the background sample kept in a forest artifact measured against applicants near the
+/// cutoff (interventional TreeSHAP cost grows with it).
+const BACKGROUND_ROWS: usize = 200;
+
+/// Mean leaf value over trees: the forest's probability of default for one encoded row.
+fn forest_probability(
+    trees: &[crate::artifact::spec::TreeSpec],
+    names: &[String],
+    x: &[f64],
+) -> f64 {
+    let mut total = 0.0;
+    for t in trees {
+        let mut n = &t.nodes[0];
+        while let (Some(col), Some(thr), Some(l), Some(r)) =
+            (&n.column, n.threshold, n.left, n.right)
+        {
+            let c = names.iter().position(|v| v == col).unwrap_or(0);
+            n = &t.nodes[if x[c] <= thr { l } else { r }];
+        }
+        total += n.value.unwrap_or(0.0);
+    }
+    total / trees.len().max(1) as f64
 }
 
 #[derive(Debug, Clone, Deserialize)]
@@ -104,6 +142,7 @@ pub fn train_logistic(
         columns: x,
         defaulted: y,
         sha256,
+        ..
     } = read_csv(csv, &schema, &spec.target).map_err(|e| TrainError::Data(e.to_string()))?;
     let names: Vec<String> = schema.columns.iter().map(|c| c.name.clone()).collect();
     let fit_err = |e: logistic::FitError| match e {
@@ -207,6 +246,142 @@ pub fn train_logistic(
             base_rate,
             cv_auc,
             fit: model,
+            columns: names,
+        },
+    ))
+}
+
+/// Trains the kind the spec names.
+pub fn train(
+    spec: &TrainingSpec,
+    csv: &str,
+    folds: usize,
+    seed: u64,
+) -> Result<(String, TrainReport), TrainError> {
+    match spec.kind {
+        ModelKind::Logistic => train_logistic(spec, csv, folds, seed),
+        ModelKind::Forest => train_forest(spec, csv, folds, seed),
+    }
+}
+
+/// A random forest (smartcore, re-counted covers); path-dependent TreeSHAP against all
+/// applicants, or interventional TreeSHAP against applicants just inside the approve cutoff.
+pub fn train_forest(
+    spec: &TrainingSpec,
+    csv: &str,
+    folds: usize,
+    seed: u64,
+) -> Result<(String, TrainReport), TrainError> {
+    let params = spec.forest.ok_or_else(|| {
+        TrainError::Spec(
+            "kind forest needs \"forest\": {\"trees\", \"max_depth\", \"min_samples_leaf\"}".into(),
+        )
+    })?;
+    if !(1..=1000).contains(&params.trees)
+        || !(1..=40).contains(&params.max_depth)
+        || params.min_samples_leaf == 0
+    {
+        return Err(TrainError::Spec(
+            "forest: trees 1-1000, max_depth 1-40, min_samples_leaf at least 1".into(),
+        ));
+    }
+    if !(2..=20).contains(&folds) {
+        return Err(TrainError::Spec("folds must be 2 to 20".into()));
+    }
+    let schema: Schema = crate::artifact::schema_from_specs(&spec.features, &spec.reasons, true)
+        .map_err(|e| TrainError::Spec(e.to_string()))?;
+    let data = read_csv(csv, &schema, &spec.target).map_err(|e| TrainError::Data(e.to_string()))?;
+    let (x, y) = (&data.columns, &data.defaulted);
+    let names: Vec<String> = schema.columns.iter().map(|c| c.name.clone()).collect();
+    let positives = y.iter().filter(|&&d| d).count();
+    if positives == 0 || positives == y.len() {
+        return Err(TrainError::Fit(format!(
+            "the outcome has one class only ({} rows); a default model needs both",
+            y.len()
+        )));
+    }
+    let trees = super::forest::fit(x, y, &names, params, seed).map_err(TrainError::Fit)?;
+
+    let fold = stratified_folds(y, folds, seed);
+    let mut cv_auc = Vec::with_capacity(folds);
+    for f in 0..folds {
+        let (train, test): (Vec<usize>, Vec<usize>) = (0..y.len()).partition(|&i| fold[i] != f);
+        let xs: Vec<Vec<f64>> = train.iter().map(|&i| x[i].clone()).collect();
+        let ys: Vec<bool> = train.iter().map(|&i| y[i]).collect();
+        let m = super::forest::fit(&xs, &ys, &names, params, seed).map_err(TrainError::Fit)?;
+        let scores: Vec<f64> = test
+            .iter()
+            .map(|&i| forest_probability(&m, &names, &x[i]))
+            .collect();
+        let truth: Vec<bool> = test.iter().map(|&i| y[i]).collect();
+        cv_auc.push(
+            crate::evaluate::auc(&scores, &truth)
+                .ok_or_else(|| TrainError::Fit(format!("fold {f} holds one class only")))?,
+        );
+    }
+
+    let cutoff = spec.policy.approve_below;
+    let (method, background): (&str, Vec<Value>) = match spec.reference.population {
+        Population::AllApplicants => ("tree_path_dependent", Vec::new()),
+        Population::NearApproveCutoff => {
+            let band: Vec<Value> = (0..x.len())
+                .filter(|&i| {
+                    let p = forest_probability(&trees, &names, &x[i]);
+                    p >= cutoff - spec.reference.band && p < cutoff
+                })
+                .take(BACKGROUND_ROWS)
+                .map(|i| Value::Object(data.applicants[i].clone()))
+                .collect();
+            if band.len() < 30 {
+                return Err(TrainError::Fit(format!(
+                    "only {} applicants in the reference band; widen reference.band",
+                    band.len()
+                )));
+            }
+            ("tree_interventional", band)
+        }
+    };
+    let base_rate = positives as f64 / y.len() as f64;
+    let (auc_mean, auc_sd) = mean_sd(&cv_auc);
+    let mut explanation = json!({"method": method, "reference": {"population": spec.reference.population, "label": spec.reference.label}});
+    if !background.is_empty() {
+        explanation["background"] = Value::Array(background);
+    }
+    let artifact = json!({
+        "format": crate::artifact::spec::FORMAT_TAG,
+        "format_version": crate::artifact::spec::FORMAT_VERSION,
+        "identity": {
+            "model_id": spec.model_id, "version": spec.version, "description": spec.description,
+            "created_at": spec.created_at, "producer": format!("plumbline {} train (smartcore 0.4 random forest, covers re-counted)", crate::VERSION),
+        },
+        "features": spec.features,
+        "model": {"kind": "tree_ensemble", "aggregation": "mean_probability", "trees": trees},
+        "explanation": explanation,
+        "reasons": spec.reasons,
+        "policy": spec.policy,
+        "provenance": {
+            "rows": y.len(), "base_rate": base_rate, "data_sha256": data.sha256, "seed": seed, "folds": folds,
+            "cv_auc_mean": auc_mean, "cv_auc_sd": auc_sd, "forest": params,
+            "method": "smartcore random forest; node covers and leaf default rates re-counted on the training rows",
+        },
+    });
+    crate::LoadedModel::from_value(&artifact).map_err(|e| TrainError::Artifact(e.to_string()))?;
+    let text = serde_json::to_string_pretty(&artifact)
+        .map_err(|e| TrainError::Artifact(e.to_string()))?
+        + "\n";
+    let fit = LogisticFit {
+        coefficients: Vec::new(),
+        std_errors: Vec::new(),
+        log_likelihood: f64::NAN,
+        iterations: 0,
+    };
+    Ok((
+        text,
+        TrainReport {
+            rows: y.len(),
+            base_rate,
+            cv_auc,
+            fit,
             columns: names,
         },
     ))

@@ -8,6 +8,8 @@ use serde_json::{Map, Value};
 #[derive(Debug, Clone)]
 pub struct Dataset {
     pub columns: Vec<Vec<f64>>,
+    /// The rows as applicant objects (for background samples).
+    pub applicants: Vec<Map<String, Value>>,
     pub defaulted: Vec<bool>,
     /// SHA-256 of the file's bytes, for provenance.
     pub sha256: String,
@@ -53,7 +55,7 @@ pub fn read_csv(text: &str, schema: &Schema, target: &str) -> Result<Dataset, Da
         });
     }
     let mut problems = Vec::new();
-    let (mut columns, mut defaulted) = (Vec::new(), Vec::new());
+    let (mut columns, mut defaulted, mut applicants) = (Vec::new(), Vec::new(), Vec::new());
     for (n, line) in lines.enumerate() {
         let row = n + 1;
         if line.trim().is_empty() {
@@ -101,8 +103,14 @@ pub fn read_csv(text: &str, schema: &Schema, target: &str) -> Result<Dataset, Da
             };
             applicant.insert(f.name.clone(), value);
         }
-        match schema.check_and_encode(&Value::Object(applicant), "") {
-            Ok(e) if problems.is_empty() => columns.push(e.columns),
+        let object = Value::Object(applicant);
+        match schema.check_and_encode(&object, "") {
+            Ok(e) if problems.is_empty() => {
+                columns.push(e.columns);
+                if let Value::Object(m) = object {
+                    applicants.push(m);
+                }
+            }
             Ok(_) => {}
             Err(e) => {
                 for fe in e.errors {
@@ -134,6 +142,7 @@ pub fn read_csv(text: &str, schema: &Schema, target: &str) -> Result<Dataset, Da
     }
     Ok(Dataset {
         columns,
+        applicants,
         defaulted,
         sha256: crate::artifact::sha256_hex(text.as_bytes()),
     })

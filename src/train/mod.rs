@@ -5,6 +5,7 @@
 pub mod build;
 mod dataset;
 pub mod demo_data;
+pub mod forest;
 pub mod logistic;
 mod rng;
 
