@@ -178,3 +178,75 @@ fn train_logistic_or_forest(
 ) -> (String, plumbline::train::build::TrainReport) {
     plumbline::train::build::train(spec, csv, 3, 9).unwrap()
 }
+
+#[test]
+fn evaluate_reports_discrimination_calibration_and_costs() {
+    let dir = std::env::temp_dir().join(format!("plumbline-eval-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let (csv, _) = applications_csv(2_000, 21);
+    let data = dir.join("holdout.csv");
+    std::fs::write(&data, &csv).unwrap();
+    let out = Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args([
+            "evaluate",
+            "--model",
+            "models/fernhill-logistic.json",
+            "--data",
+            data.to_str().unwrap(),
+            "--json",
+        ])
+        .output()
+        .unwrap();
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let r: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(r["rows"], 2_000);
+    assert_eq!(r["calibration"].as_array().unwrap().len(), 10);
+    let auc = r["auc"].as_f64().unwrap();
+    assert!((r["gini"].as_f64().unwrap() - (2.0 * auc - 1.0)).abs() < 1e-12);
+    assert!(
+        (r["accuracy_approve_everyone"].as_f64().unwrap()
+            - (1.0 - r["base_rate"].as_f64().unwrap()))
+        .abs()
+            < 1e-12
+    );
+    let opt = r["cost_optimal"]["expected_cost_per_application"]
+        .as_f64()
+        .unwrap();
+    assert!(
+        opt <= r["at_approve_cutoff"]["expected_cost_per_application"]
+            .as_f64()
+            .unwrap()
+            + 1e-12
+    );
+    // One outcome class only: nothing to evaluate, said clearly.
+    let one = csv
+        .lines()
+        .enumerate()
+        .map(|(i, l)| {
+            if i == 0 {
+                l.to_string()
+            } else {
+                format!("{}0", &l[..l.len() - 1])
+            }
+        })
+        .collect::<Vec<_>>()
+        .join("\n");
+    std::fs::write(&data, one).unwrap();
+    let out = Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args([
+            "evaluate",
+            "--model",
+            "models/fernhill-logistic.json",
+            "--data",
+            data.to_str().unwrap(),
+        ])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("one outcome class"));
+}

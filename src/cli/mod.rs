@@ -1,6 +1,7 @@
 //! The command line: a thin shell over the library. Exit status 0 on success, 2 for bad input
 //! (artifact or applicant), 1 for anything else (I/O).
 
+mod evaluate;
 mod inspect;
 mod score;
 mod serve;
@@ -71,6 +72,27 @@ pub enum Command {
         #[arg(long, default_value_t = 2026)]
         seed: u64,
     },
+    /// Measure a model on labelled data: AUC, KS, Gini, Brier, log loss, calibration by decile,
+    /// outcomes and expected cost at the model's cutoffs and at the cost-optimal cutoff.
+    Evaluate {
+        #[arg(long)]
+        model: PathBuf,
+        /// CSV with the model's fields and the outcome column.
+        #[arg(long)]
+        data: PathBuf,
+        /// Outcome column (1 = defaulted, 0 = repaid).
+        #[arg(long, default_value = "defaulted")]
+        target: String,
+        /// Cost of approving an application that defaults.
+        #[arg(long, default_value_t = 5.0)]
+        cost_missed_default: f64,
+        /// Cost of declining an application that would have repaid.
+        #[arg(long, default_value_t = 1.0)]
+        cost_lost_good: f64,
+        /// Print JSON instead of a table.
+        #[arg(long)]
+        json: bool,
+    },
     /// Print the key-file entry for an API key read from stdin (its SHA-256; the key itself is
     /// never stored).
     HashKey {
@@ -95,6 +117,20 @@ pub fn run(cli: Cli) -> i32 {
         Command::Score { model, input } => score::run(&model, input.as_deref()),
         Command::Serve(args) => serve::run(args),
         Command::HashKey { name, role } => serve::hash_key(&name, &role),
+        Command::Evaluate {
+            model,
+            data,
+            target,
+            cost_missed_default,
+            cost_lost_good,
+            json,
+        } => evaluate::run(
+            &model,
+            &data,
+            &target,
+            (cost_missed_default, cost_lost_good),
+            json,
+        ),
         Command::Train {
             data,
             spec,

@@ -1,5 +1,10 @@
-//! Discrimination metrics for default models. So far the area under the ROC curve (AUC), the
-//! Kolmogorov-Smirnov statistic and Gini; calibration and costs follow (model-building issue).
+//! Evaluating default models: discrimination (AUC, KS, Gini), calibration and the cost of cutoffs
+//! ([`report`]). The metric functions:
+//! area under the ROC curve (AUC), the Kolmogorov-Smirnov statistic and Gini.
+
+pub mod report;
+
+pub use report::{report, Report};
 
 /// AUC by the Mann-Whitney statistic: the probability that a random defaulter scores above a
 /// random non-defaulter, ties counting half. `None` when either class is empty.

@@ -3,7 +3,7 @@
 //! validated artifact. Forests follow (see the model-building issue).
 
 pub mod build;
-mod dataset;
+pub mod dataset;
 pub mod demo_data;
 pub mod forest;
 pub mod logistic;
