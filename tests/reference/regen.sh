@@ -29,14 +29,15 @@ unset PYTHONPATH
 out="$(mktemp -d)"
 trap 'rm -rf "$out"' EXIT
 "$PLUMBLINE_PY" tests/reference/make_fixtures.py "$out"
+"$PLUMBLINE_PY" tests/reference/make_metrics.py "$out"
 
 fixtures=tests/reference/fixtures
 if [ "$write" = 1 ]; then
     mkdir -p "$fixtures"
-    for f in lightgbm.json forest.json expected.json; do
+    for f in lightgbm.json forest.json expected.json metrics.json; do
         cp "$out/$f" "$fixtures/$f"
     done
-    echo "regen: wrote $fixtures/{lightgbm,forest,expected}.json"
+    echo "regen: wrote $fixtures/{lightgbm,forest,expected,metrics}.json"
     exit 0
 fi
 
