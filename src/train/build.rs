@@ -47,24 +47,46 @@ pub enum ModelKind {
 /// cutoff (interventional TreeSHAP cost grows with it).
 const BACKGROUND_ROWS: usize = 200;
 
-/// Mean leaf value over trees: the forest's probability of default for one encoded row.
-fn forest_probability(
+/// Mean leaf value over trees, the forest's probability of default, for each of `rows`.
+fn forest_scores(
     trees: &[crate::artifact::spec::TreeSpec],
     names: &[String],
-    x: &[f64],
-) -> f64 {
-    let mut total = 0.0;
-    for t in trees {
-        let mut n = &t.nodes[0];
-        while let (Some(col), Some(thr), Some(l), Some(r)) =
-            (&n.column, n.threshold, n.left, n.right)
-        {
-            let c = names.iter().position(|v| v == col).unwrap_or(0);
-            n = &t.nodes[if x[c] <= thr { l } else { r }];
-        }
-        total += n.value.unwrap_or(0.0);
-    }
-    total / trees.len().max(1) as f64
+    rows: &[&[f64]],
+) -> Vec<f64> {
+    // (column index, threshold, left, right) per node; usize::MAX marks a leaf.
+    let compiled: Vec<Vec<(usize, f64, usize, usize, f64)>> = trees
+        .iter()
+        .map(|t| {
+            t.nodes
+                .iter()
+                .map(|n| match (&n.column, n.threshold, n.left, n.right) {
+                    (Some(c), Some(thr), Some(l), Some(r)) => (
+                        names.iter().position(|v| v == c).unwrap_or(0),
+                        thr,
+                        l,
+                        r,
+                        0.0,
+                    ),
+                    _ => (usize::MAX, 0.0, 0, 0, n.value.unwrap_or(0.0)),
+                })
+                .collect()
+        })
+        .collect();
+    rows.iter()
+        .map(|x| {
+            let total: f64 = compiled
+                .iter()
+                .map(|t| {
+                    let mut n = 0;
+                    while t[n].0 != usize::MAX {
+                        n = if x[t[n].0] <= t[n].1 { t[n].2 } else { t[n].3 };
+                    }
+                    t[n].4
+                })
+                .sum();
+            total / compiled.len().max(1) as f64
+        })
+        .collect()
 }
 
 #[derive(Debug, Clone, Deserialize)]
@@ -309,10 +331,8 @@ pub fn train_forest(
         let xs: Vec<Vec<f64>> = train.iter().map(|&i| x[i].clone()).collect();
         let ys: Vec<bool> = train.iter().map(|&i| y[i]).collect();
         let m = super::forest::fit(&xs, &ys, &names, params, seed).map_err(TrainError::Fit)?;
-        let scores: Vec<f64> = test
-            .iter()
-            .map(|&i| forest_probability(&m, &names, &x[i]))
-            .collect();
+        let rows: Vec<&[f64]> = test.iter().map(|&i| x[i].as_slice()).collect();
+        let scores = forest_scores(&m, &names, &rows);
         let truth: Vec<bool> = test.iter().map(|&i| y[i]).collect();
         cv_auc.push(
             crate::evaluate::auc(&scores, &truth)
@@ -324,11 +344,10 @@ pub fn train_forest(
     let (method, background): (&str, Vec<Value>) = match spec.reference.population {
         Population::AllApplicants => ("tree_path_dependent", Vec::new()),
         Population::NearApproveCutoff => {
+            let all: Vec<&[f64]> = x.iter().map(Vec::as_slice).collect();
+            let p = forest_scores(&trees, &names, &all);
             let band: Vec<Value> = (0..x.len())
-                .filter(|&i| {
-                    let p = forest_probability(&trees, &names, &x[i]);
-                    p >= cutoff - spec.reference.band && p < cutoff
-                })
+                .filter(|&i| p[i] >= cutoff - spec.reference.band && p[i] < cutoff)
                 .take(BACKGROUND_ROWS)
                 .map(|i| Value::Object(data.applicants[i].clone()))
                 .collect();
