@@ -53,8 +53,9 @@ fn forest_scores(
     names: &[String],
     rows: &[&[f64]],
 ) -> Vec<f64> {
-    // (column index, threshold, left, right) per node; usize::MAX marks a leaf.
-    let compiled: Vec<Vec<(usize, f64, usize, usize, f64)>> = trees
+    // (column index, threshold, left, right, leaf value) per node; usize::MAX marks a leaf.
+    type Flat = (usize, f64, usize, usize, f64);
+    let compiled: Vec<Vec<Flat>> = trees
         .iter()
         .map(|t| {
             t.nodes
