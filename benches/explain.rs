@@ -47,7 +47,7 @@ fn from_dir(dir: &std::path::Path) -> Vec<Case> {
 }
 
 fn synthetic() -> Vec<Case> {
-    let mut rng = common::Rng(7);
+    let mut rng = common::Rng::new(7);
     let shapes = [
         (
             "synthetic_boosted500_depth6",

@@ -13,7 +13,7 @@ proptest! {
 
     #[test]
     fn path_dependent_is_additive_and_deterministic(seed in any::<u64>(), trees in 1usize..12, depth in 1usize..10, forest in any::<bool>()) {
-        let mut rng = Rng(seed);
+        let mut rng = Rng::new(seed);
         let agg = if forest { Aggregation::MeanProbability } else { Aggregation::SumLogOdds };
         let columns = 9;
         let e = random_ensemble(&mut rng, trees, columns, depth, agg);
@@ -29,7 +29,7 @@ proptest! {
 
     #[test]
     fn interventional_is_additive_and_deterministic(seed in any::<u64>(), trees in 1usize..8, depth in 1usize..9, rows in 1usize..20) {
-        let mut rng = Rng(seed);
+        let mut rng = Rng::new(seed);
         let columns = 7;
         let e = random_ensemble(&mut rng, trees, columns, depth, Aggregation::SumLogOdds);
         let background: Vec<Vec<f64>> = (0..rows).map(|_| random_row(&mut rng, columns)).collect();

@@ -89,7 +89,7 @@ fn assert_close(got: &[f64], want: &[f64], tol: f64, what: &str) {
 }
 
 fn check_path_dependent(seed: u64, columns: usize, depth: usize, trees: usize, agg: Aggregation) {
-    let mut rng = Rng(seed);
+    let mut rng = Rng::new(seed);
     let e = random_ensemble(&mut rng, trees, columns, depth, agg);
     // Quadrature (the default) and the per-leaf closed form (forced with limit 0) both exact.
     for quadrature in [true, false] {
@@ -155,7 +155,7 @@ fn path_dependent_matches_enumeration_deep_repeated_columns() {
 #[test]
 fn interventional_matches_enumeration() {
     for seed in 300..340 {
-        let mut rng = Rng(seed);
+        let mut rng = Rng::new(seed);
         let columns = 6;
         let agg = if seed % 2 == 0 {
             Aggregation::SumLogOdds

@@ -150,6 +150,60 @@ fn stratified_folds(y: &[bool], k: usize, seed: u64) -> Vec<usize> {
     fold
 }
 
+/// Stratified k-fold cross-validated AUC: `fit_score(train, test)` fits on the train rows and
+/// returns scores for the test rows.
+fn cross_validate(
+    y: &[bool],
+    folds: usize,
+    seed: u64,
+    mut fit_score: impl FnMut(&[usize], &[usize]) -> Result<Vec<f64>, TrainError>,
+) -> Result<Vec<f64>, TrainError> {
+    let fold = stratified_folds(y, folds, seed);
+    (0..folds)
+        .map(|f| {
+            let (train, test): (Vec<usize>, Vec<usize>) = (0..y.len()).partition(|&i| fold[i] != f);
+            let scores = fit_score(&train, &test)?;
+            let truth: Vec<bool> = test.iter().map(|&i| y[i]).collect();
+            crate::evaluate::auc(&scores, &truth)
+                .ok_or_else(|| TrainError::Fit(format!("fold {f} holds one class only")))
+        })
+        .collect()
+}
+
+/// The artifact around a fitted body: identity, the spec's fields, reasons and policy, and
+/// provenance; validated by loading it before it is returned.
+fn assemble(
+    spec: &TrainingSpec,
+    producer: &str,
+    model: Value,
+    explanation: Value,
+    mut provenance: Value,
+    cv_auc: &[f64],
+) -> Result<String, TrainError> {
+    let (auc_mean, auc_sd) = mean_sd(cv_auc);
+    provenance["folds"] = json!(cv_auc.len());
+    provenance["cv_auc_mean"] = json!(auc_mean);
+    provenance["cv_auc_sd"] = json!(auc_sd);
+    let artifact = json!({
+        "format": crate::artifact::spec::FORMAT_TAG,
+        "format_version": crate::artifact::spec::FORMAT_VERSION,
+        "identity": {
+            "model_id": spec.model_id, "version": spec.version, "description": spec.description,
+            "created_at": spec.created_at, "producer": producer,
+        },
+        "features": spec.features,
+        "model": model,
+        "explanation": explanation,
+        "reasons": spec.reasons,
+        "policy": spec.policy,
+        "provenance": provenance,
+    });
+    crate::LoadedModel::from_value(&artifact).map_err(|e| TrainError::Artifact(e.to_string()))?;
+    serde_json::to_string_pretty(&artifact)
+        .map(|t| t + "\n")
+        .map_err(|e| TrainError::Artifact(e.to_string()))
+}
+
 pub fn train_logistic(
     spec: &TrainingSpec,
     csv: &str,
@@ -177,20 +231,12 @@ pub fn train_logistic(
     };
     let model = logistic::fit(&x, &y, spec.l2).map_err(fit_err)?;
 
-    let fold = stratified_folds(&y, folds, seed);
-    let mut cv_auc = Vec::with_capacity(folds);
-    for f in 0..folds {
-        let (train, test): (Vec<usize>, Vec<usize>) = (0..y.len()).partition(|&i| fold[i] != f);
+    let cv_auc = cross_validate(&y, folds, seed, |train, test| {
         let xs: Vec<Vec<f64>> = train.iter().map(|&i| x[i].clone()).collect();
         let ys: Vec<bool> = train.iter().map(|&i| y[i]).collect();
         let m = logistic::fit(&xs, &ys, spec.l2).map_err(fit_err)?;
-        let scores: Vec<f64> = test.iter().map(|&i| m.log_odds(&x[i])).collect();
-        let truth: Vec<bool> = test.iter().map(|&i| y[i]).collect();
-        cv_auc.push(
-            crate::evaluate::auc(&scores, &truth)
-                .ok_or_else(|| TrainError::Fit(format!("fold {f} holds one class only")))?,
-        );
-    }
+        Ok(test.iter().map(|&i| m.log_odds(&x[i])).collect())
+    })?;
 
     // Reference population for contributions (Regulation B comment 9(b)(2)-5).
     let cutoff = spec.policy.approve_below;
@@ -234,34 +280,22 @@ pub fn train_logistic(
             )
             .collect();
     let base_rate = y.iter().filter(|&&d| d).count() as f64 / y.len() as f64;
-    let (auc_mean, auc_sd) = mean_sd(&cv_auc);
-    let artifact = json!({
-        "format": crate::artifact::spec::FORMAT_TAG,
-        "format_version": crate::artifact::spec::FORMAT_VERSION,
-        "identity": {
-            "model_id": spec.model_id, "version": spec.version, "description": spec.description,
-            "created_at": spec.created_at, "producer": format!("plumbline {} train", crate::VERSION),
-        },
-        "features": spec.features,
-        "model": {"kind": "logistic", "intercept": model.coefficients[0], "coefficients": coefficients},
-        "explanation": {
+    let text = assemble(
+        spec,
+        &format!("plumbline {} train", crate::VERSION),
+        json!({"kind": "logistic", "intercept": model.coefficients[0], "coefficients": coefficients}),
+        json!({
             "method": "linear",
             "reference": {"population": spec.reference.population, "label": spec.reference.label},
             "mean": mean,
-        },
-        "reasons": spec.reasons,
-        "policy": spec.policy,
-        "provenance": {
-            "rows": y.len(), "base_rate": base_rate, "data_sha256": sha256, "seed": seed, "folds": folds,
-            "cv_auc_mean": auc_mean, "cv_auc_sd": auc_sd, "l2": spec.l2,
+        }),
+        json!({
+            "rows": y.len(), "base_rate": base_rate, "data_sha256": sha256, "seed": seed, "l2": spec.l2,
             "reference_rows": members.len(), "std_errors": std_errors,
             "method": "maximum likelihood (IRLS); Wald standard errors",
-        },
-    });
-    crate::LoadedModel::from_value(&artifact).map_err(|e| TrainError::Artifact(e.to_string()))?;
-    let text = serde_json::to_string_pretty(&artifact)
-        .map_err(|e| TrainError::Artifact(e.to_string()))?
-        + "\n";
+        }),
+        &cv_auc,
+    )?;
     Ok((
         text,
         TrainReport {
@@ -325,21 +359,13 @@ pub fn train_forest(
     }
     let trees = super::forest::fit(x, y, &names, params, seed).map_err(TrainError::Fit)?;
 
-    let fold = stratified_folds(y, folds, seed);
-    let mut cv_auc = Vec::with_capacity(folds);
-    for f in 0..folds {
-        let (train, test): (Vec<usize>, Vec<usize>) = (0..y.len()).partition(|&i| fold[i] != f);
+    let cv_auc = cross_validate(y, folds, seed, |train, test| {
         let xs: Vec<Vec<f64>> = train.iter().map(|&i| x[i].clone()).collect();
         let ys: Vec<bool> = train.iter().map(|&i| y[i]).collect();
         let m = super::forest::fit(&xs, &ys, &names, params, seed).map_err(TrainError::Fit)?;
         let rows: Vec<&[f64]> = test.iter().map(|&i| x[i].as_slice()).collect();
-        let scores = forest_scores(&m, &names, &rows);
-        let truth: Vec<bool> = test.iter().map(|&i| y[i]).collect();
-        cv_auc.push(
-            crate::evaluate::auc(&scores, &truth)
-                .ok_or_else(|| TrainError::Fit(format!("fold {f} holds one class only")))?,
-        );
-    }
+        Ok(forest_scores(&m, &names, &rows))
+    })?;
 
     let cutoff = spec.policy.approve_below;
     let (method, background): (&str, Vec<Value>) = match spec.reference.population {
@@ -362,33 +388,24 @@ pub fn train_forest(
         }
     };
     let base_rate = positives as f64 / y.len() as f64;
-    let (auc_mean, auc_sd) = mean_sd(&cv_auc);
     let mut explanation = json!({"method": method, "reference": {"population": spec.reference.population, "label": spec.reference.label}});
     if !background.is_empty() {
         explanation["background"] = Value::Array(background);
     }
-    let artifact = json!({
-        "format": crate::artifact::spec::FORMAT_TAG,
-        "format_version": crate::artifact::spec::FORMAT_VERSION,
-        "identity": {
-            "model_id": spec.model_id, "version": spec.version, "description": spec.description,
-            "created_at": spec.created_at, "producer": format!("plumbline {} train (smartcore 0.4 random forest, covers re-counted)", crate::VERSION),
-        },
-        "features": spec.features,
-        "model": {"kind": "tree_ensemble", "aggregation": "mean_probability", "trees": trees},
-        "explanation": explanation,
-        "reasons": spec.reasons,
-        "policy": spec.policy,
-        "provenance": {
-            "rows": y.len(), "base_rate": base_rate, "data_sha256": data.sha256, "seed": seed, "folds": folds,
-            "cv_auc_mean": auc_mean, "cv_auc_sd": auc_sd, "forest": params,
+    let text = assemble(
+        spec,
+        &format!(
+            "plumbline {} train (smartcore 0.4 random forest, covers re-counted)",
+            crate::VERSION
+        ),
+        json!({"kind": "tree_ensemble", "aggregation": "mean_probability", "trees": trees}),
+        explanation,
+        json!({
+            "rows": y.len(), "base_rate": base_rate, "data_sha256": data.sha256, "seed": seed, "forest": params,
             "method": "smartcore random forest; node covers and leaf default rates re-counted on the training rows",
-        },
-    });
-    crate::LoadedModel::from_value(&artifact).map_err(|e| TrainError::Artifact(e.to_string()))?;
-    let text = serde_json::to_string_pretty(&artifact)
-        .map_err(|e| TrainError::Artifact(e.to_string()))?
-        + "\n";
+        }),
+        &cv_auc,
+    )?;
     let fit = LogisticFit {
         coefficients: Vec::new(),
         std_errors: Vec::new(),

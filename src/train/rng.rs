@@ -21,6 +21,11 @@ impl Rng {
         (self.next_u64() >> 11) as f64 / (1u64 << 53) as f64
     }
 
+    /// Uniform in 0..n.
+    pub fn below(&mut self, n: usize) -> usize {
+        (self.next_u64() % n as u64) as usize
+    }
+
     pub fn bernoulli(&mut self, p: f64) -> bool {
         self.unit() < p
     }

@@ -6,24 +6,8 @@ pub mod server;
 use plumbline::artifact::spec::Aggregation;
 use plumbline::model::{forest::LEAF, Ensemble, Node, Tree};
 
-/// SplitMix64: small, seeded, reproducible.
-pub struct Rng(pub u64);
-
-impl Rng {
-    pub fn next_u64(&mut self) -> u64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-    pub fn unit(&mut self) -> f64 {
-        (self.next_u64() >> 11) as f64 / (1u64 << 53) as f64
-    }
-    pub fn below(&mut self, n: usize) -> usize {
-        (self.next_u64() % n as u64) as usize
-    }
-}
+/// The library's seeded generator (SplitMix64), so test ensembles are reproducible.
+pub use plumbline::train::Rng;
 
 /// A random tree over `columns` columns, at most `max_depth` deep; thresholds on a grid of
 /// quarter steps in [0, 1] so that ties with row values occur; covers are whole numbers
