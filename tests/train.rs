@@ -31,9 +31,25 @@ fn trains_a_valid_deterministic_artifact() {
     assert_eq!(report.cv_auc.len(), 5);
     // The fitted signs follow the process: more delinquencies and utilisation, more risk.
     let col = |n: &str| report.columns.iter().position(|c| c == n).unwrap() + 1;
-    assert!(report.fit.coefficients[col("delinquencies_24m")] > 0.0);
-    assert!(report.fit.coefficients[col("revolving_utilization")] > 0.0);
-    assert!(report.fit.coefficients[col("annual_income")] < 0.0);
+    assert!(report.fit.as_ref().unwrap().coefficients[col("delinquencies_24m")] > 0.0);
+    assert!(report.fit.as_ref().unwrap().coefficients[col("revolving_utilization")] > 0.0);
+    assert!(report.fit.as_ref().unwrap().coefficients[col("annual_income")] < 0.0);
+}
+
+/// The same rows with every outcome (the last cell) set to 0: one class only.
+fn all_repaid(csv: &str) -> String {
+    let lines: Vec<String> = csv
+        .lines()
+        .enumerate()
+        .map(|(i, l)| {
+            if i == 0 {
+                l.to_string()
+            } else {
+                format!("{}0", &l[..l.len() - 1])
+            }
+        })
+        .collect();
+    lines.join("\n")
 }
 
 fn corrupt(csv: &str, row: usize, column: &str, value: &str) -> String {
@@ -65,20 +81,7 @@ fn bad_data_is_named_by_row_and_column_and_nothing_is_written() {
             csv.replace(",debt_to_income,", ",dti,"),
             "no column \"debt_to_income\"",
         ),
-        (
-            csv.lines()
-                .enumerate()
-                .map(|(i, l)| {
-                    if i == 0 {
-                        l.to_string()
-                    } else {
-                        format!("{}0", &l[..l.len() - 1])
-                    }
-                })
-                .collect::<Vec<_>>()
-                .join("\n"),
-            "one class",
-        ),
+        (all_repaid(&csv), "one class"),
         (
             {
                 let lines: Vec<String> = csv.lines().map(String::from).collect();
@@ -224,18 +227,7 @@ fn evaluate_reports_discrimination_calibration_and_costs() {
             + 1e-12
     );
     // One outcome class only: nothing to evaluate, said clearly.
-    let one = csv
-        .lines()
-        .enumerate()
-        .map(|(i, l)| {
-            if i == 0 {
-                l.to_string()
-            } else {
-                format!("{}0", &l[..l.len() - 1])
-            }
-        })
-        .collect::<Vec<_>>()
-        .join("\n");
+    let one = all_repaid(&csv);
     std::fs::write(&data, one).unwrap();
     let out = Command::new(env!("CARGO_BIN_EXE_plumbline"))
         .args([

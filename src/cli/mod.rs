@@ -190,17 +190,16 @@ fn train(
                     .map(|a| format!("{a:.4}"))
                     .collect::<Vec<_>>()
             );
-            eprintln!(
-                "{:<32} {:>14} {:>12}",
-                "column", "coefficient", "std. error"
-            );
-            let names =
-                std::iter::once("(intercept)".to_string()).chain(report.columns.iter().cloned());
-            for ((n, b), se) in names
-                .zip(&report.fit.coefficients)
-                .zip(&report.fit.std_errors)
-            {
-                eprintln!("{n:<32} {b:>14.6e} {se:>12.4e}");
+            if let Some(fit) = &report.fit {
+                eprintln!(
+                    "{:<32} {:>14} {:>12}",
+                    "column", "coefficient", "std. error"
+                );
+                let names = std::iter::once("(intercept)".to_string())
+                    .chain(report.columns.iter().cloned());
+                for ((n, b), se) in names.zip(&fit.coefficients).zip(&fit.std_errors) {
+                    eprintln!("{n:<32} {b:>14.6e} {se:>12.4e}");
+                }
             }
             eprintln!("wrote {}", out.display());
             0

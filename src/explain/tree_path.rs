@@ -33,8 +33,6 @@ const MAX_POINTS: usize = QUADRATURE_MAX_DEPTH / 2;
 #[derive(Debug, Clone)]
 pub struct PathExplainer {
     trees: Vec<CompiledTree>,
-    /// Tree weight: 1/n for forests (mean), 1 for boosting (sum).
-    weight: f64,
     base: f64,
     /// Gauss-Legendre rules on [0, 1], indexed by number of points.
     rules: Vec<Rule>,
@@ -204,12 +202,7 @@ impl PathExplainer {
                 rule
             })
             .collect();
-        PathExplainer {
-            trees,
-            weight,
-            base,
-            rules,
-        }
+        PathExplainer { trees, base, rules }
     }
 
     /// Expected output over the training population (through the covers).
@@ -233,9 +226,7 @@ impl PathExplainer {
                         _ => walk::<8>(t, rule, x, out),
                     }
                 }
-                CompiledTree::PerLeaf { nodes, paths } => {
-                    per_leaf_into(nodes, paths, self.weight, x, out)
-                }
+                CompiledTree::PerLeaf { nodes, paths } => per_leaf_into(nodes, paths, x, out),
             }
         }
     }
@@ -372,8 +363,8 @@ impl<const Q: usize> Walk<'_, Q> {
 /// elementary symmetric polynomials of their zero fractions, a cold column gets
 /// `-v prod_cold(z) sum_s w(s,k) e_{h-s}(z_H)` and a hot column i
 /// `(1 - z_i) v prod_cold(z) sum_s w(s,k) e_{h-1-s}(z_{H\i})`, w(s,k) = s!(k-1-s)!/k!.
-fn per_leaf_into(nodes: &[Node], paths: &PathTree, weight: f64, x: &[f64], out: &mut [f64]) {
-    let _ = weight; // leaf values in `paths` already carry the tree weight
+/// Leaf values in `paths` already carry the tree weight.
+fn per_leaf_into(nodes: &[Node], paths: &PathTree, x: &[f64], out: &mut [f64]) {
     let mut stack = [(0u32, 0u64); super::weights::MAX_PATH_COLUMNS + 2];
     let mut top = 1;
     stack[0] = (0, u64::MAX);

@@ -122,7 +122,8 @@ pub struct TrainReport {
     pub rows: usize,
     pub base_rate: f64,
     pub cv_auc: Vec<f64>,
-    pub fit: LogisticFit,
+    /// The logistic fit (coefficients and standard errors); `None` for forests.
+    pub fit: Option<LogisticFit>,
     pub columns: Vec<String>,
 }
 
@@ -302,7 +303,7 @@ pub fn train_logistic(
             rows: y.len(),
             base_rate,
             cv_auc,
-            fit: model,
+            fit: Some(model),
             columns: names,
         },
     ))
@@ -406,19 +407,14 @@ pub fn train_forest(
         }),
         &cv_auc,
     )?;
-    let fit = LogisticFit {
-        coefficients: Vec::new(),
-        std_errors: Vec::new(),
-        log_likelihood: f64::NAN,
-        iterations: 0,
-    };
+
     Ok((
         text,
         TrainReport {
             rows: y.len(),
             base_rate,
             cv_auc,
-            fit,
+            fit: None,
             columns: names,
         },
     ))
