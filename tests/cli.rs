@@ -120,3 +120,69 @@ fn inspect_shows_digest_fields_cutoffs_and_reasons() {
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(v["sha256"], model.sha256.as_str());
 }
+
+#[test]
+fn score_can_explain_against_the_alternate_reference_for_review() {
+    let app = std::fs::read_to_string("demo-requests/applications/thin-file-decline.json").unwrap();
+    let model = "models/fernhill-logistic-trained.json";
+    let primary = plumbline(&["score", "--model", model], &app);
+    let alternate = plumbline(
+        &["score", "--model", model, "--reference", "all_applicants"],
+        &app,
+    );
+    assert!(primary.status.success() && alternate.status.success());
+    let p: serde_json::Value = serde_json::from_slice(&primary.stdout).unwrap();
+    let a: serde_json::Value = serde_json::from_slice(&alternate.stdout).unwrap();
+    assert_eq!(
+        p["contributions"]["reference"]["population"],
+        "near_approve_cutoff"
+    );
+    assert_eq!(
+        a["contributions"]["reference"]["population"],
+        "all_applicants"
+    );
+    assert_eq!(
+        p["probability_of_default"], a["probability_of_default"],
+        "same model"
+    );
+    // The hand-assembled demo model carries one population only: a clear refusal.
+    let none = plumbline(
+        &[
+            "score",
+            "--model",
+            "models/fernhill-logistic.json",
+            "--reference",
+            "all_applicants",
+        ],
+        &app,
+    );
+    assert_eq!(none.status.code(), Some(2));
+    assert!(
+        text(&none.stderr).contains("no such reference population"),
+        "{}",
+        text(&none.stderr)
+    );
+}
+
+#[test]
+fn draft_spec_prints_an_editable_spec_and_writes_nothing() {
+    let dir = std::env::temp_dir().join(format!("plumbline-draft-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let data = dir.join("past-applications.csv");
+    std::fs::write(
+        &data,
+        plumbline::train::demo_data::applications_csv(500, 3).0,
+    )
+    .unwrap();
+    let out = plumbline(&["draft-spec", "--data", data.to_str().unwrap()], "");
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    let spec: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(spec["model_id"], "past-applications");
+    assert_eq!(spec["target"], "defaulted");
+    assert!(text(&out.stderr).contains("left out application_id"));
+    assert_eq!(
+        std::fs::read_dir(&dir).unwrap().count(),
+        1,
+        "nothing written"
+    );
+}

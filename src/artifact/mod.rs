@@ -16,7 +16,7 @@ use crate::features::Schema;
 use crate::model::Scorer;
 use crate::policy::Policy;
 use crate::reasons::ReasonTable;
-use spec::{IdentitySpec, ReferenceSpec};
+use spec::{IdentitySpec, Population, ReferenceSpec, StabilitySpec};
 use std::path::Path;
 
 /// A problem with an artifact: where in the JSON, which rule, and what to do.
@@ -39,6 +39,14 @@ impl ArtifactError {
     }
 }
 
+/// An artifact's alternate reference population, compiled; decisions use the primary one.
+#[derive(Debug, Clone)]
+pub struct AlternateReference {
+    pub reference: ReferenceSpec,
+    pub explainer: Explainer,
+    pub background: Vec<Vec<f64>>,
+}
+
 /// A validated model, compiled for scoring and explanation.
 #[derive(Debug, Clone)]
 pub struct LoadedModel {
@@ -53,6 +61,10 @@ pub struct LoadedModel {
     pub policy: Policy,
     /// Encoded rows of the artifact's background sample (empty when it has none).
     pub background: Vec<Vec<f64>>,
+    /// The second reference population, when the artifact carries one.
+    pub alternate: Option<AlternateReference>,
+    /// Development-sample bins for stability monitoring, when the artifact carries them.
+    pub stability: Option<StabilitySpec>,
     /// The artifact's `provenance` object, as written.
     pub provenance: Option<serde_json::Value>,
 }
@@ -87,5 +99,29 @@ impl LoadedModel {
     /// Number of encoded model columns.
     pub fn width(&self) -> usize {
         self.schema.columns.len()
+    }
+
+    /// This model explained against its alternate reference population, if it carries one.
+    pub fn explained_against_alternate(&self) -> Option<LoadedModel> {
+        let population = self.alternate.as_ref()?.reference.population;
+        self.explained_against(population)
+    }
+
+    /// This model explained against `population`: itself when that is the primary reference,
+    /// a copy with the alternate swapped in when the artifact carries it, else `None`.
+    pub fn explained_against(&self, population: Population) -> Option<LoadedModel> {
+        if self.reference.population == population {
+            return Some(self.clone());
+        }
+        let alt = self.alternate.as_ref()?;
+        if alt.reference.population != population {
+            return None;
+        }
+        let mut m = self.clone();
+        m.alternate = None;
+        m.reference = alt.reference.clone();
+        m.explainer = alt.explainer.clone();
+        m.background = alt.background.clone();
+        Some(m)
     }
 }

@@ -23,6 +23,8 @@ struct Envelope {
     reasons: Vec<ReasonSpec>,
     policy: PolicySpec,
     #[serde(default)]
+    stability: Option<StabilitySpec>,
+    #[serde(default)]
     provenance: Option<Value>,
 }
 
@@ -58,6 +60,7 @@ pub fn parse(bytes: &[u8]) -> Result<ArtifactSpec, ArtifactError> {
         explanation: e.explanation,
         reasons: e.reasons,
         policy: e.policy,
+        stability: e.stability,
         provenance: e.provenance,
     })
 }

@@ -22,6 +22,9 @@ pub struct ArtifactSpec {
     pub explanation: ExplanationSpec,
     pub reasons: Vec<ReasonSpec>,
     pub policy: PolicySpec,
+    /// Distributions of the inputs and the score on the development data, for stability checks.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub stability: Option<StabilitySpec>,
     /// Free-form facts about how the model was built (rows, base rate, CV AUC, data digest, seed).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub provenance: Option<serde_json::Value>,
@@ -66,6 +69,19 @@ pub struct FieldSpec {
     /// Reason code this field's contribution is reported under (scored fields only).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub reason: Option<String>,
+    /// How the risk of default moves as the value rises, where the business knows it
+    /// (number, count and boolean fields). Enforced on logistic coefficients.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub monotone: Option<Monotone>,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Monotone {
+    /// A higher value never lowers the risk of default.
+    Increasing,
+    /// A higher value never raises the risk of default.
+    Decreasing,
 }
 
 fn yes() -> bool {
@@ -204,6 +220,10 @@ pub struct ExplanationSpec {
     /// use their mean instead of `mean`).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub background: Vec<serde_json::Map<String, serde_json::Value>>,
+    /// The other population of comment 9(b)(2)-5, carried so that reviewers can compare the
+    /// reasons each gives; decisions use the primary one above.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub alternate: Option<Box<ExplanationSpec>>,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -322,4 +342,37 @@ pub enum RuleTest {
 pub enum RuleAction {
     Refer,
     Decline,
+}
+
+/// Development-sample distributions: per field and for the score, bin edges with the share of
+/// applicants in each bin, so that later data can be compared (population stability index).
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct StabilitySpec {
+    /// Which applicants the shares describe, in words.
+    pub label: String,
+    pub rows: u64,
+    /// Keyed by field name.
+    pub fields: BTreeMap<String, BinnedSpec>,
+    /// The score scale's distribution (bins over the score, not the probability).
+    pub score: BinnedSpec,
+}
+
+/// Either numeric bins (`edges` and `shares`) or category `levels`, plus the missing share.
+///
+/// Numeric bin i holds edges[i-1] <= value < edges[i]; the first bin is open below, the last
+/// open above, so there is one more share than edges. Shares and `missing` sum to 1.
+#[derive(Debug, Clone, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct BinnedSpec {
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub edges: Vec<f64>,
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub shares: Vec<f64>,
+    /// Share per category level (category fields).
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub levels: BTreeMap<String, f64>,
+    /// Share of applicants with no value (absent or null).
+    #[serde(default)]
+    pub missing: f64,
 }

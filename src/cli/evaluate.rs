@@ -1,6 +1,7 @@
 //! `plumbline evaluate`: a model against labelled data, for people (table) or programs (JSON).
 
 use super::{load, EXIT_BAD_INPUT};
+use crate::evaluate::stability;
 use std::fmt::Write;
 use std::path::Path;
 
@@ -28,9 +29,11 @@ pub fn run(model: &Path, data: &Path, target: &str, costs: (f64, f64), json: boo
         }
     };
     let n = set.columns.len();
-    let mut p = Vec::with_capacity(n);
+    let (mut p, mut scores) = (Vec::with_capacity(n), Vec::with_capacity(n));
     for (i, x) in set.columns.iter().enumerate() {
-        p.push(model.scorer.probability_and_log_odds(model.scorer.raw(x)).0);
+        let (pd, log_odds) = model.scorer.probability_and_log_odds(model.scorer.raw(x));
+        p.push(pd);
+        scores.push(model.policy.scaling.score(log_odds) as f64);
         if n >= 100_000 && i % (n / 10) == 0 {
             eprint!("\rscoring {:>3}%", i * 100 / n);
         }
@@ -49,8 +52,23 @@ pub fn run(model: &Path, data: &Path, target: &str, costs: (f64, f64), json: boo
         eprintln!("error: the data holds one outcome class only; nothing to evaluate");
         return EXIT_BAD_INPUT;
     };
+    let shifts = match &model.stability {
+        Some(dev) => stability::compare_all(dev, &set.applicants, &scores),
+        None => Vec::new(),
+    };
     if json {
-        println!("{}", serde_json::to_string_pretty(&r).unwrap_or_default());
+        #[derive(serde::Serialize)]
+        struct Out<'a> {
+            #[serde(flatten)]
+            report: &'a crate::evaluate::Report,
+            /// Population stability against the artifact's development bins.
+            stability: &'a [stability::Shift],
+        }
+        let out = Out {
+            report: &r,
+            stability: &shifts,
+        };
+        println!("{}", serde_json::to_string_pretty(&out).unwrap_or_default());
         return 0;
     }
     let mut s = String::new();
@@ -113,6 +131,25 @@ pub fn run(model: &Path, data: &Path, target: &str, costs: (f64, f64), json: boo
             c.approved_goods,
             c.expected_cost_per_application
         );
+    }
+    match &model.stability {
+        None => {
+            let _ = writeln!(s, "\nstability: the artifact carries no development bins");
+        }
+        Some(dev) => {
+            let _ = writeln!(
+                s,
+                "\npopulation stability index against the {} ({} rows); bands are common practice",
+                dev.label, dev.rows
+            );
+            for shift in &shifts {
+                let _ = writeln!(
+                    s,
+                    "  {:<30} {:>8.4}  {}",
+                    shift.name, shift.psi, shift.reading
+                );
+            }
+        }
     }
     let _ = writeln!(s, "\naccuracy of approving everyone: {:.4} (a low default rate makes accuracy look good; rank by AUC/KS and choose cutoffs by cost)", r.accuracy_approve_everyone);
     let _ = writeln!(

@@ -143,6 +143,26 @@ fn text(model: &LoadedModel) -> String {
         let _ = writeln!(s, "  {line}");
     }
     let _ = writeln!(s, "\nexplanations\n  {}", explain_line(model));
+    if let Some(alt) = model.explained_against_alternate() {
+        let _ = writeln!(s, "  alternate, for review: {}", explain_line(&alt));
+    }
+    match &model.stability {
+        Some(st) => {
+            let _ = writeln!(
+                s,
+                "\nstability bins: {} fields and the score, from the {} ({} rows)",
+                st.fields.len(),
+                st.label,
+                st.rows
+            );
+        }
+        None => {
+            let _ = writeln!(
+                s,
+                "\nstability bins: none (population stability cannot be checked)"
+            );
+        }
+    }
     let p = &model.policy;
     let sc = &p.scaling;
     let _ = writeln!(s, "\npolicy");
@@ -208,6 +228,8 @@ fn summary(model: &LoadedModel) -> serde_json::Value {
         })).collect::<Vec<_>>(),
         "model": model_lines(model),
         "explanation": explain_line(model),
+        "alternate_explanation": model.explained_against_alternate().map(|m| explain_line(&m)),
+        "stability": model.stability.as_ref().map(|st| json!({"label": st.label, "rows": st.rows, "fields": st.fields.keys().collect::<Vec<_>>()})),
         "policy": {
             "approve_below": model.policy.approve_below,
             "decline_at_or_above": model.policy.decline_at_or_above,

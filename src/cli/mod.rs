@@ -5,6 +5,7 @@ mod evaluate;
 mod inspect;
 mod score;
 mod serve;
+mod train;
 
 use clap::{Parser, Subcommand};
 use std::path::PathBuf;
@@ -37,6 +38,11 @@ pub enum Command {
         model: PathBuf,
         /// Requests `{"application_id": ..., "applicant": {...}}`; `-` or absent reads stdin.
         input: Option<PathBuf>,
+        /// Explain against this reference population (`all_applicants` or
+        /// `near_approve_cutoff`) instead of the artifact's primary one, for review; it must be
+        /// the primary or the artifact's alternate.
+        #[arg(long)]
+        reference: Option<String>,
     },
     /// Run the decision service (HTTP): by default the bundled demo model on 127.0.0.1:8080;
     /// needs --keys FILE (or PLUMBLINE_KEYS), or --no-auth for a local trial.
@@ -55,8 +61,21 @@ pub enum Command {
         #[arg(long)]
         groups_out: Option<PathBuf>,
     },
-    /// Fit a logistic model from a CSV of past applications and a training spec; writes the
-    /// artifact only if it validates.
+    /// Print a first training spec inferred from a CSV (kinds, ranges, levels, missing values,
+    /// placeholder reasons and cutoffs) to edit before `train`; writes nothing.
+    DraftSpec {
+        /// CSV of past applications with an outcome column.
+        #[arg(long)]
+        data: PathBuf,
+        /// Outcome column (1 = defaulted, 0 = repaid).
+        #[arg(long, default_value = "defaulted")]
+        target: String,
+        /// `logistic` or `forest`.
+        #[arg(long, default_value = "logistic")]
+        kind: String,
+    },
+    /// Fit a logistic model or a random forest from a CSV of past applications and a training
+    /// spec; writes the artifact only if it validates.
     Train {
         /// CSV with a header naming every field of the spec and the target column.
         #[arg(long)]
@@ -114,7 +133,11 @@ pub const EXIT_FAILURE: i32 = 1;
 pub fn run(cli: Cli) -> i32 {
     match cli.command {
         Command::Inspect { model, json } => inspect::run(&model, json),
-        Command::Score { model, input } => score::run(&model, input.as_deref()),
+        Command::Score {
+            model,
+            input,
+            reference,
+        } => score::run(&model, input.as_deref(), reference.as_deref()),
         Command::Serve(args) => serve::run(args),
         Command::HashKey { name, role } => serve::hash_key(&name, &role),
         Command::Evaluate {
@@ -137,106 +160,15 @@ pub fn run(cli: Cli) -> i32 {
             out,
             folds,
             seed,
-        } => train(&data, &spec, &out, folds, seed),
+        } => train::train(&data, &spec, &out, folds, seed),
+        Command::DraftSpec { data, target, kind } => train::draft_spec(&data, &target, &kind),
         Command::DemoData {
             rows,
             seed,
             out,
             groups_out,
-        } => demo_data(rows, seed, &out, groups_out.as_deref()),
+        } => train::demo_data(rows, seed, &out, groups_out.as_deref()),
     }
-}
-
-fn train(
-    data: &std::path::Path,
-    spec: &std::path::Path,
-    out: &std::path::Path,
-    folds: usize,
-    seed: u64,
-) -> i32 {
-    let read = |p: &std::path::Path| {
-        std::fs::read_to_string(p).map_err(|e| format!("cannot read {}: {e}", p.display()))
-    };
-    let (csv, spec_text) = match (read(data), read(spec)) {
-        (Ok(a), Ok(b)) => (a, b),
-        (Err(e), _) | (_, Err(e)) => {
-            eprintln!("error: {e}");
-            return EXIT_BAD_INPUT;
-        }
-    };
-    let spec: crate::train::build::TrainingSpec = match serde_json::from_str(&spec_text) {
-        Ok(s) => s,
-        Err(e) => {
-            eprintln!("error: spec {}: {e}", spec.display());
-            return EXIT_BAD_INPUT;
-        }
-    };
-    match crate::train::build::train(&spec, &csv, folds, seed) {
-        Ok((artifact, report)) => {
-            if let Err(e) = std::fs::write(out, artifact) {
-                eprintln!("error: cannot write {}: {e}", out.display());
-                return EXIT_FAILURE;
-            }
-            let mean = report.cv_auc.iter().sum::<f64>() / report.cv_auc.len() as f64;
-            eprintln!(
-                "trained on {} rows, base rate {:.4}; {}-fold CV AUC {:.4} (folds {:?})",
-                report.rows,
-                report.base_rate,
-                report.cv_auc.len(),
-                mean,
-                report
-                    .cv_auc
-                    .iter()
-                    .map(|a| format!("{a:.4}"))
-                    .collect::<Vec<_>>()
-            );
-            if let Some(fit) = &report.fit {
-                eprintln!(
-                    "{:<32} {:>14} {:>12}",
-                    "column", "coefficient", "std. error"
-                );
-                let names = std::iter::once("(intercept)".to_string())
-                    .chain(report.columns.iter().cloned());
-                for ((n, b), se) in names.zip(&fit.coefficients).zip(&fit.std_errors) {
-                    eprintln!("{n:<32} {b:>14.6e} {se:>12.4e}");
-                }
-            }
-            eprintln!("wrote {}", out.display());
-            0
-        }
-        Err(e) => {
-            eprintln!("error: {e}\nnothing was written");
-            EXIT_BAD_INPUT
-        }
-    }
-}
-
-fn demo_data(
-    rows: usize,
-    seed: u64,
-    out: &std::path::Path,
-    groups: Option<&std::path::Path>,
-) -> i32 {
-    if rows == 0 || rows > 10_000_000 {
-        eprintln!("error: --rows must be 1 to 10000000");
-        return EXIT_BAD_INPUT;
-    }
-    let (apps, group_csv) = crate::train::demo_data::applications_csv(rows, seed);
-    let mut writes = vec![(out, apps)];
-    if let Some(g) = groups {
-        writes.push((g, group_csv));
-    }
-    for (path, text) in writes {
-        if let Err(e) = std::fs::write(path, text) {
-            eprintln!("error: cannot write {}: {e}", path.display());
-            return EXIT_FAILURE;
-        }
-    }
-    eprintln!(
-        "wrote {rows} invented applications (seed {seed}) to {}",
-        out.display()
-    );
-    0
 }
 
 fn load(path: &std::path::Path) -> Result<crate::LoadedModel, i32> {

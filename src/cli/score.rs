@@ -4,11 +4,22 @@ use super::{load, EXIT_BAD_INPUT, EXIT_FAILURE};
 use std::io::{Read, Write};
 use std::path::Path;
 
-pub fn run(model: &Path, input: Option<&Path>) -> i32 {
-    let model = match load(model) {
+pub fn run(model: &Path, input: Option<&Path>, reference: Option<&str>) -> i32 {
+    let mut model = match load(model) {
         Ok(m) => m,
         Err(code) => return code,
     };
+    if let Some(name) = reference {
+        let population = serde_json::from_value(serde_json::Value::String(name.to_string()));
+        let swapped = population.ok().and_then(|p| model.explained_against(p));
+        match swapped {
+            Some(m) => model = m,
+            None => {
+                eprintln!("error: --reference {name}: the artifact carries no such reference population (it has {})", carried(&model));
+                return EXIT_BAD_INPUT;
+            }
+        }
+    }
     let mut text = String::new();
     let read = match input {
         None => std::io::stdin().read_to_string(&mut text).map(|_| ()),
@@ -79,4 +90,18 @@ fn leading_newlines(s: &str) -> usize {
         .take_while(|c| c.is_whitespace())
         .filter(|&c| c == '\n')
         .count()
+}
+
+/// The reference populations an artifact carries, for error messages.
+fn carried(model: &crate::LoadedModel) -> String {
+    let name = |p| {
+        serde_json::to_value(p)
+            .ok()
+            .and_then(|v| v.as_str().map(String::from))
+    };
+    std::iter::once(name(model.reference.population))
+        .chain(model.alternate.iter().map(|a| name(a.reference.population)))
+        .flatten()
+        .collect::<Vec<_>>()
+        .join(" and ")
 }

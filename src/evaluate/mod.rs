@@ -3,6 +3,7 @@
 //! area under the ROC curve (AUC), the Kolmogorov-Smirnov statistic and Gini.
 
 pub mod report;
+pub mod stability;
 
 pub use report::{report, Report};
 

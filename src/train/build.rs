@@ -3,8 +3,9 @@
 
 use super::dataset::{read_csv, Dataset};
 use super::logistic::{self, LogisticFit};
-use super::Rng;
+use super::{reference, Rng};
 use crate::artifact::spec::{FieldSpec, PolicySpec, Population, ReasonSpec};
+use crate::evaluate::stability;
 use crate::features::Schema;
 use serde::Deserialize;
 use serde_json::{json, Value};
@@ -42,10 +43,6 @@ pub enum ModelKind {
     Logistic,
     Forest,
 }
-
-/// Rows of the background sample kept in a forest artifact measured against applicants near the
-/// cutoff (interventional TreeSHAP cost grows with it).
-const BACKGROUND_ROWS: usize = 200;
 
 /// Mean leaf value over trees, the forest's probability of default, for each of `rows`.
 fn forest_scores(
@@ -98,6 +95,16 @@ pub struct ReferenceChoice {
     /// For `near_approve_cutoff`: applicants with fitted PD in [approve_below - band, approve_below).
     #[serde(default = "default_band")]
     pub band: f64,
+    /// Also carry the other population as the alternate (default true).
+    #[serde(default = "default_alternate")]
+    pub alternate: bool,
+    /// Words for the alternate population (default: written from its size and band).
+    #[serde(default)]
+    pub alternate_label: Option<String>,
+}
+
+fn default_alternate() -> bool {
+    true
 }
 
 fn default_band() -> f64 {
@@ -125,6 +132,9 @@ pub struct TrainReport {
     /// The logistic fit (coefficients and standard errors); `None` for forests.
     pub fit: Option<LogisticFit>,
     pub columns: Vec<String>,
+    /// Things the person training should know (a missing alternate population, a forest
+    /// that breaks a stated risk direction).
+    pub notes: Vec<String>,
 }
 
 fn mean_sd(v: &[f64]) -> (f64, f64) {
@@ -171,10 +181,12 @@ fn cross_validate(
         .collect()
 }
 
-/// The artifact around a fitted body: identity, the spec's fields, reasons and policy, and
-/// provenance; validated by loading it before it is returned.
+/// The artifact around a fitted body: identity, the spec's fields, reasons and policy,
+/// development-sample stability bins and provenance; validated by loading it before it is
+/// returned.
 fn assemble(
     spec: &TrainingSpec,
+    data: &Dataset,
     producer: &str,
     model: Value,
     explanation: Value,
@@ -199,7 +211,20 @@ fn assemble(
         "policy": spec.policy,
         "provenance": provenance,
     });
-    crate::LoadedModel::from_value(&artifact).map_err(|e| TrainError::Artifact(e.to_string()))?;
+    let invalid = |e: crate::ArtifactError| TrainError::Artifact(e.to_string());
+    let loaded = crate::LoadedModel::from_value(&artifact).map_err(invalid)?;
+    let scores: Vec<f64> = (data.columns.iter())
+        .map(|x| {
+            let (_, log_odds) = loaded.scorer.probability_and_log_odds(loaded.scorer.raw(x));
+            loaded.policy.scaling.score(log_odds) as f64
+        })
+        .collect();
+    let label = "training data the model was fitted on";
+    let bins = stability::develop(label, &spec.features, &data.applicants, &scores);
+    let mut artifact = artifact;
+    artifact["stability"] =
+        serde_json::to_value(bins).map_err(|e| TrainError::Artifact(e.to_string()))?;
+    crate::LoadedModel::from_value(&artifact).map_err(invalid)?;
     serde_json::to_string_pretty(&artifact)
         .map(|t| t + "\n")
         .map_err(|e| TrainError::Artifact(e.to_string()))
@@ -216,12 +241,8 @@ pub fn train_logistic(
     }
     let schema: Schema = crate::artifact::schema_from_specs(&spec.features, &spec.reasons, false)
         .map_err(|e| TrainError::Spec(e.to_string()))?;
-    let Dataset {
-        columns: x,
-        defaulted: y,
-        sha256,
-        ..
-    } = read_csv(csv, &schema, &spec.target).map_err(|e| TrainError::Data(e.to_string()))?;
+    let data = read_csv(csv, &schema, &spec.target).map_err(|e| TrainError::Data(e.to_string()))?;
+    let (x, y) = (&data.columns, &data.defaulted);
     let names: Vec<String> = schema.columns.iter().map(|c| c.name.clone()).collect();
     let fit_err = |e: logistic::FitError| match e {
         logistic::FitError::Constant(j) => TrainError::Fit(format!(
@@ -230,42 +251,24 @@ pub fn train_logistic(
         )),
         other => TrainError::Fit(other.to_string()),
     };
-    let model = logistic::fit(&x, &y, spec.l2).map_err(fit_err)?;
+    let model = logistic::fit(x, y, spec.l2).map_err(fit_err)?;
 
-    let cv_auc = cross_validate(&y, folds, seed, |train, test| {
+    let cv_auc = cross_validate(y, folds, seed, |train, test| {
         let xs: Vec<Vec<f64>> = train.iter().map(|&i| x[i].clone()).collect();
         let ys: Vec<bool> = train.iter().map(|&i| y[i]).collect();
         let m = logistic::fit(&xs, &ys, spec.l2).map_err(fit_err)?;
         Ok(test.iter().map(|&i| m.log_odds(&x[i])).collect())
     })?;
 
-    // Reference population for contributions (Regulation B comment 9(b)(2)-5).
-    let cutoff = spec.policy.approve_below;
-    let members: Vec<usize> = match spec.reference.population {
-        Population::AllApplicants => (0..x.len()).collect(),
-        Population::NearApproveCutoff => (0..x.len())
-            .filter(|&i| {
-                let p = crate::model::sigmoid(model.log_odds(&x[i]));
-                p >= cutoff - spec.reference.band && p < cutoff
-            })
-            .collect(),
-    };
-    if members.len() < 30 {
-        return Err(TrainError::Fit(format!(
-            "only {} applicants in the reference population; widen reference.band",
-            members.len()
-        )));
-    }
-    let mean: serde_json::Map<String, Value> = names
-        .iter()
-        .enumerate()
-        .map(|(c, n)| {
-            (
-                n.clone(),
-                json!(members.iter().map(|&i| x[i][c]).sum::<f64>() / members.len() as f64),
-            )
-        })
+    let p: Vec<f64> = (x.iter())
+        .map(|r| crate::model::sigmoid(model.log_odds(r)))
         .collect();
+    let (explanation, notes) = reference::explanation(
+        &spec.reference,
+        &p,
+        spec.policy.approve_below,
+        |population, label, rows| reference::linear_section(population, label, rows, x, &names),
+    )?;
     let coefficients: serde_json::Map<String, Value> = names
         .iter()
         .enumerate()
@@ -283,16 +286,13 @@ pub fn train_logistic(
     let base_rate = y.iter().filter(|&&d| d).count() as f64 / y.len() as f64;
     let text = assemble(
         spec,
+        &data,
         &format!("plumbline {} train", crate::VERSION),
         json!({"kind": "logistic", "intercept": model.coefficients[0], "coefficients": coefficients}),
+        explanation,
         json!({
-            "method": "linear",
-            "reference": {"population": spec.reference.population, "label": spec.reference.label},
-            "mean": mean,
-        }),
-        json!({
-            "rows": y.len(), "base_rate": base_rate, "data_sha256": sha256, "seed": seed, "l2": spec.l2,
-            "reference_rows": members.len(), "std_errors": std_errors,
+            "rows": y.len(), "base_rate": base_rate, "data_sha256": data.sha256, "seed": seed, "l2": spec.l2,
+            "std_errors": std_errors,
             "method": "maximum likelihood (IRLS); Wald standard errors",
         }),
         &cv_auc,
@@ -305,6 +305,7 @@ pub fn train_logistic(
             cv_auc,
             fit: Some(model),
             columns: names,
+            notes,
         },
     ))
 }
@@ -316,6 +317,7 @@ pub fn train(
     folds: usize,
     seed: u64,
 ) -> Result<(String, TrainReport), TrainError> {
+    super::draft::check_no_placeholders(spec)?;
     match spec.kind {
         ModelKind::Logistic => train_logistic(spec, csv, folds, seed),
         ModelKind::Forest => train_forest(spec, csv, folds, seed),
@@ -368,33 +370,26 @@ pub fn train_forest(
         Ok(forest_scores(&m, &names, &rows))
     })?;
 
-    let cutoff = spec.policy.approve_below;
-    let (method, background): (&str, Vec<Value>) = match spec.reference.population {
-        Population::AllApplicants => ("tree_path_dependent", Vec::new()),
-        Population::NearApproveCutoff => {
-            let all: Vec<&[f64]> = x.iter().map(Vec::as_slice).collect();
-            let p = forest_scores(&trees, &names, &all);
-            let band: Vec<Value> = (0..x.len())
-                .filter(|&i| p[i] >= cutoff - spec.reference.band && p[i] < cutoff)
-                .take(BACKGROUND_ROWS)
-                .map(|i| Value::Object(data.applicants[i].clone()))
-                .collect();
-            if band.len() < 30 {
-                return Err(TrainError::Fit(format!(
-                    "only {} applicants in the reference band; widen reference.band",
-                    band.len()
-                )));
-            }
-            ("tree_interventional", band)
-        }
-    };
+    let all: Vec<&[f64]> = x.iter().map(Vec::as_slice).collect();
+    let p = forest_scores(&trees, &names, &all);
+    let (explanation, mut notes) = reference::explanation(
+        &spec.reference,
+        &p,
+        spec.policy.approve_below,
+        |population, label, rows| {
+            reference::tree_section(population, label, rows, &data.applicants)
+        },
+    )?;
+    notes.extend(super::monotone::forest_notes(
+        &spec.features,
+        &names,
+        x,
+        |rows| forest_scores(&trees, &names, rows),
+    ));
     let base_rate = positives as f64 / y.len() as f64;
-    let mut explanation = json!({"method": method, "reference": {"population": spec.reference.population, "label": spec.reference.label}});
-    if !background.is_empty() {
-        explanation["background"] = Value::Array(background);
-    }
     let text = assemble(
         spec,
+        &data,
         &format!(
             "plumbline {} train (smartcore 0.4 random forest, covers re-counted)",
             crate::VERSION
@@ -416,6 +411,7 @@ pub fn train_forest(
             cv_auc,
             fit: None,
             columns: names,
+            notes,
         },
     ))
 }

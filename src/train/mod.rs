@@ -1,12 +1,15 @@
 //! Model building: the demo lender's generated applications, reading training CSVs against a
 //! spec, logistic fitting with standard errors, stratified cross-validation, and writing a
-//! validated artifact. Forests follow (see the model-building issue).
+//! validated artifact, with both reference populations and development-sample stability bins.
 
 pub mod build;
 pub mod dataset;
 pub mod demo_data;
+pub mod draft;
 pub mod forest;
 pub mod logistic;
+pub mod monotone;
+pub mod reference;
 mod rng;
 
 pub use rng::Rng;

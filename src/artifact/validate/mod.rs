@@ -3,9 +3,8 @@
 
 use super::spec::*;
 use super::{ArtifactError, LoadedModel};
-use crate::explain::{Explainer, InterventionalExplainer, LinearExplainer, PathExplainer};
 use crate::features::{Column, Field, FieldType, FieldValue, Missing, Schema};
-use crate::model::{forest, sigmoid, Ensemble, Logistic, Node, Scorer, Tree};
+use crate::model::{forest, Ensemble, Logistic, Node, Scorer, Tree};
 use crate::policy::{Policy, Rule, Scaling};
 use crate::reasons::{vague_text, Reason, ReasonTable};
 
@@ -17,6 +16,9 @@ pub const MAX_BACKGROUND_ROWS: usize = 2_000;
 pub const MAX_COLUMNS: usize = 65_535;
 /// Largest number of principal reasons a policy may ask for.
 pub const MAX_REASONS_LIMIT: usize = 8;
+
+mod explanation;
+mod stability;
 
 type Result<T> = std::result::Result<T, ArtifactError>;
 
@@ -45,8 +47,13 @@ pub fn compile(spec: ArtifactSpec, sha256: String) -> Result<LoadedModel> {
     let scorer = compile_model(&spec.model, &schema, spec.explanation.method)?;
     let policy = compile_policy(&spec.policy, &schema, &reasons)?;
     check_reason_use(&spec, &schema, &reasons)?;
-    let (explainer, background) = compile_explainer(&spec.explanation, &schema, &scorer)?;
-    check_base_below_decline(&scorer, &explainer, &policy)?;
+    let (explainer, background, alternate) =
+        explanation::compile(&spec.explanation, &schema, &scorer, &policy)?;
+    check_monotone(&spec.features, &spec.model)?;
+    let stability = match spec.stability {
+        Some(s) => Some(stability::check(s, &spec.features)?),
+        None => None,
+    };
     Ok(LoadedModel {
         identity: spec.identity.clone(),
         sha256,
@@ -57,6 +64,8 @@ pub fn compile(spec: ArtifactSpec, sha256: String) -> Result<LoadedModel> {
         reasons,
         policy,
         background,
+        alternate,
+        stability,
         provenance: spec.provenance,
     })
 }
@@ -172,6 +181,13 @@ fn compile_schema(specs: &[FieldSpec], reasons: &ReasonTable, is_trees: bool) ->
         }
         let ty = field_type(f, &at)?;
         check_bounds(f, &ty, &at)?;
+        if f.monotone.is_some() && (f.kind == FieldKind::Category || !f.scored) {
+            return fail(
+                format!("{at}.monotone"),
+                "monotone",
+                "a risk direction applies to scored number, count and boolean fields",
+            );
+        }
         let reason = match (f.scored, &f.reason) {
             (true, None) => {
                 return fail(
@@ -773,131 +789,35 @@ fn check_reason_use(spec: &ArtifactSpec, schema: &Schema, reasons: &ReasonTable)
     Ok(())
 }
 
-fn compile_explainer(
-    spec: &ExplanationSpec,
-    schema: &Schema,
-    scorer: &Scorer,
-) -> Result<(Explainer, Vec<Vec<f64>>)> {
-    if spec.reference.label.trim().is_empty() {
-        return fail(
-            "$.explanation.reference.label",
-            "required",
-            "say in words which applicants the reference population holds",
-        );
-    }
-    if spec.background.len() > MAX_BACKGROUND_ROWS {
-        return fail(
-            "$.explanation.background",
-            "size",
-            format!("at most {MAX_BACKGROUND_ROWS} rows"),
-        );
-    }
-    let background = spec
-        .background
-        .iter()
-        .enumerate()
-        .map(|(i, row)| {
-            let path = format!("$.explanation.background[{i}]");
-            schema
-                .check_and_encode(&serde_json::Value::Object(row.clone()), &path)
-                .map(|e| e.columns)
-                .map_err(|e| {
-                    let first = &e.errors[0];
-                    ArtifactError::new(first.field.clone(), first.rule, first.message.clone())
-                })
-        })
-        .collect::<Result<Vec<_>>>()?;
-    if spec.mean.is_some() && !matches!(scorer, Scorer::Logistic(_)) {
-        return fail("$.explanation.mean", "method", "a reference mean is used only by linear explanations; tree explanations use covers or the background");
-    }
-    let explainer = match (scorer, spec.method) {
-        (Scorer::Logistic(m), ExplainMethod::Linear) => {
-            let reference = match (&spec.mean, background.is_empty()) {
-                (Some(mean), _) => {
-                    let mut r = vec![f64::NAN; schema.columns.len()];
-                    for (name, &v) in mean {
-                        let at = format!("$.explanation.mean.{name}");
-                        let c = schema.column_index(name).ok_or_else(|| {
-                            ArtifactError::new(
-                                &at,
-                                "known_column",
-                                format!("{name} is not an encoded column"),
-                            )
-                        })?;
-                        if !v.is_finite() {
-                            return fail(at, "finite", "must be a finite number");
-                        }
-                        r[c] = v;
-                    }
-                    if let Some(c) = r.iter().position(|v| v.is_nan()) {
-                        return fail(
-                            "$.explanation.mean",
-                            "complete",
-                            format!("column {} has no reference mean", schema.columns[c].name),
-                        );
-                    }
-                    r
-                }
-                (None, false) => (0..schema.columns.len())
-                    .map(|c| background.iter().map(|b| b[c]).sum::<f64>() / background.len() as f64)
-                    .collect(),
-                (None, true) => {
-                    return fail(
-                        "$.explanation.mean",
-                        "required",
-                        "a linear explanation needs the reference mean or a background sample",
-                    )
-                }
-            };
-            Ok(Explainer::Linear(LinearExplainer::new(m, reference)))
-        }
-        (Scorer::Trees(e), ExplainMethod::TreePathDependent) => {
-            Ok(Explainer::PathDependent(PathExplainer::new(e)))
-        }
-        (Scorer::Trees(e), ExplainMethod::TreeInterventional) => {
-            if background.is_empty() {
-                return fail(
-                    "$.explanation.background",
-                    "required",
-                    "interventional explanations need a background sample",
-                );
-            }
-            Ok(Explainer::Interventional(InterventionalExplainer::new(
-                e,
-                &background,
-            )))
-        }
-        (Scorer::Logistic(_), _) => fail(
-            "$.explanation.method",
-            "method",
-            "a logistic model is explained by the linear method",
-        ),
-        (Scorer::Trees(_), _) => fail(
-            "$.explanation.method",
-            "method",
-            "a tree ensemble is explained by tree_path_dependent or tree_interventional",
-        ),
+/// A logistic slope must not contradict a field's stated risk direction: a model whose risk
+/// falls with delinquencies would give reasons no reviewer could defend.
+fn check_monotone(fields: &[FieldSpec], model: &ModelSpec) -> Result<()> {
+    let ModelSpec::Logistic(l) = model else {
+        return Ok(());
     };
-    explainer.map(|e| (e, background))
-}
-
-/// A declined applicant must have at least one adverse contribution, which holds when the
-/// reference population itself scores below the decline cutoff.
-fn check_base_below_decline(scorer: &Scorer, explainer: &Explainer, policy: &Policy) -> Result<()> {
-    let base = explainer.base_value();
-    if !base.is_finite() {
-        return fail("$.explanation.reference", "finite", format!("the reference population's model output is not finite ({base}); check coefficients and reference values"));
-    }
-    let p = match scorer.space() {
-        crate::model::Space::LogOdds => sigmoid(base),
-        crate::model::Space::Probability => base,
-    };
-    if p >= policy.decline_at_or_above {
-        return fail(
-            "$.explanation.reference",
-            "reference_below_decline",
-            format!("the reference population's probability of default ({p:.6}) is at or above the decline cutoff, so a declined applicant could be given no reasons"),
-        );
+    for f in fields {
+        let (Some(direction), Some(&b)) = (f.monotone, l.coefficients.get(&f.name)) else {
+            continue;
+        };
+        let against = match direction {
+            Monotone::Increasing => b < 0.0,
+            Monotone::Decreasing => b > 0.0,
+        };
+        if against {
+            return fail(
+                format!("$.model.coefficients.{}", f.name),
+                "monotone",
+                format!(
+                    "coefficient {b} contradicts the stated risk direction of {} ({}); \
+                     refit without the field, bin it, or correct the direction",
+                    f.name,
+                    match direction {
+                        Monotone::Increasing => "increasing",
+                        Monotone::Decreasing => "decreasing",
+                    }
+                ),
+            );
+        }
     }
     Ok(())
 }
