@@ -20,6 +20,7 @@ pub mod features;
 pub mod model;
 pub mod policy;
 pub mod reasons;
+pub mod records;
 pub mod train;
 
 pub use artifact::{ArtifactError, LoadedModel};

@@ -2,6 +2,7 @@
 #![allow(dead_code)]
 
 pub mod server;
+pub mod stores;
 
 use plumbline::artifact::spec::Aggregation;
 use plumbline::model::{forest::LEAF, Ensemble, Node, Tree};

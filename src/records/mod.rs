@@ -1,0 +1,198 @@
+//! Decision records: every decision as given, kept durably so it can be recovered years later
+//! for the applicant's notice, an examiner, outcomes analysis and QA replay.
+//!
+//! A [`Store`] has two real back ends: SQLite ([`sqlite`], the embedded default, WAL with full
+//! sync) and PostgreSQL ([`postgres`], shared by several service replicas). Both hold the same
+//! table, created by the same versioned migrations ([`sql`]). Idempotency is a unique
+//! constraint on the key, so it holds across replicas; [`Recorder`] groups concurrent writes
+//! into one transaction so that durability does not cost throughput.
+
+pub mod cursor;
+pub mod export;
+pub mod ids;
+pub mod notice;
+pub mod postgres;
+mod recorder;
+mod sql;
+pub mod sqlite;
+
+pub use cursor::Cursor;
+pub use recorder::Recorder;
+
+use serde::Serialize;
+use std::sync::Arc;
+
+/// One decision as recorded. `request` is the canonical JSON of the request body; `response` is
+/// the exact bytes of the response body sent.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Record {
+    pub decision_id: String,
+    pub application_id: String,
+    pub idempotency_key: Option<String>,
+    /// RFC 3339 UTC with microseconds (fixed width, so text order is time order).
+    pub received_at: String,
+    pub decided_at: String,
+    pub model_id: String,
+    pub model_version: String,
+    pub model_sha256: String,
+    pub plumbline_version: String,
+    /// SHA-256 of `request`: what an idempotent retry must match.
+    pub request_sha256: String,
+    pub outcome: String,
+    pub probability: f64,
+    pub score: i64,
+    pub request: String,
+    pub response: String,
+}
+
+/// What writing a record did.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Insert {
+    Inserted,
+    /// The idempotency key was already recorded: here is that record (nothing new written).
+    Existing(Box<Record>),
+}
+
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum StoreError {
+    #[error("store unavailable: {0}")]
+    Unavailable(String),
+    #[error("store error: {0}")]
+    Failed(String),
+}
+
+/// Search filters; every present filter must hold. Times are normalised RFC 3339 (see
+/// [`normalise_time`]); `from` is inclusive, `to` exclusive.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Query {
+    pub application_id: Option<String>,
+    pub from: Option<String>,
+    pub to: Option<String>,
+    pub outcome: Option<String>,
+    pub model_id: Option<String>,
+    pub model_version: Option<String>,
+    /// Continue after this record (in decided_at, decision_id order).
+    pub after: Option<Cursor>,
+}
+
+/// Largest page a search returns.
+pub const MAX_PAGE: usize = 500;
+
+/// A page of search results, oldest first, and where the next one starts.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Page {
+    pub records: Vec<Record>,
+    pub next: Option<Cursor>,
+}
+
+/// The store interface; both back ends pass the same test suite (tests/records.rs).
+pub trait Store: Send + Sync {
+    /// Writes the records in one transaction, committed before this returns. A record whose
+    /// idempotency key is already recorded (earlier, or earlier in the same group) is not written;
+    /// its outcome carries the recorded one.
+    fn insert_group(&self, records: &[Record]) -> Result<Vec<Insert>, StoreError>;
+    fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError>;
+    fn search(&self, query: &Query, limit: usize) -> Result<Page, StoreError>;
+    /// Every record matching `query`, oldest first, handed to `sink` one at a time as read
+    /// (never all in memory). Stops early when `sink` returns false. Returns how many were sent.
+    fn export(
+        &self,
+        query: &Query,
+        sink: &mut dyn FnMut(&Record) -> bool,
+    ) -> Result<u64, StoreError>;
+    /// A short name for logs and errors: `sqlite:PATH` or `postgres:HOST/DB`.
+    fn describe(&self) -> String;
+}
+
+/// Opens a store from `sqlite:PATH`, a path ending in `.sqlite3`/`.db`, or `postgres://...`
+/// (`postgresql://...`); migrations are applied on open.
+pub fn open(location: &str) -> Result<Arc<dyn Store>, StoreError> {
+    if location.starts_with("postgres://") || location.starts_with("postgresql://") {
+        return Ok(Arc::new(postgres::PostgresStore::open(location)?));
+    }
+    let path = location.strip_prefix("sqlite:").unwrap_or(location);
+    Ok(Arc::new(sqlite::SqliteStore::open(std::path::Path::new(
+        path,
+    ))?))
+}
+
+/// How many migrations this build knows (for checks that each applied once).
+pub fn sql_migrations_count() -> usize {
+    sql::MIGRATIONS.len()
+}
+
+/// Now as fixed-width RFC 3339 UTC with microseconds.
+pub fn now() -> String {
+    humantime::format_rfc3339_micros(std::time::SystemTime::now()).to_string()
+}
+
+/// A time or a date from a query, in the stored form. A bare date `YYYY-MM-DD` means its
+/// midnight UTC; with `end_of_day`, the next midnight (so `to=2026-12-01` includes that day).
+pub fn normalise_time(text: &str, end_of_day: bool) -> Option<String> {
+    let is_date = text.len() == 10 && text.as_bytes().get(4) == Some(&b'-');
+    let parsed = if is_date {
+        humantime::parse_rfc3339(&format!("{text}T00:00:00Z")).ok()?
+            + std::time::Duration::from_secs(if end_of_day { 86_400 } else { 0 })
+    } else {
+        humantime::parse_rfc3339_weak(text)
+            .ok()
+            .filter(|_| text.ends_with('Z'))?
+    };
+    Some(humantime::format_rfc3339_micros(parsed).to_string())
+}
+
+/// A record as the compliance endpoints show it: the stored request and response embedded as
+/// JSON, byte for byte.
+#[derive(Serialize)]
+pub struct RecordView<'a> {
+    pub decision_id: &'a str,
+    pub application_id: &'a str,
+    pub idempotency_key: Option<&'a str>,
+    pub received_at: &'a str,
+    pub decided_at: &'a str,
+    pub model: ModelRef<'a>,
+    pub plumbline_version: &'a str,
+    pub request_sha256: &'a str,
+    pub outcome: &'a str,
+    pub probability_of_default: f64,
+    pub score: i64,
+    pub request: &'a serde_json::value::RawValue,
+    pub response: &'a serde_json::value::RawValue,
+}
+
+#[derive(Serialize)]
+pub struct ModelRef<'a> {
+    pub id: &'a str,
+    pub version: &'a str,
+    pub sha256: &'a str,
+}
+
+impl Record {
+    /// The JSON view; fails only if stored text is not JSON (a damaged store).
+    pub fn view(&self) -> Result<String, StoreError> {
+        fn raw<'a>(t: &'a str, id: &str) -> Result<&'a serde_json::value::RawValue, StoreError> {
+            serde_json::from_str(t)
+                .map_err(|e| StoreError::Failed(format!("record {id} holds invalid JSON: {e}")))
+        }
+        let view = RecordView {
+            decision_id: &self.decision_id,
+            application_id: &self.application_id,
+            idempotency_key: self.idempotency_key.as_deref(),
+            received_at: &self.received_at,
+            decided_at: &self.decided_at,
+            model: ModelRef {
+                id: &self.model_id,
+                version: &self.model_version,
+                sha256: &self.model_sha256,
+            },
+            plumbline_version: &self.plumbline_version,
+            request_sha256: &self.request_sha256,
+            outcome: &self.outcome,
+            probability_of_default: self.probability,
+            score: self.score,
+            request: raw(&self.request, &self.decision_id)?,
+            response: raw(&self.response, &self.decision_id)?,
+        };
+        serde_json::to_string(&view).map_err(|e| StoreError::Failed(e.to_string()))
+    }
+}

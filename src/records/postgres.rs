@@ -1,0 +1,254 @@
+//! The shared store for several service replicas: one PostgreSQL database. A decision is
+//! committed before its response is sent; the unique idempotency key makes a retry sent to any
+//! replica find the first record. Migrations run under an advisory lock, so replicas starting
+//! together apply each exactly once.
+//!
+//! The client is the synchronous `postgres` crate; it is called only from the recorder thread and
+//! the blocking pool, never from an async worker.
+
+use super::sql::{self, MIGRATIONS, MIGRATIONS_TABLE};
+use super::{Insert, Page, Query, Record, Store, StoreError};
+use postgres::fallible_iterator::FallibleIterator;
+use postgres::types::ToSql;
+use postgres::{Client, NoTls, Row};
+use std::sync::Mutex;
+
+/// Read connections kept open for reuse.
+const IDLE_READERS: usize = 8;
+/// Key of the advisory lock held while migrating (any constant shared by all replicas).
+const MIGRATION_LOCK: i64 = 0x706c_756d_626c;
+
+pub struct PostgresStore {
+    url: String,
+    writer: Mutex<Option<Client>>,
+    readers: Mutex<Vec<Client>>,
+}
+
+fn failed(e: postgres::Error) -> StoreError {
+    if e.is_closed() {
+        StoreError::Unavailable(e.to_string())
+    } else {
+        StoreError::Failed(format!(
+            "{e}{}",
+            e.as_db_error()
+                .map(|d| format!(" ({})", d.message()))
+                .unwrap_or_default()
+        ))
+    }
+}
+
+fn connect(url: &str) -> Result<Client, StoreError> {
+    Client::connect(url, NoTls).map_err(|e| StoreError::Unavailable(format!("cannot connect: {e}")))
+}
+
+fn row_to_record(r: &Row) -> Result<Record, StoreError> {
+    let get = |i: usize| -> Result<String, StoreError> { r.try_get(i).map_err(failed) };
+    Ok(Record {
+        decision_id: get(0)?,
+        application_id: get(1)?,
+        idempotency_key: r.try_get(2).map_err(failed)?,
+        received_at: get(3)?,
+        decided_at: get(4)?,
+        model_id: get(5)?,
+        model_version: get(6)?,
+        model_sha256: get(7)?,
+        plumbline_version: get(8)?,
+        request_sha256: get(9)?,
+        outcome: get(10)?,
+        probability: r.try_get(11).map_err(failed)?,
+        score: r.try_get(12).map_err(failed)?,
+        request: get(13)?,
+        response: get(14)?,
+    })
+}
+
+fn migrate(c: &mut Client) -> Result<(), StoreError> {
+    let mut tx = c.transaction().map_err(failed)?;
+    tx.execute("SELECT pg_advisory_xact_lock($1)", &[&MIGRATION_LOCK])
+        .map_err(failed)?;
+    tx.batch_execute(MIGRATIONS_TABLE).map_err(failed)?;
+    let done: i64 = tx
+        .query_one(
+            "SELECT COALESCE(MAX(version), 0)::BIGINT FROM plumbline_migrations",
+            &[],
+        )
+        .map_err(failed)?
+        .get(0);
+    for m in MIGRATIONS.iter().filter(|m| m.version > done) {
+        tx.batch_execute(m.sql).map_err(failed)?;
+        tx.execute(
+            "INSERT INTO plumbline_migrations (version, about, applied_at) VALUES ($1, $2, $3)",
+            &[&m.version, &m.about, &super::now()],
+        )
+        .map_err(failed)?;
+    }
+    tx.commit().map_err(failed)
+}
+
+fn text_params(params: &[String]) -> Vec<&(dyn ToSql + Sync)> {
+    params.iter().map(|p| p as &(dyn ToSql + Sync)).collect()
+}
+
+impl PostgresStore {
+    /// Connects, and applies pending migrations.
+    pub fn open(url: &str) -> Result<Self, StoreError> {
+        let mut writer = connect(url)?;
+        migrate(&mut writer)?;
+        Ok(PostgresStore {
+            url: url.to_string(),
+            writer: Mutex::new(Some(writer)),
+            readers: Mutex::new(Vec::new()),
+        })
+    }
+
+    fn with_reader<T>(
+        &self,
+        f: impl FnOnce(&mut Client) -> Result<T, StoreError>,
+    ) -> Result<T, StoreError> {
+        let idle = self.readers.lock().ok().and_then(|mut v| v.pop());
+        let mut conn = match idle {
+            Some(c) if !c.is_closed() => c,
+            _ => connect(&self.url)?,
+        };
+        let out = f(&mut conn);
+        if let Ok(mut v) = self.readers.lock() {
+            if v.len() < IDLE_READERS && !conn.is_closed() {
+                v.push(conn);
+            }
+        }
+        out
+    }
+}
+
+fn by_key(tx: &mut postgres::Transaction, key: &str) -> Result<Option<Record>, StoreError> {
+    let rows = tx
+        .query(
+            &format!(
+                "SELECT {} FROM decisions WHERE idempotency_key = $1",
+                sql::COLUMNS
+            ),
+            &[&key],
+        )
+        .map_err(failed)?;
+    rows.first().map(row_to_record).transpose()
+}
+
+impl Store for PostgresStore {
+    fn insert_group(&self, records: &[Record]) -> Result<Vec<Insert>, StoreError> {
+        let mut guard = self
+            .writer
+            .lock()
+            .map_err(|_| StoreError::Failed("writer lock poisoned".into()))?;
+        if guard.as_ref().is_none_or(Client::is_closed) {
+            *guard = Some(connect(&self.url)?);
+        }
+        let Some(client) = guard.as_mut() else {
+            return Err(StoreError::Unavailable("no connection".into()));
+        };
+        let mut tx = client.transaction().map_err(failed)?;
+        let insert = tx.prepare(sql::INSERT).map_err(failed)?;
+        let mut out = Vec::with_capacity(records.len());
+        for r in records {
+            let written = tx
+                .execute(
+                    &insert,
+                    &[
+                        &r.decision_id,
+                        &r.application_id,
+                        &r.idempotency_key,
+                        &r.received_at,
+                        &r.decided_at,
+                        &r.model_id,
+                        &r.model_version,
+                        &r.model_sha256,
+                        &r.plumbline_version,
+                        &r.request_sha256,
+                        &r.outcome,
+                        &r.probability,
+                        &r.score,
+                        &r.request,
+                        &r.response,
+                    ],
+                )
+                .map_err(failed)?;
+            out.push(match (written, &r.idempotency_key) {
+                (1, _) => Insert::Inserted,
+                (_, Some(key)) => match by_key(&mut tx, key)? {
+                    Some(existing) => Insert::Existing(Box::new(existing)),
+                    None => return Err(StoreError::Failed("conflict without a record".into())),
+                },
+                (_, None) => return Err(StoreError::Failed("record not written".into())),
+            });
+        }
+        tx.commit().map_err(failed)?;
+        Ok(out)
+    }
+
+    fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError> {
+        self.with_reader(|c| {
+            let rows = c
+                .query(
+                    &format!(
+                        "SELECT {} FROM decisions WHERE decision_id = $1",
+                        sql::COLUMNS
+                    ),
+                    &[&decision_id],
+                )
+                .map_err(failed)?;
+            rows.first().map(row_to_record).transpose()
+        })
+    }
+
+    fn search(&self, query: &Query, limit: usize) -> Result<Page, StoreError> {
+        let limit = limit.clamp(1, super::MAX_PAGE);
+        let (text, params) = sql::select(query, Some(limit + 1));
+        self.with_reader(|c| {
+            let rows = c.query(&text, &text_params(&params)).map_err(failed)?;
+            let mut records = rows
+                .iter()
+                .map(row_to_record)
+                .collect::<Result<Vec<_>, _>>()?;
+            let next = (records.len() > limit).then(|| {
+                records.truncate(limit);
+                super::Cursor::after(&records[limit - 1])
+            });
+            Ok(Page { records, next })
+        })
+    }
+
+    fn export(
+        &self,
+        query: &Query,
+        sink: &mut dyn FnMut(&Record) -> bool,
+    ) -> Result<u64, StoreError> {
+        let (text, params) = sql::select(query, None);
+        self.with_reader(|c| {
+            // query_raw streams rows as the server sends them; nothing is collected.
+            let mut rows = c
+                .query_raw(&text, params.iter().map(|p| p as &(dyn ToSql + Sync)))
+                .map_err(failed)?;
+            let mut sent = 0;
+            while let Some(row) = rows.next().map_err(failed)? {
+                if !sink(&row_to_record(&row)?) {
+                    break;
+                }
+                sent += 1;
+            }
+            Ok(sent)
+        })
+    }
+
+    fn describe(&self) -> String {
+        // Never the password: host, port and database only.
+        let config: Result<postgres::Config, _> = self.url.parse();
+        match config {
+            Ok(c) => format!(
+                "postgres:{:?}:{:?}/{}",
+                c.get_hosts(),
+                c.get_ports(),
+                c.get_dbname().unwrap_or("")
+            ),
+            Err(_) => "postgres".into(),
+        }
+    }
+}

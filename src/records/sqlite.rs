@@ -1,0 +1,235 @@
+//! The embedded default store: one SQLite file in WAL mode with `synchronous = FULL`, so a
+//! committed group survives power loss. One write connection (the recorder's), a small pool
+//! of read connections.
+
+use super::sql::{self, MIGRATIONS, MIGRATIONS_TABLE};
+use super::{Insert, Page, Query, Record, Store, StoreError};
+use rusqlite::{params, Connection, OptionalExtension};
+use std::path::{Path, PathBuf};
+use std::sync::Mutex;
+
+/// Read connections kept open for reuse.
+const IDLE_READERS: usize = 8;
+
+pub struct SqliteStore {
+    path: PathBuf,
+    writer: Mutex<Connection>,
+    readers: Mutex<Vec<Connection>>,
+}
+
+fn failed(e: rusqlite::Error) -> StoreError {
+    StoreError::Failed(e.to_string())
+}
+
+fn connect(path: &Path) -> Result<Connection, StoreError> {
+    let c = Connection::open(path)
+        .map_err(|e| StoreError::Unavailable(format!("{}: {e}", path.display())))?;
+    c.busy_timeout(std::time::Duration::from_secs(10))
+        .map_err(failed)?;
+    c.pragma_update(None, "journal_mode", "WAL")
+        .map_err(failed)?;
+    c.pragma_update(None, "synchronous", "FULL")
+        .map_err(failed)?;
+    Ok(c)
+}
+
+fn row_to_record(r: &rusqlite::Row) -> rusqlite::Result<Record> {
+    Ok(Record {
+        decision_id: r.get(0)?,
+        application_id: r.get(1)?,
+        idempotency_key: r.get(2)?,
+        received_at: r.get(3)?,
+        decided_at: r.get(4)?,
+        model_id: r.get(5)?,
+        model_version: r.get(6)?,
+        model_sha256: r.get(7)?,
+        plumbline_version: r.get(8)?,
+        request_sha256: r.get(9)?,
+        outcome: r.get(10)?,
+        probability: r.get(11)?,
+        score: r.get(12)?,
+        request: r.get(13)?,
+        response: r.get(14)?,
+    })
+}
+
+impl SqliteStore {
+    /// Opens (creating if needed) the file and its folder, and applies pending migrations.
+    pub fn open(path: &Path) -> Result<Self, StoreError> {
+        if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
+            std::fs::create_dir_all(dir)
+                .map_err(|e| StoreError::Unavailable(format!("{}: {e}", dir.display())))?;
+        }
+        let mut writer = connect(path)?;
+        migrate(&mut writer)?;
+        Ok(SqliteStore {
+            path: path.to_path_buf(),
+            writer: Mutex::new(writer),
+            readers: Mutex::new(Vec::new()),
+        })
+    }
+
+    fn with_reader<T>(
+        &self,
+        f: impl FnOnce(&Connection) -> Result<T, StoreError>,
+    ) -> Result<T, StoreError> {
+        let idle = self.readers.lock().ok().and_then(|mut v| v.pop());
+        let conn = match idle {
+            Some(c) => c,
+            None => connect(&self.path)?,
+        };
+        let out = f(&conn);
+        if let Ok(mut v) = self.readers.lock() {
+            if v.len() < IDLE_READERS {
+                v.push(conn);
+            }
+        }
+        out
+    }
+}
+
+fn migrate(c: &mut Connection) -> Result<(), StoreError> {
+    let tx = c
+        .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)
+        .map_err(failed)?;
+    tx.execute_batch(MIGRATIONS_TABLE).map_err(failed)?;
+    let done: i64 = tx
+        .query_row(
+            "SELECT COALESCE(MAX(version), 0) FROM plumbline_migrations",
+            [],
+            |r| r.get(0),
+        )
+        .map_err(failed)?;
+    for m in MIGRATIONS.iter().filter(|m| m.version > done) {
+        // SQLite compares text bytewise by default and has no collation named "C".
+        tx.execute_batch(&m.sql.replace(" COLLATE \"C\"", ""))
+            .map_err(failed)?;
+        tx.execute(
+            "INSERT INTO plumbline_migrations (version, about, applied_at) VALUES (?1, ?2, ?3)",
+            params![m.version, m.about, super::now()],
+        )
+        .map_err(failed)?;
+    }
+    tx.commit().map_err(failed)
+}
+
+fn by_key(c: &Connection, key: &str) -> Result<Option<Record>, StoreError> {
+    c.query_row(
+        &format!(
+            "SELECT {} FROM decisions WHERE idempotency_key = ?1",
+            sql::COLUMNS
+        ),
+        [key],
+        row_to_record,
+    )
+    .optional()
+    .map_err(failed)
+}
+
+impl Store for SqliteStore {
+    fn insert_group(&self, records: &[Record]) -> Result<Vec<Insert>, StoreError> {
+        let mut c = self
+            .writer
+            .lock()
+            .map_err(|_| StoreError::Failed("writer lock poisoned".into()))?;
+        let tx = c
+            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)
+            .map_err(failed)?;
+        let mut out = Vec::with_capacity(records.len());
+        {
+            let mut insert = tx
+                .prepare_cached(&sql::for_sqlite(sql::INSERT))
+                .map_err(failed)?;
+            for r in records {
+                let written = insert
+                    .execute(params![
+                        r.decision_id,
+                        r.application_id,
+                        r.idempotency_key,
+                        r.received_at,
+                        r.decided_at,
+                        r.model_id,
+                        r.model_version,
+                        r.model_sha256,
+                        r.plumbline_version,
+                        r.request_sha256,
+                        r.outcome,
+                        r.probability,
+                        r.score,
+                        r.request,
+                        r.response
+                    ])
+                    .map_err(failed)?;
+                out.push(match (written, &r.idempotency_key) {
+                    (1, _) => Insert::Inserted,
+                    (_, Some(key)) => match by_key(&tx, key)? {
+                        Some(existing) => Insert::Existing(Box::new(existing)),
+                        None => return Err(StoreError::Failed("conflict without a record".into())),
+                    },
+                    (_, None) => return Err(StoreError::Failed("record not written".into())),
+                });
+            }
+        }
+        tx.commit().map_err(failed)?;
+        Ok(out)
+    }
+
+    fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError> {
+        self.with_reader(|c| {
+            c.query_row(
+                &format!(
+                    "SELECT {} FROM decisions WHERE decision_id = ?1",
+                    sql::COLUMNS
+                ),
+                [decision_id],
+                row_to_record,
+            )
+            .optional()
+            .map_err(failed)
+        })
+    }
+
+    fn search(&self, query: &Query, limit: usize) -> Result<Page, StoreError> {
+        let limit = limit.clamp(1, super::MAX_PAGE);
+        let (text, params) = sql::select(query, Some(limit + 1));
+        self.with_reader(|c| {
+            let mut stmt = c.prepare(&sql::for_sqlite(&text)).map_err(failed)?;
+            let mut records: Vec<Record> = stmt
+                .query_map(rusqlite::params_from_iter(params.iter()), row_to_record)
+                .map_err(failed)?
+                .collect::<Result<_, _>>()
+                .map_err(failed)?;
+            let next = (records.len() > limit).then(|| {
+                records.truncate(limit);
+                super::Cursor::after(&records[limit - 1])
+            });
+            Ok(Page { records, next })
+        })
+    }
+
+    fn export(
+        &self,
+        query: &Query,
+        sink: &mut dyn FnMut(&Record) -> bool,
+    ) -> Result<u64, StoreError> {
+        let (text, params) = sql::select(query, None);
+        self.with_reader(|c| {
+            let mut stmt = c.prepare(&sql::for_sqlite(&text)).map_err(failed)?;
+            let mut rows = stmt
+                .query(rusqlite::params_from_iter(params.iter()))
+                .map_err(failed)?;
+            let mut sent = 0;
+            while let Some(row) = rows.next().map_err(failed)? {
+                if !sink(&row_to_record(row).map_err(failed)?) {
+                    break;
+                }
+                sent += 1;
+            }
+            Ok(sent)
+        })
+    }
+
+    fn describe(&self) -> String {
+        format!("sqlite:{}", self.path.display())
+    }
+}
