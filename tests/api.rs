@@ -34,7 +34,14 @@ fn decision_bytes_equal_the_command_line() {
         ])
         .output()
         .unwrap();
-    assert_eq!(String::from_utf8(out.stdout).unwrap(), format!("{body}\n"));
+    // The service's bytes are the command line's, plus the record reference at the end.
+    let cli = String::from_utf8(out.stdout).unwrap();
+    let decision = cli.trim_end().strip_suffix('}').unwrap();
+    let rest = body.strip_prefix(decision).expect("same decision bytes");
+    assert!(
+        rest.starts_with(",\"record\":{\"decision_id\":\""),
+        "{rest}"
+    );
 }
 
 #[test]
@@ -283,7 +290,11 @@ fn reload_under_load_drops_nothing() {
             std::thread::yield_now();
         }
         let before = done.load(Ordering::Relaxed);
-        for _ in 0..10 {
+        // At least 10 reloads, and on until 10 decisions have completed among them (each
+        // decision waits for its record's commit, so they can be slower than a reload).
+        let mut reloads = 0;
+        while reloads < 10 || (done.load(Ordering::Relaxed) - before < 10 && reloads < 5_000) {
+            reloads += 1;
             assert_eq!(
                 send(
                     "POST",
@@ -311,7 +322,7 @@ fn reload_under_load_drops_nothing() {
 fn wrong_method_is_405_and_scheme_is_case_insensitive() {
     let server = TestServer::demo();
     let (status, ct, _) = send(
-        "GET",
+        "PUT",
         &server.url("/v1/decisions"),
         Some(SCORING),
         None,

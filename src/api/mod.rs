@@ -5,9 +5,11 @@
 
 pub mod auth;
 mod body;
+mod compliance;
 mod metrics;
 pub mod openapi;
 pub mod problem;
+mod recording;
 pub mod registry;
 mod routes;
 
@@ -56,6 +58,8 @@ pub struct ServeConfig {
     pub auth: Auth,
     pub limits: Limits,
     pub workers: usize,
+    /// Where decisions are recorded (`sqlite:PATH` or `postgres://...`); `None` records nothing.
+    pub store: Option<String>,
 }
 
 /// Shared by all workers.
@@ -64,6 +68,8 @@ pub struct State {
     pub auth: Auth,
     pub metrics: metrics::Metrics,
     pub limits: Limits,
+    /// Writes decision records (group commit); `None` when records are off.
+    pub recorder: Option<crate::records::Recorder>,
 }
 
 /// A started server: where it listens and how to stop it.
@@ -108,11 +114,21 @@ fn resource(path: &str, route: actix_web::Route) -> actix_web::Resource {
 /// Validates every model and binds the address; the returned server runs once awaited.
 pub fn start(config: ServeConfig) -> Result<Running, String> {
     let registry = Registry::new(config.models.clone())?;
+    let recorder = match &config.store {
+        Some(location) => {
+            let store = crate::records::open(location)
+                .map_err(|e| format!("decision store {location}: {e}"))?;
+            tracing::info!(store = %store.describe(), "recording decisions");
+            Some(crate::records::Recorder::start(store))
+        }
+        None => None,
+    };
     let state = web::Data::new(State {
         registry,
         auth: config.auth.clone(),
         metrics: Default::default(),
         limits: config.limits.clone(),
+        recorder,
     });
     let limits = config.limits.clone();
     let server = HttpServer::new(move || {
@@ -139,8 +155,19 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
                     Ok(res)
                 }
             })
-            .service(resource("/v1/decisions", web::post().to(routes::post_decision)))
+            .service(
+                web::resource("/v1/decisions")
+                    .route(web::post().to(routes::post_decision))
+                    .route(web::get().to(compliance::search))
+                    .default_service(web::to(routes::method_not_allowed)),
+            )
             .service(resource("/v1/decisions/batch", web::post().to(routes::post_batch)))
+            .service(resource("/v1/decisions/export", web::get().to(compliance::export)))
+            .service(resource("/v1/decisions/{id}", web::get().to(compliance::get_decision)))
+            .service(resource(
+                "/v1/decisions/{id}/adverse-action",
+                web::get().to(compliance::adverse_action),
+            ))
             .service(resource("/v1/models", web::get().to(routes::get_models)))
             .service(resource("/v1/models/{id}", web::get().to(routes::get_model)))
             .service(resource("/v1/admin/reload", web::post().to(routes::reload)))

@@ -185,6 +185,79 @@ impl Problem {
         )
     }
 
+    pub fn idempotency_conflict(key: &str, decision_id: &str) -> Self {
+        Problem::new(
+            StatusCode::CONFLICT,
+            "/problems/idempotency-conflict",
+            "This idempotency key was used for a different request",
+            format!("idempotency_key {key:?} is recorded with decision {decision_id} for a request with a different body; send a new key for a new request"),
+        )
+        .with("idempotency_key", "same_request", "a retry must repeat the original request exactly")
+    }
+
+    /// The decision could not be committed, so it is not given (nothing unrecorded leaves).
+    pub fn not_recorded(e: &crate::records::StoreError) -> Self {
+        Problem::new(
+            StatusCode::SERVICE_UNAVAILABLE,
+            "/problems/not-recorded",
+            "The decision could not be recorded, so it was not given",
+            format!("{e}; retry (with the same idempotency_key, if one was sent)"),
+        )
+    }
+
+    pub fn store_failed(e: &crate::records::StoreError) -> Self {
+        Problem::new(
+            StatusCode::SERVICE_UNAVAILABLE,
+            "/problems/store-unavailable",
+            "The decision records cannot be read just now",
+            e.to_string(),
+        )
+    }
+
+    pub fn records_off() -> Self {
+        Problem::new(
+            StatusCode::NOT_FOUND,
+            "/problems/records-off",
+            "This service keeps no decision records",
+            "it was started with --no-store; decisions are not recorded here",
+        )
+    }
+
+    pub fn unknown_decision(id: &str) -> Self {
+        Problem::new(
+            StatusCode::NOT_FOUND,
+            "/problems/unknown-decision",
+            "No such decision is recorded",
+            format!("no decision {id} is recorded in this store"),
+        )
+        .with(
+            "decision_id",
+            "recorded",
+            "must be the id of a recorded decision",
+        )
+    }
+
+    pub fn no_adverse_action(id: &str) -> Self {
+        Problem::new(
+            StatusCode::CONFLICT,
+            "/problems/no-adverse-action",
+            "The decision was an approval; no adverse action was taken",
+            format!("decision {id} approved the application, so there are no adverse-action reasons to give"),
+        )
+    }
+
+    /// A bad query-string parameter: which one and the rule.
+    pub fn bad_query(param: &str, rule: &'static str, message: impl Into<String>) -> Self {
+        let message = message.into();
+        Problem::new(
+            StatusCode::BAD_REQUEST,
+            "/problems/invalid-query",
+            "A query parameter is invalid",
+            format!("{param}: {message}"),
+        )
+        .with(param, rule, message)
+    }
+
     pub fn status(&self) -> StatusCode {
         StatusCode::from_u16(self.status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR)
     }

@@ -4,7 +4,7 @@
 use super::auth::Role;
 use super::body::read_json;
 use super::problem::Problem;
-use super::State;
+use super::{recording, State};
 use crate::decide::{decide_envelope, Decision, Envelope};
 use crate::features::{FieldType, Missing};
 use crate::LoadedModel;
@@ -55,7 +55,13 @@ pub struct ModelSelectorDoc {
     version: Option<String>,
 }
 
-fn decide_value(state: &State, request: &Value) -> Result<(Decision, &'static str), Problem> {
+/// A decision and the idempotency key its request carried.
+struct Decided {
+    decision: Decision,
+    idempotency_key: Option<String>,
+}
+
+fn decide_value(state: &State, request: &Value) -> Result<Decided, Problem> {
     let envelope = Envelope::parse(request).map_err(Problem::invalid)?;
     let set = state.registry.current();
     let Some(model) = set.select(envelope.model.as_ref()) else {
@@ -77,17 +83,25 @@ fn decide_value(state: &State, request: &Value) -> Result<(Decision, &'static st
         return Err(Problem::invalid(crate::InputError { errors }));
     };
     let decision = decide_envelope(&model, &envelope).map_err(Problem::invalid)?;
-    let outcome = decision.outcome.name();
-    state
-        .metrics
-        .observe_decision(&model.identity.model_id, &model.identity.version, outcome);
-    Ok((decision, outcome))
+    Ok(Decided {
+        decision,
+        idempotency_key: envelope.idempotency_key,
+    })
+}
+
+fn observe(state: &State, decision: &Decision, outcome: &str) {
+    let outcome = match outcome {
+        "approve" => "approve",
+        "refer" => "refer",
+        _ => "decline",
+    };
+    (state.metrics).observe_decision(&decision.model.id, &decision.model.version, outcome);
 }
 
 /// Decide one application.
 #[utoipa::path(post, path = "/v1/decisions", tag = "decisions", request_body = DecisionRequest,
     responses(
-        (status = 200, description = "The decision: probability, score, outcome, reasons and exact contributions", body = Decision),
+        (status = 200, description = "The decision: probability, score, outcome, reasons and exact contributions, plus `record` (RecordRef: decision_id, decided_at) once committed to the store. A retry with a recorded idempotency_key and the same body returns the stored bytes with header `idempotency-replayed: true`", body = Decision),
         (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The key's role may not decide", body = Problem, content_type = "application/problem+json"),
@@ -95,7 +109,9 @@ fn decide_value(state: &State, request: &Value) -> Result<(Decision, &'static st
         (status = 408, description = "The body arrived too slowly", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Body larger than the limit", body = Problem, content_type = "application/problem+json"),
         (status = 415, description = "Content-Type is not application/json", body = Problem, content_type = "application/problem+json"),
+        (status = 409, description = "The idempotency_key is recorded for a different request", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "Fields break the model's schema: each is named with its rule", body = Problem, content_type = "application/problem+json"),
+        (status = 503, description = "The decision could not be recorded, so it was not given", body = Problem, content_type = "application/problem+json"),
     ),
     security(("api_key" = [])))]
 pub async fn post_decision(
@@ -103,6 +119,7 @@ pub async fn post_decision(
     req: HttpRequest,
     payload: web::Payload,
 ) -> Result<HttpResponse, Problem> {
+    let received_at = crate::records::now();
     authorize(&state, &req, DECIDERS)?;
     let request = read_json(
         &req,
@@ -111,8 +128,29 @@ pub async fn post_decision(
         state.limits.body_timeout,
     )
     .await?;
-    let (decision, _) = decide_value(&state, &request)?;
-    Ok(json(&decision))
+    let Decided {
+        decision,
+        idempotency_key,
+    } = decide_value(&state, &request)?;
+    let Some(recorder) = &state.recorder else {
+        observe(&state, &decision, decision.outcome.name());
+        return Ok(json(&decision));
+    };
+    let record = recording::record_for(&decision, idempotency_key, &request, received_at);
+    let mut outcomes =
+        (recorder.record(vec![record.clone()]).await).map_err(|e| Problem::not_recorded(&e))?;
+    let outcome = outcomes
+        .pop()
+        .ok_or_else(|| Problem::internal("the store gave no outcome"))?;
+    let given = recording::settle(record, outcome)?;
+    if !given.replayed {
+        observe(&state, &decision, &given.outcome);
+    }
+    let mut response = HttpResponse::Ok();
+    if given.replayed {
+        response.insert_header(("idempotency-replayed", "true"));
+    }
+    Ok(response.content_type("application/json").body(given.body))
 }
 
 #[derive(ToSchema)]
@@ -127,8 +165,10 @@ pub struct BatchRequestDoc {
 pub struct BatchItem {
     pub index: usize,
     pub status: u16,
+    /// The decision as recorded (with its `record` reference when the service keeps records).
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub decision: Option<Decision>,
+    #[schema(value_type = Option<Decision>)]
+    pub decision: Option<Box<serde_json::value::RawValue>>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub problem: Option<Problem>,
 }
@@ -185,18 +225,56 @@ pub async fn post_batch(
     }
     // A full batch is milliseconds of CPU: run it on the blocking pool so this worker keeps
     // reading other requests (and finishes them on shutdown) meanwhile.
+    let received_at = crate::records::now();
     let state = state.into_inner();
-    let response = web::block(move || decide_batch(&state, &body))
+    let worker = state.clone();
+    let decided = web::block(move || decide_batch(&worker, &body, received_at))
         .await
         .map_err(|_| Problem::internal("the batch worker stopped"))?;
-    Ok(json(&response))
+    Ok(json(&batch_response(&state, decided).await?))
 }
 
-fn decide_batch(state: &State, body: &Value) -> BatchResponse {
+/// Each item decided, as the record to write (or as the bare decision when records are off).
+enum ItemResult {
+    Recorded(crate::records::Record),
+    Unrecorded(Decision),
+    Failed(Problem),
+}
+
+fn decide_batch(state: &State, body: &Value, received_at: String) -> Vec<ItemResult> {
     let items = body["items"]
         .as_array()
         .map(Vec::as_slice)
         .unwrap_or_default();
+    (items.iter())
+        .map(|item| match decide_value(state, item) {
+            Ok(d) if state.recorder.is_some() => ItemResult::Recorded(recording::record_for(
+                &d.decision,
+                d.idempotency_key,
+                item,
+                received_at.clone(),
+            )),
+            Ok(d) => ItemResult::Unrecorded(d.decision),
+            Err(p) => ItemResult::Failed(p),
+        })
+        .collect()
+}
+
+/// Records every decided item in one group (committed before anything is sent), then reports
+/// each item: its decision as recorded, or its own problem.
+async fn batch_response(state: &State, items: Vec<ItemResult>) -> Result<BatchResponse, Problem> {
+    let records: Vec<crate::records::Record> = (items.iter())
+        .filter_map(|i| match i {
+            ItemResult::Recorded(r) => Some(r.clone()),
+            _ => None,
+        })
+        .collect();
+    let mut outcomes = match (&state.recorder, records.is_empty()) {
+        (Some(recorder), false) => (recorder.record(records).await)
+            .map_err(|e| Problem::not_recorded(&e))?
+            .into_iter(),
+        _ => Vec::new().into_iter(),
+    };
     let mut response = BatchResponse {
         results: Vec::with_capacity(items.len()),
         approved: 0,
@@ -204,10 +282,22 @@ fn decide_batch(state: &State, body: &Value) -> BatchResponse {
         declined: 0,
         failed: 0,
     };
-    for (index, item) in items.iter().enumerate() {
-        response.results.push(match decide_value(state, item) {
-            Ok((decision, outcome)) => {
-                match outcome {
+    for (index, item) in items.into_iter().enumerate() {
+        let given = match item {
+            ItemResult::Recorded(record) => {
+                let outcome = (outcomes.next())
+                    .ok_or_else(|| Problem::internal("the store gave too few outcomes"))?;
+                recording::settle(record, outcome).map(|g| (g.body, g.outcome))
+            }
+            ItemResult::Unrecorded(d) => Ok((
+                serde_json::to_string(&d).unwrap_or_default(),
+                d.outcome.name().to_string(),
+            )),
+            ItemResult::Failed(p) => Err(p),
+        };
+        response.results.push(match given {
+            Ok((body, outcome)) => {
+                match outcome.as_str() {
                     "approve" => response.approved += 1,
                     "refer" => response.referred += 1,
                     _ => response.declined += 1,
@@ -215,7 +305,7 @@ fn decide_batch(state: &State, body: &Value) -> BatchResponse {
                 BatchItem {
                     index,
                     status: 200,
-                    decision: Some(decision),
+                    decision: serde_json::value::RawValue::from_string(body).ok(),
                     problem: None,
                 }
             }
@@ -230,7 +320,7 @@ fn decide_batch(state: &State, body: &Value) -> BatchResponse {
             }
         });
     }
-    response
+    Ok(response)
 }
 
 /// What a loaded model is: identity, digest, fields, cutoffs and reasons.

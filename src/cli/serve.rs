@@ -42,6 +42,17 @@ pub struct ServeArgs {
     /// Worker threads (default: one per core).
     #[arg(long)]
     workers: Option<usize>,
+    /// Where decisions are recorded: `sqlite:PATH` (embedded, the default) or
+    /// `postgres://USER@HOST:PORT/DB` (shared by several replicas).
+    #[arg(
+        long,
+        env = "PLUMBLINE_STORE",
+        default_value = "sqlite:plumbline-data/records.sqlite3"
+    )]
+    store: String,
+    /// Record nothing (benchmarks and trials only: decisions could not be recovered later).
+    #[arg(long, conflicts_with = "store")]
+    no_store: bool,
 }
 
 fn keys(args: &ServeArgs) -> Result<Auth, String> {
@@ -111,7 +122,13 @@ pub fn run(args: ServeArgs) -> i32 {
             return EXIT_BAD_INPUT;
         }
     };
+    if args.no_store {
+        let banner = "RECORDS ARE OFF (--no-store): decisions are given but not recorded, so no notice or examiner can recover them";
+        tracing::warn!("{banner}");
+        eprintln!("\n*** WARNING: {banner} ***\n");
+    }
     let config = ServeConfig {
+        store: (!args.no_store).then(|| args.store.clone()),
         addr: args.addr,
         models: args.models,
         auth,

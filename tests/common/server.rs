@@ -9,6 +9,9 @@ pub const ADMIN: &str = "fernhill-demo-admin-key";
 
 pub struct TestServer {
     pub base: String,
+    /// The store the server records into (a fresh SQLite file unless given).
+    pub store: Option<String>,
+    _dir: Option<super::stores::TempDir>,
     handle: actix_web::dev::ServerHandle,
     thread: Option<std::thread::JoinHandle<()>>,
 }
@@ -23,8 +26,23 @@ impl TestServer {
         )
     }
 
+    /// Records into a fresh SQLite file.
     pub fn start(models: Vec<PathBuf>, auth: Auth, limits: Limits) -> Self {
+        let (location, dir) = super::stores::sqlite();
+        let mut s = Self::start_with(models, auth, limits, Some(location));
+        s._dir = Some(dir);
+        s
+    }
+
+    /// Records into `store` (`None`: records off).
+    pub fn start_with(
+        models: Vec<PathBuf>,
+        auth: Auth,
+        limits: Limits,
+        store: Option<String>,
+    ) -> Self {
         let config = ServeConfig {
+            store: store.clone(),
             addr: "127.0.0.1:0".parse().unwrap(),
             models,
             auth,
@@ -43,6 +61,8 @@ impl TestServer {
         let (addr, handle) = rx.recv().expect("server reports its address");
         TestServer {
             base: format!("http://{addr}"),
+            store,
+            _dir: None,
             handle,
             thread: Some(thread),
         }

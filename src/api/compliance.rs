@@ -1,0 +1,327 @@
+//! Compliance look-ups over the decision records (review role): one decision as recorded, its
+//! adverse-action content, a paginated search, and a streamed export. Everything is read from
+//! the record, never recomputed.
+
+use super::auth::Role;
+use super::problem::Problem;
+use super::State;
+use crate::records::{export::Format, notice, Cursor, Query, Record, Store};
+use actix_web::web::{self, Bytes};
+use actix_web::{HttpRequest, HttpResponse};
+use serde::Serialize;
+use std::collections::HashMap;
+use std::sync::Arc;
+use utoipa::ToSchema;
+
+const REVIEWERS: &[Role] = &[Role::Review];
+/// Page size when `limit` is not given.
+pub const DEFAULT_PAGE: usize = 100;
+/// Export chunks are flushed at about this size.
+const CHUNK_BYTES: usize = 64 * 1024;
+
+fn store(state: &State, req: &HttpRequest) -> Result<Arc<dyn Store>, Problem> {
+    let header = (req.headers().get("authorization")).and_then(|v| v.to_str().ok());
+    state.auth.check(header, REVIEWERS)?;
+    let recorder = state.recorder.as_ref().ok_or_else(Problem::records_off)?;
+    Ok(recorder.store().clone())
+}
+
+async fn blocking<T: Send + 'static>(
+    f: impl FnOnce() -> Result<T, crate::records::StoreError> + Send + 'static,
+) -> Result<T, Problem> {
+    web::block(f)
+        .await
+        .map_err(|_| Problem::internal("the store worker stopped"))?
+        .map_err(|e| Problem::store_failed(&e))
+}
+
+fn found(id: &str, record: Option<Record>) -> Result<Record, Problem> {
+    record.ok_or_else(|| Problem::unknown_decision(id))
+}
+
+/// One decision exactly as recorded: request, response, model and times.
+#[utoipa::path(get, path = "/v1/decisions/{id}", tag = "records",
+    params(("id" = String, Path, description = "decision id (the response's record.decision_id)")),
+    responses(
+        (status = 200, description = "The record; `request` and `response` are the stored JSON, byte for byte", content_type = "application/json"),
+        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "Only review keys may read records", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "No such decision, or records are off", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("api_key" = [])))]
+pub async fn get_decision(
+    state: web::Data<State>,
+    req: HttpRequest,
+    id: web::Path<String>,
+) -> Result<HttpResponse, Problem> {
+    let store = store(&state, &req)?;
+    let id = id.into_inner();
+    let key = id.clone();
+    let record = found(&id, blocking(move || store.get(&key)).await?)?;
+    let body = record.view().map_err(|e| Problem::store_failed(&e))?;
+    Ok(HttpResponse::Ok()
+        .content_type("application/json")
+        .body(body))
+}
+
+/// Notice-ready adverse-action content, read from the record.
+#[utoipa::path(get, path = "/v1/decisions/{id}/adverse-action", tag = "records",
+    params(("id" = String, Path, description = "decision id")),
+    responses(
+        (status = 200, description = "Principal reasons in order with their text, decision date, score and key factors, model version", content_type = "application/json"),
+        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "Only review keys may read records", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "No such decision", body = Problem, content_type = "application/problem+json"),
+        (status = 409, description = "The decision was an approval", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("api_key" = [])))]
+pub async fn adverse_action(
+    state: web::Data<State>,
+    req: HttpRequest,
+    id: web::Path<String>,
+) -> Result<HttpResponse, Problem> {
+    let store = store(&state, &req)?;
+    let id = id.into_inner();
+    let key = id.clone();
+    let record = found(&id, blocking(move || store.get(&key)).await?)?;
+    match notice::adverse_action(&record) {
+        Ok(n) => Ok(HttpResponse::Ok().json(n)),
+        Err(notice::NoNotice::Approved) => Err(Problem::no_adverse_action(&id)),
+        Err(notice::NoNotice::Damaged(e)) => Err(Problem::store_failed(&e)),
+    }
+}
+
+/// Parameters every records query accepts; others are named in a 400.
+const FILTERS: &[&str] = &[
+    "application_id",
+    "from",
+    "to",
+    "outcome",
+    "model_id",
+    "model_version",
+];
+
+/// The filters of a query string; `extra` lists further parameters the route reads itself.
+fn parse_query(
+    req: &HttpRequest,
+    extra: &[&str],
+) -> Result<(Query, HashMap<String, String>), Problem> {
+    let params = web::Query::<HashMap<String, String>>::from_query(req.query_string())
+        .map_err(|e| Problem::bad_query("query", "form_encoded", e.to_string()))?
+        .into_inner();
+    if let Some(unknown) = params
+        .keys()
+        .find(|k| !FILTERS.contains(&k.as_str()) && !extra.contains(&k.as_str()))
+    {
+        return Err(Problem::bad_query(
+            unknown,
+            "known_parameter",
+            format!(
+                "not a parameter of this route; use {}",
+                [FILTERS, extra].concat().join(", ")
+            ),
+        ));
+    }
+    let time = |name: &str, end: bool| -> Result<Option<String>, Problem> {
+        params.get(name).map(|v| {
+            crate::records::normalise_time(v, end).ok_or_else(|| {
+                Problem::bad_query(name, "rfc3339", format!("{v:?} is not an RFC 3339 UTC time (2026-12-01T09:30:00Z) or a date (2026-12-01)"))
+            })
+        }).transpose()
+    };
+    let (from, to) = (time("from", false)?, time("to", true)?);
+    if let (Some(f), Some(t)) = (&from, &to) {
+        if f >= t {
+            return Err(Problem::bad_query(
+                "to",
+                "after_from",
+                "the range is empty: `to` must be later than `from`",
+            ));
+        }
+    }
+    if let Some(o) = params.get("outcome") {
+        if !matches!(o.as_str(), "approve" | "refer" | "decline") {
+            return Err(Problem::bad_query(
+                "outcome",
+                "one_of",
+                "approve, refer or decline",
+            ));
+        }
+    }
+    let after = params
+        .get("cursor")
+        .map(|c| {
+            Cursor::decode(c).ok_or_else(|| {
+                Problem::bad_query(
+                    "cursor",
+                    "cursor",
+                    "not a cursor this service gave; use next_cursor from the previous page",
+                )
+            })
+        })
+        .transpose()?;
+    let query = Query {
+        application_id: params.get("application_id").cloned(),
+        from,
+        to,
+        outcome: params.get("outcome").cloned(),
+        model_id: params.get("model_id").cloned(),
+        model_version: params.get("model_version").cloned(),
+        after,
+    };
+    Ok((query, params))
+}
+
+/// One search hit: enough to find the decision; GET /v1/decisions/{id} has the rest.
+#[derive(Serialize, ToSchema)]
+pub struct DecisionSummary {
+    pub decision_id: String,
+    pub application_id: String,
+    pub decided_at: String,
+    pub outcome: String,
+    pub probability_of_default: f64,
+    pub score: i64,
+    pub model_id: String,
+    pub model_version: String,
+    pub reason_codes: Vec<String>,
+}
+
+#[derive(Serialize, ToSchema)]
+pub struct SearchPage {
+    /// Oldest first.
+    pub decisions: Vec<DecisionSummary>,
+    /// Pass as `cursor` for the next page; absent on the last page.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub next_cursor: Option<String>,
+}
+
+/// Search recorded decisions by application id, time range, outcome and model, a page at a time.
+#[utoipa::path(get, path = "/v1/decisions", tag = "records",
+    params(
+        ("application_id" = Option<String>, Query, description = "the lender's application id"),
+        ("from" = Option<String>, Query, description = "inclusive: RFC 3339 UTC time or a date"),
+        ("to" = Option<String>, Query, description = "exclusive time, or a date (that whole day included)"),
+        ("outcome" = Option<String>, Query, description = "approve, refer or decline"),
+        ("model_id" = Option<String>, Query, description = "model id"),
+        ("model_version" = Option<String>, Query, description = "model version"),
+        ("cursor" = Option<String>, Query, description = "next_cursor of the previous page"),
+        ("limit" = Option<usize>, Query, description = "page size, 1-500 (default 100)"),
+    ),
+    responses(
+        (status = 200, description = "A page of decisions, oldest first", body = SearchPage),
+        (status = 400, description = "A bad parameter: malformed cursor, time, or an empty range", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "Only review keys may read records", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("api_key" = [])))]
+pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
+    let store = store(&state, &req)?;
+    let (query, params) = parse_query(&req, &["cursor", "limit"])?;
+    let limit = match params.get("limit") {
+        None => DEFAULT_PAGE,
+        Some(v) => v
+            .parse::<usize>()
+            .ok()
+            .filter(|n| (1..=crate::records::MAX_PAGE).contains(n))
+            .ok_or_else(|| {
+                Problem::bad_query(
+                    "limit",
+                    "range",
+                    format!("a whole number from 1 to {}", crate::records::MAX_PAGE),
+                )
+            })?,
+    };
+    let page = blocking(move || store.search(&query, limit)).await?;
+    let body = SearchPage {
+        decisions: page
+            .records
+            .iter()
+            .map(|r| DecisionSummary {
+                decision_id: r.decision_id.clone(),
+                application_id: r.application_id.clone(),
+                decided_at: r.decided_at.clone(),
+                outcome: r.outcome.clone(),
+                probability_of_default: r.probability,
+                score: r.score,
+                model_id: r.model_id.clone(),
+                model_version: r.model_version.clone(),
+                reason_codes: crate::records::export::reason_codes(r),
+            })
+            .collect(),
+        next_cursor: page.next.map(|c| c.encode()),
+    };
+    Ok(HttpResponse::Ok().json(body))
+}
+
+/// Every decision in a range as JSON lines (full records) or CSV (summaries), streamed as read.
+#[utoipa::path(get, path = "/v1/decisions/export", tag = "records",
+    params(
+        ("format" = Option<String>, Query, description = "jsonl (default) or csv"),
+        ("from" = Option<String>, Query, description = "inclusive: RFC 3339 UTC time or a date"),
+        ("to" = Option<String>, Query, description = "exclusive time, or a date (that whole day included)"),
+        ("application_id" = Option<String>, Query, description = "the lender's application id"),
+        ("outcome" = Option<String>, Query, description = "approve, refer or decline"),
+        ("model_id" = Option<String>, Query, description = "model id"),
+        ("model_version" = Option<String>, Query, description = "model version"),
+    ),
+    responses(
+        (status = 200, description = "Records oldest first, streamed", content_type = "application/x-ndjson"),
+        (status = 400, description = "A bad parameter", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "Only review keys may read records", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("api_key" = [])))]
+pub async fn export(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
+    let store = store(&state, &req)?;
+    let (query, params) = parse_query(&req, &["format"])?;
+    let format = match params.get("format") {
+        None => Format::JsonLines,
+        Some(f) => Format::parse(f)
+            .ok_or_else(|| Problem::bad_query("format", "one_of", "jsonl or csv"))?,
+    };
+    // A reader thread sends chunks through a small bounded channel: memory stays bounded
+    // whatever the range, and a client that goes away stops the read.
+    let (tx, rx) = tokio::sync::mpsc::channel::<Result<Bytes, String>>(8);
+    std::thread::spawn(move || {
+        let mut chunk = String::from(format.header().unwrap_or_default());
+        let mut failed = None;
+        let result = store.export(&query, &mut |r| {
+            match format.line(r) {
+                Ok(line) => chunk.push_str(&line),
+                Err(e) => {
+                    failed = Some(e.to_string());
+                    return false;
+                }
+            }
+            if chunk.len() >= CHUNK_BYTES {
+                let full = std::mem::take(&mut chunk);
+                return tx.blocking_send(Ok(Bytes::from(full))).is_ok();
+            }
+            true
+        });
+        let end = match (result, failed) {
+            (Err(e), _) => Err(e.to_string()),
+            (_, Some(e)) => Err(e),
+            (Ok(_), None) => Ok(Bytes::from(chunk)),
+        };
+        if let Err(e) = &end {
+            tracing::error!(error = %e, "export stopped");
+        }
+        let _ = tx.blocking_send(end);
+    });
+    let stream = futures_util::stream::unfold(rx, |mut rx| async move {
+        let item = rx.recv().await?;
+        Some((item.map_err(actix_web::error::ErrorInternalServerError), rx))
+    });
+    let ext = match format {
+        Format::JsonLines => "jsonl",
+        Format::Csv => "csv",
+    };
+    Ok(HttpResponse::Ok()
+        .content_type(format.content_type())
+        .insert_header((
+            "content-disposition",
+            format!("attachment; filename=\"decisions.{ext}\""),
+        ))
+        .streaming(stream))
+}

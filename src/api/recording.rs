@@ -1,0 +1,92 @@
+//! Recording a decision before it is sent. The response body is made once, with the record's
+//! id and time in it, and those exact bytes are both stored and sent. An idempotency key already
+//! recorded gives back the stored bytes when the request is the same, and a 409 when it is not.
+
+use super::problem::Problem;
+use crate::decide::Decision;
+use crate::records::{ids, Insert, Record};
+use serde::Serialize;
+use serde_json::Value;
+
+/// Where the decision is recorded, as the response shows it.
+#[derive(Serialize, utoipa::ToSchema)]
+pub struct RecordRef<'a> {
+    /// Look-ups: GET /v1/decisions/{decision_id} and its adverse-action content.
+    pub decision_id: &'a str,
+    /// When the decision was made (RFC 3339, UTC, microseconds).
+    pub decided_at: &'a str,
+}
+
+#[derive(Serialize)]
+struct Recorded<'a> {
+    #[serde(flatten)]
+    decision: &'a Decision,
+    record: RecordRef<'a>,
+}
+
+/// A decision made from `request`, as a record ready to write (response bytes included).
+pub fn record_for(
+    decision: &Decision,
+    idempotency_key: Option<String>,
+    request: &Value,
+    received_at: String,
+) -> Record {
+    let canonical = crate::artifact::canonical_json(request);
+    let decision_id = ids::new_decision_id();
+    let decided_at = crate::records::now();
+    let response = serde_json::to_string(&Recorded {
+        decision,
+        record: RecordRef {
+            decision_id: &decision_id,
+            decided_at: &decided_at,
+        },
+    })
+    .unwrap_or_default();
+    Record {
+        decision_id,
+        application_id: decision.application_id.clone(),
+        idempotency_key,
+        received_at,
+        decided_at,
+        model_id: decision.model.id.clone(),
+        model_version: decision.model.version.clone(),
+        model_sha256: decision.model.sha256.clone(),
+        plumbline_version: crate::VERSION.to_string(),
+        request_sha256: crate::artifact::sha256_hex(&canonical),
+        outcome: decision.outcome.name().to_string(),
+        probability: decision.probability_of_default,
+        score: decision.score,
+        request: String::from_utf8(canonical).unwrap_or_default(),
+        response,
+    }
+}
+
+/// What is sent for a written record.
+pub struct Given {
+    pub body: String,
+    pub outcome: String,
+    /// The stored response of an earlier identical request (nothing new was written).
+    pub replayed: bool,
+}
+
+/// The response for `record` once the store has answered.
+pub fn settle(record: Record, outcome: Insert) -> Result<Given, Problem> {
+    match outcome {
+        Insert::Inserted => Ok(Given {
+            body: record.response,
+            outcome: record.outcome,
+            replayed: false,
+        }),
+        Insert::Existing(existing) if existing.request_sha256 == record.request_sha256 => {
+            Ok(Given {
+                body: existing.response,
+                outcome: existing.outcome,
+                replayed: true,
+            })
+        }
+        Insert::Existing(existing) => Err(Problem::idempotency_conflict(
+            existing.idempotency_key.as_deref().unwrap_or_default(),
+            &existing.decision_id,
+        )),
+    }
+}
