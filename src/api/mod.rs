@@ -116,7 +116,12 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
     let registry = Registry::new(config.models.clone())?;
     let recorder = match &config.store {
         Some(location) => {
-            let store = crate::records::open(location)
+            // On its own thread: the PostgreSQL client blocks on a runtime of its own, which
+            // cannot start inside the caller's async context.
+            let at = location.clone();
+            let store = std::thread::spawn(move || crate::records::open(&at))
+                .join()
+                .map_err(|_| format!("decision store {location}: opening it panicked"))?
                 .map_err(|e| format!("decision store {location}: {e}"))?;
             tracing::info!(store = %store.describe(), "recording decisions");
             Some(crate::records::Recorder::start(store))

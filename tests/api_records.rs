@@ -1,0 +1,266 @@
+//! Decision records through the service: every decision is retrievable byte for byte,
+//! adverse-action content comes from the record, retries are idempotent, searches page with
+//! cursors and exports stream JSON lines or CSV. Run on SQLite and on PostgreSQL.
+
+mod common;
+
+use common::server::{demo_auth, send, TestServer, REVIEW, SCORING};
+use common::stores;
+use plumbline::api::Limits;
+use serde_json::{json, Value};
+use std::path::PathBuf;
+
+const JSON: Option<&str> = Some("application/json");
+
+fn request(id: &str, key: Option<&str>, dti: f64) -> String {
+    let mut r = json!({
+        "application_id": id,
+        "applicant": {"requested_amount": 18000, "annual_income": 31000, "debt_to_income": dti,
+            "revolving_utilization": 88, "months_since_oldest_account": 14, "delinquencies_24m": 2,
+            "inquiries_6m": 5, "months_with_employer": 4, "housing": "rent", "loan_purpose": "other"}
+    });
+    if let Some(k) = key {
+        r["idempotency_key"] = k.into();
+    }
+    r.to_string()
+}
+
+fn approvable(id: &str) -> String {
+    json!({"application_id": id, "applicant": {"requested_amount": 12000, "annual_income": 85000,
+        "debt_to_income": 14.5, "revolving_utilization": 22, "months_since_oldest_account": 190,
+        "delinquencies_24m": 0, "inquiries_6m": 1, "months_with_employer": 72, "housing": "mortgage",
+        "loan_purpose": "home_improvement"}})
+    .to_string()
+}
+
+fn post(server: &TestServer, body: &str) -> (u16, String, Option<String>) {
+    let r = ureq::post(&server.url("/v1/decisions"))
+        .set("Authorization", &format!("Bearer {SCORING}"))
+        .set("Content-Type", "application/json")
+        .send_string(body);
+    let r = match r {
+        Ok(r) => r,
+        Err(ureq::Error::Status(_, r)) => r,
+        Err(e) => panic!("{e}"),
+    };
+    let replayed = r.header("idempotency-replayed").map(String::from);
+    (r.status(), r.into_string().unwrap(), replayed)
+}
+
+fn review(server: &TestServer, path: &str) -> (u16, String, String) {
+    send("GET", &server.url(path), Some(REVIEW), None, None)
+}
+
+fn suite(store: Option<String>) {
+    let server = match store {
+        Some(s) => TestServer::start_with(
+            vec![PathBuf::from("models/fernhill-logistic.json")],
+            demo_auth(),
+            Limits::default(),
+            Some(s),
+        ),
+        None => TestServer::demo(),
+    };
+    // A decline, retrievable byte for byte.
+    let (status, body, _) = post(&server, &request("FH-REC-1", None, 41.0));
+    assert_eq!(status, 200);
+    let decision: Value = serde_json::from_str(&body).unwrap();
+    let id = decision["record"]["decision_id"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    let (status, ct, text) = review(&server, &format!("/v1/decisions/{id}"));
+    assert_eq!((status, ct.as_str()), (200, "application/json"));
+    let raw: Value = serde_json::from_str(&text).unwrap();
+    assert_eq!(raw["response"], decision);
+    assert!(
+        text.contains(&format!("\"response\":{body}")),
+        "stored bytes are the sent bytes"
+    );
+    assert_eq!(raw["model"]["sha256"], decision["model"]["sha256"]);
+    assert_eq!(raw["request"]["application_id"], "FH-REC-1");
+
+    // Adverse-action content: the reasons as given, in order, with the score and date.
+    let (status, _, text) = review(&server, &format!("/v1/decisions/{id}/adverse-action"));
+    assert_eq!(status, 200);
+    let notice: Value = serde_json::from_str(&text).unwrap();
+    let given: Vec<&Value> = decision["reasons"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|r| &r["code"])
+        .collect();
+    let noticed: Vec<&Value> = notice["principal_reasons"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|r| &r["code"])
+        .collect();
+    assert_eq!(given, noticed);
+    assert_eq!(notice["credit_score"]["score"], decision["score"]);
+    assert_eq!(
+        notice["decision_date"].as_str().unwrap(),
+        &decision["record"]["decided_at"].as_str().unwrap()[..10]
+    );
+    assert_eq!(notice["model"]["version"], "0.1.0");
+    assert!(notice["caution"].as_str().unwrap().contains("Regulation B"));
+
+    // An approval has no adverse action.
+    let (_, body, _) = post(&server, &approvable("FH-REC-2"));
+    let approved: Value = serde_json::from_str(&body).unwrap();
+    assert_eq!(approved["outcome"], "approve");
+    let (status, _, _) = review(
+        &server,
+        &format!(
+            "/v1/decisions/{}/adverse-action",
+            approved["record"]["decision_id"].as_str().unwrap()
+        ),
+    );
+    assert_eq!(status, 409);
+
+    // Idempotency: the same key and body gives the stored bytes, marked, writing nothing; the
+    // same key with another body is a 409 naming the key.
+    let first = post(&server, &request("FH-REC-3", Some("retry-3"), 30.0));
+    let again = post(&server, &request("FH-REC-3", Some("retry-3"), 30.0));
+    assert_eq!((first.0, again.0), (200, 200));
+    assert_eq!(first.1, again.1, "the stored response, byte for byte");
+    assert_eq!((first.2, again.2.as_deref()), (None, Some("true")));
+    let other = post(&server, &request("FH-REC-3", Some("retry-3"), 31.0));
+    assert_eq!(other.0, 409);
+    assert!(other.1.contains("retry-3"));
+    let (_, _, text) = review(&server, "/v1/decisions?application_id=FH-REC-3");
+    assert_eq!(
+        serde_json::from_str::<Value>(&text).unwrap()["decisions"]
+            .as_array()
+            .unwrap()
+            .len(),
+        1
+    );
+
+    // A batch is recorded too, one record per decided item.
+    let batch = json!({"items": [serde_json::from_str::<Value>(&request("FH-REC-B", None, 20.0)).unwrap(), {"application_id": "FH-REC-B"}]});
+    let (status, _, text) = send(
+        "POST",
+        &server.url("/v1/decisions/batch"),
+        Some(SCORING),
+        JSON,
+        Some(&batch.to_string()),
+    );
+    assert_eq!(status, 200);
+    let b: Value = serde_json::from_str(&text).unwrap();
+    let bid = b["results"][0]["decision"]["record"]["decision_id"]
+        .as_str()
+        .unwrap();
+    assert_eq!(review(&server, &format!("/v1/decisions/{bid}")).0, 200);
+    assert_eq!(b["results"][1]["status"], 422);
+
+    // Search pages by cursor, oldest first, without gaps or repeats.
+    for n in 0..12 {
+        assert_eq!(
+            post(
+                &server,
+                &request(&format!("FH-PAGE-{n}"), None, 20.0 + n as f64)
+            )
+            .0,
+            200
+        );
+    }
+    let mut seen = Vec::new();
+    let mut path = "/v1/decisions?limit=5".to_string();
+    loop {
+        let (status, _, text) = review(&server, &path);
+        assert_eq!(status, 200, "{text}");
+        let page: Value = serde_json::from_str(&text).unwrap();
+        seen.extend(
+            page["decisions"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|d| d["decision_id"].as_str().unwrap().to_string()),
+        );
+        match page["next_cursor"].as_str() {
+            Some(c) => path = format!("/v1/decisions?limit=5&cursor={c}"),
+            None => break,
+        }
+    }
+    let total = seen.len();
+    assert_eq!(total, 16, "2 + 1 + 1 + 12 decisions recorded");
+    assert_eq!(
+        seen.iter().collect::<std::collections::BTreeSet<_>>().len(),
+        total
+    );
+    let (_, _, text) = review(&server, "/v1/decisions?outcome=approve");
+    let approves: Value = serde_json::from_str(&text).unwrap();
+    assert!(approves["decisions"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .all(|d| d["outcome"] == "approve"));
+
+    // Export: JSON lines of full records, CSV of summaries; both streamed.
+    let (status, ct, text) = review(&server, "/v1/decisions/export?from=2000-01-01");
+    assert_eq!((status, ct.as_str()), (200, "application/x-ndjson"));
+    let lines: Vec<Value> = text
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    assert_eq!(lines.len(), total);
+    assert!(lines.iter().any(|l| l["response"] == decision));
+    let (status, ct, text) = review(&server, "/v1/decisions/export?format=csv&outcome=decline");
+    assert_eq!((status, ct.as_str()), (200, "text/csv; charset=utf-8"));
+    let mut rows = text.lines();
+    assert!(rows
+        .next()
+        .unwrap()
+        .starts_with("decision_id,application_id,"));
+    assert!(rows.all(|r| r.contains(",decline,")));
+
+    // Bad look-ups: unknown id 404, malformed cursor 400, reversed range 400, bad limit 400.
+    assert_eq!(
+        review(
+            &server,
+            "/v1/decisions/019ad7c2-3f10-7a4b-9c2e-5d6f7a8b9c0d"
+        )
+        .0,
+        404
+    );
+    assert_eq!(review(&server, "/v1/decisions/not-an-id").0, 404);
+    assert_eq!(review(&server, "/v1/decisions?cursor=abcd").0, 400);
+    assert_eq!(
+        review(&server, "/v1/decisions?from=2026-12-02&to=2026-12-01").0,
+        400
+    );
+    assert_eq!(
+        review(&server, "/v1/decisions/export?from=yesterday").0,
+        400
+    );
+    assert_eq!(review(&server, "/v1/decisions?limit=0").0, 400);
+    assert_eq!(review(&server, "/v1/decisions/export?format=xml").0, 400);
+}
+
+#[test]
+fn records_over_http_on_sqlite() {
+    suite(None);
+}
+
+#[test]
+fn records_over_http_on_postgres() {
+    let Some(db) = stores::postgres() else { return };
+    suite(Some(db.url.clone()));
+}
+
+#[test]
+fn records_off_is_said_plainly() {
+    let server = TestServer::start_with(
+        vec![PathBuf::from("models/fernhill-logistic.json")],
+        demo_auth(),
+        Limits::default(),
+        None,
+    );
+    let (status, body, _) = post(&server, &approvable("FH-OFF-1"));
+    assert_eq!(status, 200);
+    assert!(!body.contains("\"record\""));
+    let (status, _, text) = review(&server, "/v1/decisions");
+    assert_eq!(status, 404);
+    assert!(text.contains("records-off"));
+}
