@@ -264,3 +264,47 @@ fn records_off_is_said_plainly() {
     assert_eq!(status, 404);
     assert!(text.contains("records-off"));
 }
+
+#[test]
+fn records_command_line_reads_the_embedded_store() {
+    let server = TestServer::demo();
+    let (_, body, _) = post(&server, &request("FH-CLI-1", None, 41.0));
+    let id = serde_json::from_str::<Value>(&body).unwrap()["record"]["decision_id"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    let store = server.store.clone().unwrap();
+    let run = |args: &[&str]| {
+        std::process::Command::new(env!("CARGO_BIN_EXE_plumbline"))
+            .arg("records")
+            .args(args)
+            .args(["--store", &store])
+            .output()
+            .unwrap()
+    };
+    let got = run(&["get", &id]);
+    assert!(
+        got.status.success(),
+        "{}",
+        String::from_utf8_lossy(&got.stderr)
+    );
+    assert!(String::from_utf8(got.stdout)
+        .unwrap()
+        .contains(&format!("\"response\":{body}")));
+    let notice: Value = serde_json::from_slice(&run(&["adverse-action", &id]).stdout).unwrap();
+    assert_eq!(notice["decision_id"], id.as_str());
+    let page: Value =
+        serde_json::from_slice(&run(&["search", "--application-id", "FH-CLI-1"]).stdout).unwrap();
+    assert_eq!(page["decisions"].as_array().unwrap().len(), 1);
+    let csv = String::from_utf8(run(&["export", "--format", "csv"]).stdout).unwrap();
+    assert_eq!(csv.lines().count(), 2, "header and one row");
+    let bad = run(&["search", "--from", "2026-12-03", "--to", "2026-12-01"]);
+    assert_eq!(bad.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&bad.stderr).contains("--to"));
+    assert_eq!(
+        run(&["get", "019ad7c2-3f10-7a4b-9c2e-5d6f7a8b9c0d"])
+            .status
+            .code(),
+        Some(2)
+    );
+}

@@ -5,7 +5,7 @@
 use super::auth::Role;
 use super::problem::Problem;
 use super::State;
-use crate::records::{export::Format, notice, Cursor, Query, Record, Store};
+use crate::records::{export::Format, notice, Query, Record, Store};
 use actix_web::web::{self, Bytes};
 use actix_web::{HttpRequest, HttpResponse};
 use serde::Serialize;
@@ -91,17 +91,8 @@ pub async fn adverse_action(
     }
 }
 
-/// Parameters every records query accepts; others are named in a 400.
-const FILTERS: &[&str] = &[
-    "application_id",
-    "from",
-    "to",
-    "outcome",
-    "model_id",
-    "model_version",
-];
-
 /// The filters of a query string; `extra` lists further parameters the route reads itself.
+/// Unknown parameters are named in a 400 rather than ignored.
 fn parse_query(
     req: &HttpRequest,
     extra: &[&str],
@@ -109,66 +100,16 @@ fn parse_query(
     let params = web::Query::<HashMap<String, String>>::from_query(req.query_string())
         .map_err(|e| Problem::bad_query("query", "form_encoded", e.to_string()))?
         .into_inner();
-    if let Some(unknown) = params
-        .keys()
-        .find(|k| !FILTERS.contains(&k.as_str()) && !extra.contains(&k.as_str()))
-    {
+    let known = [crate::records::QUERY_PARAMETERS, extra].concat();
+    if let Some(unknown) = params.keys().find(|k| !known.contains(&k.as_str())) {
         return Err(Problem::bad_query(
             unknown,
             "known_parameter",
-            format!(
-                "not a parameter of this route; use {}",
-                [FILTERS, extra].concat().join(", ")
-            ),
+            format!("not a parameter of this route; use {}", known.join(", ")),
         ));
     }
-    let time = |name: &str, end: bool| -> Result<Option<String>, Problem> {
-        params.get(name).map(|v| {
-            crate::records::normalise_time(v, end).ok_or_else(|| {
-                Problem::bad_query(name, "rfc3339", format!("{v:?} is not an RFC 3339 UTC time (2026-12-01T09:30:00Z) or a date (2026-12-01)"))
-            })
-        }).transpose()
-    };
-    let (from, to) = (time("from", false)?, time("to", true)?);
-    if let (Some(f), Some(t)) = (&from, &to) {
-        if f >= t {
-            return Err(Problem::bad_query(
-                "to",
-                "after_from",
-                "the range is empty: `to` must be later than `from`",
-            ));
-        }
-    }
-    if let Some(o) = params.get("outcome") {
-        if !matches!(o.as_str(), "approve" | "refer" | "decline") {
-            return Err(Problem::bad_query(
-                "outcome",
-                "one_of",
-                "approve, refer or decline",
-            ));
-        }
-    }
-    let after = params
-        .get("cursor")
-        .map(|c| {
-            Cursor::decode(c).ok_or_else(|| {
-                Problem::bad_query(
-                    "cursor",
-                    "cursor",
-                    "not a cursor this service gave; use next_cursor from the previous page",
-                )
-            })
-        })
-        .transpose()?;
-    let query = Query {
-        application_id: params.get("application_id").cloned(),
-        from,
-        to,
-        outcome: params.get("outcome").cloned(),
-        model_id: params.get("model_id").cloned(),
-        model_version: params.get("model_version").cloned(),
-        after,
-    };
+    let query = crate::records::parse_query(|name| params.get(name).map(String::as_str))
+        .map_err(|e| Problem::bad_query(&e.param, e.rule, e.message))?;
     Ok((query, params))
 }
 
@@ -216,7 +157,7 @@ pub struct SearchPage {
     security(("api_key" = [])))]
 pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
     let store = store(&state, &req)?;
-    let (query, params) = parse_query(&req, &["cursor", "limit"])?;
+    let (query, params) = parse_query(&req, &["limit"])?;
     let limit = match params.get("limit") {
         None => DEFAULT_PAGE,
         Some(v) => v

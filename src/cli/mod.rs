@@ -3,6 +3,7 @@
 
 mod evaluate;
 mod inspect;
+mod records;
 mod score;
 mod serve;
 mod train;
@@ -112,6 +113,9 @@ pub enum Command {
         #[arg(long)]
         json: bool,
     },
+    /// Look up, search and export recorded decisions (the service's compliance look-ups, on the
+    /// store directly).
+    Records(records::RecordsArgs),
     /// Print the key-file entry for an API key read from stdin (its SHA-256; the key itself is
     /// never stored).
     HashKey {
@@ -139,6 +143,7 @@ pub fn run(cli: Cli) -> i32 {
             reference,
         } => score::run(&model, input.as_deref(), reference.as_deref()),
         Command::Serve(args) => serve::run(args),
+        Command::Records(args) => records::run(args),
         Command::HashKey { name, role } => serve::hash_key(&name, &role),
         Command::Evaluate {
             model,

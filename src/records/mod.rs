@@ -75,6 +75,88 @@ pub struct Query {
     pub after: Option<Cursor>,
 }
 
+/// A bad search or export parameter: which one, the rule, and a sentence for a person.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{param}: {message} [{rule}]")]
+pub struct QueryError {
+    pub param: String,
+    pub rule: &'static str,
+    pub message: String,
+}
+
+fn query_error(param: &str, rule: &'static str, message: impl Into<String>) -> QueryError {
+    QueryError {
+        param: param.into(),
+        rule,
+        message: message.into(),
+    }
+}
+
+/// The parameters a records query reads, as the service and the command line name them.
+pub const QUERY_PARAMETERS: &[&str] = &[
+    "application_id",
+    "from",
+    "to",
+    "outcome",
+    "model_id",
+    "model_version",
+    "cursor",
+];
+
+/// A [`Query`] from named text parameters (`get` looks one up): times checked and normalised,
+/// `from` before `to`, the outcome one of the three, the cursor one this build made.
+pub fn parse_query<'a>(get: impl Fn(&str) -> Option<&'a str>) -> Result<Query, QueryError> {
+    let time = |name: &str, end: bool| -> Result<Option<String>, QueryError> {
+        get(name)
+            .map(|v| {
+                normalise_time(v, end).ok_or_else(|| {
+                    query_error(name, "rfc3339", format!("{v:?} is not an RFC 3339 UTC time (2026-12-01T09:30:00Z) or a date (2026-12-01)"))
+                })
+            })
+            .transpose()
+    };
+    let (from, to) = (time("from", false)?, time("to", true)?);
+    if let (Some(f), Some(t)) = (&from, &to) {
+        if f >= t {
+            return Err(query_error(
+                "to",
+                "after_from",
+                "the range is empty: `to` must be later than `from`",
+            ));
+        }
+    }
+    if let Some(o) = get("outcome") {
+        if !matches!(o, "approve" | "refer" | "decline") {
+            return Err(query_error(
+                "outcome",
+                "one_of",
+                "approve, refer or decline",
+            ));
+        }
+    }
+    let after = get("cursor")
+        .map(|c| {
+            Cursor::decode(c).ok_or_else(|| {
+                query_error(
+                    "cursor",
+                    "cursor",
+                    "not a cursor this service gave; use next_cursor from the previous page",
+                )
+            })
+        })
+        .transpose()?;
+    let text = |name: &str| get(name).map(String::from);
+    Ok(Query {
+        application_id: text("application_id"),
+        from,
+        to,
+        outcome: text("outcome"),
+        model_id: text("model_id"),
+        model_version: text("model_version"),
+        after,
+    })
+}
+
 /// Largest page a search returns.
 pub const MAX_PAGE: usize = 500;
 
