@@ -21,6 +21,7 @@ pub mod model;
 pub mod policy;
 pub mod reasons;
 pub mod records;
+pub mod replay;
 pub mod train;
 
 pub use artifact::{ArtifactError, LoadedModel};

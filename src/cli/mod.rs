@@ -4,6 +4,7 @@
 mod evaluate;
 mod inspect;
 mod records;
+mod replay;
 mod score;
 mod serve;
 mod train;
@@ -116,6 +117,10 @@ pub enum Command {
     /// Look up, search and export recorded decisions (the service's compliance look-ups, on the
     /// store directly).
     Records(records::RecordsArgs),
+    /// Decide recorded requests again with a model file or a running service and compare with
+    /// what was given: unchanged, probability-only, reason changes, decision flips. Exit 3 when
+    /// anything moved beyond tolerance.
+    Replay(replay::ReplayArgs),
     /// Print the key-file entry for an API key read from stdin (its SHA-256; the key itself is
     /// never stored).
     HashKey {
@@ -144,6 +149,7 @@ pub fn run(cli: Cli) -> i32 {
         } => score::run(&model, input.as_deref(), reference.as_deref()),
         Command::Serve(args) => serve::run(args),
         Command::Records(args) => records::run(args),
+        Command::Replay(args) => replay::run(args),
         Command::HashKey { name, role } => serve::hash_key(&name, &role),
         Command::Evaluate {
             model,

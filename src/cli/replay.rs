@@ -1,0 +1,186 @@
+//! `plumbline replay`: recorded requests decided again by a model file or a running service,
+//! compared with what was given. Exit 0 when nothing moved beyond tolerance, 3 when something did.
+
+use super::{EXIT_BAD_INPUT, EXIT_FAILURE};
+use crate::replay::{compare, junit_xml, Case, Report};
+use clap::Args;
+use serde_json::Value;
+use std::path::{Path, PathBuf};
+
+/// Exit status when a replay finds changes beyond tolerance.
+pub const EXIT_CHANGED: i32 = 3;
+
+#[derive(Debug, Args)]
+pub struct ReplayArgs {
+    /// A folder of recorded pairs (like demo-requests/) or a records export (JSON lines).
+    source: PathBuf,
+    /// A model artifact, or the base URL of a running service (http://HOST:PORT).
+    #[arg(long)]
+    against: String,
+    /// Largest probability difference still counted as unchanged.
+    #[arg(long, default_value_t = 1e-9)]
+    tolerance: f64,
+    /// Also write a JUnit XML report here.
+    #[arg(long)]
+    junit: Option<PathBuf>,
+    /// Print the report as JSON instead of a summary.
+    #[arg(long)]
+    json: bool,
+    /// Environment variable holding the scoring key for --against URL.
+    #[arg(long, default_value = "PLUMBLINE_API_KEY")]
+    key_env: String,
+}
+
+/// Decisions from a folder of pairs (POST /v1/decisions answered 200) or an export file.
+fn load_cases(source: &Path) -> Result<Vec<Case>, String> {
+    let read = |p: &Path| {
+        std::fs::read_to_string(p).map_err(|e| format!("cannot read {}: {e}", p.display()))
+    };
+    if source.is_dir() {
+        let mut files: Vec<PathBuf> = std::fs::read_dir(source)
+            .map_err(|e| format!("cannot read {}: {e}", source.display()))?
+            .filter_map(|e| e.ok().map(|e| e.path()))
+            .filter(|p| p.extension().is_some_and(|x| x == "json"))
+            .collect();
+        files.sort();
+        let mut cases = Vec::new();
+        for f in files {
+            let pair: Value = serde_json::from_str(&read(&f)?)
+                .map_err(|e| format!("{}: not JSON: {e}", f.display()))?;
+            let (req, resp) = (&pair["request"], &pair["response"]);
+            if req["method"] == "POST" && req["path"] == "/v1/decisions" && resp["status"] == 200 {
+                cases.push(Case {
+                    name: f
+                        .file_stem()
+                        .map(|s| s.to_string_lossy().into_owned())
+                        .unwrap_or_default(),
+                    request: req["body"].clone(),
+                    response: resp["body"].clone(),
+                });
+            }
+        }
+        return Ok(cases);
+    }
+    read(source)?
+        .lines()
+        .enumerate()
+        .filter(|(_, l)| !l.trim().is_empty())
+        .map(|(n, line)| {
+            let r: Value = serde_json::from_str(line)
+                .map_err(|e| format!("{} line {}: not JSON: {e}", source.display(), n + 1))?;
+            if !r["request"].is_object() || !r["response"].is_object() {
+                return Err(format!(
+                    "{} line {}: not a decision record (needs request and response)",
+                    source.display(),
+                    n + 1
+                ));
+            }
+            Ok(Case {
+                name: r["decision_id"]
+                    .as_str()
+                    .map(String::from)
+                    .unwrap_or_else(|| format!("line {}", n + 1)),
+                request: r["request"].clone(),
+                response: r["response"].clone(),
+            })
+        })
+        .collect()
+}
+
+enum Against {
+    Model(Box<crate::LoadedModel>),
+    Service { url: String, key: Option<String> },
+}
+
+impl Against {
+    fn decide(&self, request: &Value) -> Result<Value, String> {
+        match self {
+            Against::Model(m) => crate::decide_request(m, request)
+                .map_err(|e| e.to_string())
+                .and_then(|d| serde_json::to_value(d).map_err(|e| e.to_string())),
+            Against::Service { url, key } => {
+                // A retry key would fetch the stored response instead of a new decision.
+                let mut body = request.clone();
+                if let Some(o) = body.as_object_mut() {
+                    o.remove("idempotency_key");
+                }
+                let mut call = ureq::post(&format!("{url}/v1/decisions"))
+                    .set("Content-Type", "application/json");
+                if let Some(k) = key {
+                    call = call.set("Authorization", &format!("Bearer {k}"));
+                }
+                match call.send_string(&body.to_string()) {
+                    Ok(r) => r
+                        .into_string()
+                        .map_err(|e| e.to_string())
+                        .and_then(|t| serde_json::from_str(&t).map_err(|e| e.to_string())),
+                    Err(ureq::Error::Status(code, r)) => Err(format!(
+                        "HTTP {code}: {}",
+                        r.into_string().unwrap_or_default()
+                    )),
+                    Err(e) => Err(e.to_string()),
+                }
+            }
+        }
+    }
+}
+
+pub fn run(args: ReplayArgs) -> i32 {
+    if !(args.tolerance.is_finite() && args.tolerance >= 0.0) {
+        eprintln!("error: --tolerance must be a finite number, 0 or more");
+        return EXIT_BAD_INPUT;
+    }
+    let cases = match load_cases(&args.source) {
+        Ok(c) if c.is_empty() => {
+            eprintln!(
+                "error: {} holds no recorded decisions",
+                args.source.display()
+            );
+            return EXIT_BAD_INPUT;
+        }
+        Ok(c) => c,
+        Err(e) => {
+            eprintln!("error: {e}");
+            return EXIT_BAD_INPUT;
+        }
+    };
+    let against = if args.against.starts_with("http://") || args.against.starts_with("https://") {
+        Against::Service {
+            url: args.against.trim_end_matches('/').to_string(),
+            key: std::env::var(&args.key_env).ok(),
+        }
+    } else {
+        match super::load(Path::new(&args.against)) {
+            Ok(m) => Against::Model(Box::new(m)),
+            Err(code) => return code,
+        }
+    };
+    let results: Vec<_> = cases
+        .iter()
+        .map(|c| compare(c, against.decide(&c.request), args.tolerance))
+        .collect();
+    let names: Vec<(String, String)> = results
+        .iter()
+        .map(|r| (r.name.clone(), r.application_id.clone()))
+        .collect();
+    let report = Report::new(&args.against, args.tolerance, results);
+    if let Some(path) = &args.junit {
+        if let Err(e) = std::fs::write(path, junit_xml(&report, &names)) {
+            eprintln!("error: cannot write {}: {e}", path.display());
+            return EXIT_FAILURE;
+        }
+    }
+    if args.json {
+        println!(
+            "{}",
+            serde_json::to_string_pretty(&report).unwrap_or_default()
+        );
+    } else {
+        print!("{}", report.summary());
+    }
+    if report.changed() {
+        EXIT_CHANGED
+    } else {
+        0
+    }
+}
