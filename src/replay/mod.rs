@@ -113,7 +113,7 @@ pub fn compare(case: &Case, new: Result<Value, String>, tolerance: f64) -> Compa
         Change::DecisionFlip
     } else if reasons.0 != reasons.1 {
         Change::Reasons
-    } else if !((p.1 - p.0).abs() <= tolerance) || score.0 != score.1 {
+    } else if (p.1 - p.0).abs() > tolerance || p.1.is_nan() || p.0.is_nan() || score.0 != score.1 {
         Change::ProbabilityOnly
     } else {
         Change::Unchanged
