@@ -388,6 +388,7 @@ fn failed_reload_keeps_the_models_in_service() {
 #[test]
 fn graceful_shutdown_finishes_in_flight_requests() {
     use std::io::{BufRead, BufReader, Read, Write};
+    let (store, _dir) = common::stores::sqlite();
     let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_plumbline"))
         .args([
             "serve",
@@ -396,6 +397,8 @@ fn graceful_shutdown_finishes_in_flight_requests() {
             "127.0.0.1:0",
             "--workers",
             "2",
+            "--store",
+            &store,
         ])
         .env("PLUMBLINE_LOG", "warn")
         .stderr(std::process::Stdio::piped())
@@ -495,6 +498,7 @@ fn bad_model_stops_startup() {
             "127.0.0.1:0",
             "--model",
             path.to_str().unwrap(),
+            "--no-store",
         ])
         .output()
         .unwrap();
