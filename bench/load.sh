@@ -66,7 +66,9 @@ run_rates() { # name model url pid
 }
 
 for model in boosted500 forest100; do
-    target/release/plumbline serve --no-auth --addr 127.0.0.1:18080 --workers 2 --model "$models/$model.json" 2>/dev/null &
+    # Records off: this compares compute with the peer, which records nothing either;
+    # bench/records_load.sh measures the cost of durable records.
+    target/release/plumbline serve --no-auth --no-store --addr 127.0.0.1:18080 --workers 2 --model "$models/$model.json" 2>/dev/null &
     pid=$!
     wait_up http://127.0.0.1:18080/health/ready
     run_rates plumbline "$model" http://127.0.0.1:18080/v1/decisions "$pid"

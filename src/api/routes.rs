@@ -137,9 +137,9 @@ pub async fn post_decision(
         return Ok(json(&decision));
     };
     let record = recording::record_for(&decision, idempotency_key, &request, received_at);
-    let mut outcomes =
-        (recorder.record(vec![record.clone()]).await).map_err(|e| Problem::not_recorded(&e))?;
-    let outcome = outcomes
+    let mut written =
+        (recorder.record(vec![record]).await).map_err(|e| Problem::not_recorded(&e))?;
+    let (record, outcome) = written
         .pop()
         .ok_or_else(|| Problem::internal("the store gave no outcome"))?;
     let given = recording::settle(record, outcome)?;
@@ -263,37 +263,43 @@ fn decide_batch(state: &State, body: &Value, received_at: String) -> Vec<ItemRes
 /// Records every decided item in one group (committed before anything is sent), then reports
 /// each item: its decision as recorded, or its own problem.
 async fn batch_response(state: &State, items: Vec<ItemResult>) -> Result<BatchResponse, Problem> {
-    let records: Vec<crate::records::Record> = (items.iter())
-        .filter_map(|i| match i {
-            ItemResult::Recorded(r) => Some(r.clone()),
-            _ => None,
-        })
-        .collect();
-    let mut outcomes = match (&state.recorder, records.is_empty()) {
+    let mut records = Vec::new();
+    let mut rest = Vec::with_capacity(items.len());
+    for item in items {
+        match item {
+            ItemResult::Recorded(r) => {
+                records.push(r);
+                rest.push(None);
+            }
+            other => rest.push(Some(other)),
+        }
+    }
+    let mut written = match (&state.recorder, records.is_empty()) {
         (Some(recorder), false) => (recorder.record(records).await)
             .map_err(|e| Problem::not_recorded(&e))?
             .into_iter(),
         _ => Vec::new().into_iter(),
     };
     let mut response = BatchResponse {
-        results: Vec::with_capacity(items.len()),
+        results: Vec::with_capacity(rest.len()),
         approved: 0,
         referred: 0,
         declined: 0,
         failed: 0,
     };
-    for (index, item) in items.into_iter().enumerate() {
+    for (index, item) in rest.into_iter().enumerate() {
         let given = match item {
-            ItemResult::Recorded(record) => {
-                let outcome = (outcomes.next())
+            None => {
+                let (record, outcome) = (written.next())
                     .ok_or_else(|| Problem::internal("the store gave too few outcomes"))?;
                 recording::settle(record, outcome).map(|g| (g.body, g.outcome))
             }
-            ItemResult::Unrecorded(d) => Ok((
+            Some(ItemResult::Unrecorded(d)) => Ok((
                 serde_json::to_string(&d).unwrap_or_default(),
                 d.outcome.name().to_string(),
             )),
-            ItemResult::Failed(p) => Err(p),
+            Some(ItemResult::Failed(p)) => Err(p),
+            Some(ItemResult::Recorded(_)) => Err(Problem::internal("an item was not recorded")),
         };
         response.results.push(match given {
             Ok((body, outcome)) => {

@@ -12,7 +12,10 @@ pub const MAX_GROUP: usize = 512;
 /// Records waiting for the writer before handlers wait to hand theirs over.
 const QUEUE: usize = 4_096;
 
-type Reply = oneshot::Sender<Result<Vec<Insert>, StoreError>>;
+/// Each record handed back with what writing it did (moved through, never copied).
+pub type Written = Vec<(Record, Insert)>;
+
+type Reply = oneshot::Sender<Result<Written, StoreError>>;
 
 /// A batch of records from one request, answered together.
 struct Job {
@@ -58,8 +61,8 @@ impl Recorder {
     }
 
     /// Records `records` durably (one transaction with whatever else is waiting); resolves once
-    /// committed, with one outcome per record in order.
-    pub async fn record(&self, records: Vec<Record>) -> Result<Vec<Insert>, StoreError> {
+    /// committed, with each record and its outcome, in order.
+    pub async fn record(&self, records: Vec<Record>) -> Result<Written, StoreError> {
         let (reply, answer) = oneshot::channel();
         self.tx
             .send(Job { records, reply })
@@ -72,22 +75,23 @@ impl Recorder {
 }
 
 fn write_group(store: &dyn Store, jobs: Vec<Job>) {
-    let all: Vec<Record> = jobs
-        .iter()
-        .flat_map(|j| j.records.iter().cloned())
-        .collect();
+    let mut all: Vec<Record> = Vec::new();
+    let mut replies: Vec<(usize, Reply)> = Vec::with_capacity(jobs.len());
+    for job in jobs {
+        replies.push((job.records.len(), job.reply));
+        all.extend(job.records);
+    }
     match store.insert_group(&all) {
         Ok(outcomes) => {
-            let mut outcomes = outcomes.into_iter();
-            for job in jobs {
-                let mine: Vec<Insert> = outcomes.by_ref().take(job.records.len()).collect();
-                let _ = job.reply.send(Ok(mine));
+            let mut written = all.into_iter().zip(outcomes);
+            for (n, reply) in replies {
+                let _ = reply.send(Ok(written.by_ref().take(n).collect()));
             }
         }
         Err(e) => {
             tracing::error!(error = %e, records = all.len(), "decision records not written");
-            for job in jobs {
-                let _ = job.reply.send(Err(e.clone()));
+            for (_, reply) in replies {
+                let _ = reply.send(Err(e.clone()));
             }
         }
     }
