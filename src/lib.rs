@@ -16,6 +16,7 @@ pub mod cli;
 pub mod decide;
 pub mod evaluate;
 pub mod explain;
+pub mod fairness;
 pub mod features;
 pub mod model;
 pub mod policy;

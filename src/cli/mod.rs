@@ -2,6 +2,7 @@
 //! (artifact or applicant), 1 for anything else (I/O).
 
 mod evaluate;
+mod fairness;
 mod inspect;
 mod records;
 mod replay;
@@ -121,6 +122,9 @@ pub enum Command {
     /// what was given: unchanged, probability-only, reason changes, decision flips. Exit 3 when
     /// anything moved beyond tolerance.
     Replay(replay::ReplayArgs),
+    /// Fair-lending screening from files: approval rates, adverse impact ratios, significance and
+    /// a cutoff sweep per group, from a records export and a group-membership upload.
+    Fairness(fairness::FairnessArgs),
     /// Print the key-file entry for an API key read from stdin (its SHA-256; the key itself is
     /// never stored).
     HashKey {
@@ -149,6 +153,7 @@ pub fn run(cli: Cli) -> i32 {
         } => score::run(&model, input.as_deref(), reference.as_deref()),
         Command::Serve(args) => serve::run(args),
         Command::Records(args) => records::run(args),
+        Command::Fairness(args) => fairness::run(args),
         Command::Replay(args) => replay::run(args),
         Command::HashKey { name, role } => serve::hash_key(&name, &role),
         Command::Evaluate {

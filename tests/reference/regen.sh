@@ -30,14 +30,15 @@ out="$(mktemp -d)"
 trap 'rm -rf "$out"' EXIT
 "$PLUMBLINE_PY" tests/reference/make_fixtures.py "$out"
 "$PLUMBLINE_PY" tests/reference/make_metrics.py "$out"
+"$PLUMBLINE_PY" tests/reference/make_fairness.py "$out"
 
 fixtures=tests/reference/fixtures
 if [ "$write" = 1 ]; then
     mkdir -p "$fixtures"
-    for f in lightgbm.json forest.json expected.json metrics.json; do
+    for f in lightgbm.json forest.json expected.json metrics.json fairness.json; do
         cp "$out/$f" "$fixtures/$f"
     done
-    echo "regen: wrote $fixtures/{lightgbm,forest,expected,metrics}.json"
+    echo "regen: wrote $fixtures/{lightgbm,forest,expected,metrics,fairness}.json"
     exit 0
 fi
 

@@ -1,0 +1,225 @@
+//! `plumbline fairness`: the fair-lending screening report from files, a records export and a
+//! group-membership upload, as the service computes it.
+
+use super::EXIT_BAD_INPUT;
+use crate::fairness::{membership, Aggregator, DecisionRow, Refer, Report, Settings};
+use clap::Args;
+use serde_json::Value;
+use std::fmt::Write;
+use std::path::PathBuf;
+
+#[derive(Debug, Args)]
+pub struct FairnessArgs {
+    /// A records export: JSON lines (`plumbline records export`) or its CSV form.
+    #[arg(long)]
+    decisions: PathBuf,
+    /// Group memberships: JSON (several dimensions) or CSV (`application_id,group` labels, or
+    /// `application_id,G1,G2,...` probabilities).
+    #[arg(long)]
+    groups: PathBuf,
+    /// Name of the dimension a CSV upload describes.
+    #[arg(long, default_value = "group")]
+    dimension: String,
+    /// Control group (default: the largest-rate group of at least the minimum size).
+    #[arg(long)]
+    control: Option<String>,
+    /// How refer outcomes count: not-approved (default) or excluded.
+    #[arg(long, default_value = "not-approved")]
+    refer: String,
+    /// Groups with fewer (effective) applications get no ratio.
+    #[arg(long, default_value_t = crate::fairness::report::MIN_GROUP_SIZE)]
+    min_group_size: f64,
+    /// Tolerance for membership probabilities summing to 1.
+    #[arg(long, default_value_t = membership::SUM_TOLERANCE)]
+    sum_tolerance: f64,
+    /// Print JSON instead of tables.
+    #[arg(long)]
+    json: bool,
+}
+
+pub fn run(args: FairnessArgs) -> i32 {
+    match report(&args) {
+        Ok(r) => {
+            if args.json {
+                println!("{}", serde_json::to_string_pretty(&r).unwrap_or_default());
+            } else {
+                print!("{}", text(&r));
+            }
+            0
+        }
+        Err(e) => {
+            eprintln!("error: {e}");
+            EXIT_BAD_INPUT
+        }
+    }
+}
+
+fn report(args: &FairnessArgs) -> Result<Report, String> {
+    let refer = match args.refer.as_str() {
+        "not-approved" => Refer::NotApproved,
+        "excluded" => Refer::Excluded,
+        _ => return Err("--refer must be not-approved or excluded".into()),
+    };
+    if !(args.min_group_size.is_finite() && args.min_group_size >= 1.0) {
+        return Err("--min-group-size must be at least 1".into());
+    }
+    if !(args.sum_tolerance.is_finite() && (0.0..0.5).contains(&args.sum_tolerance)) {
+        return Err("--sum-tolerance must be from 0 to 0.5".into());
+    }
+    let read = |p: &PathBuf| {
+        std::fs::read_to_string(p).map_err(|e| format!("cannot read {}: {e}", p.display()))
+    };
+    let groups_text = read(&args.groups)?;
+    let dims = if args.groups.extension().is_some_and(|e| e == "json") {
+        let v: Value = serde_json::from_str(&groups_text)
+            .map_err(|e| format!("{}: not JSON: {e}", args.groups.display()))?;
+        membership::from_json(&v, args.sum_tolerance)
+    } else {
+        membership::from_csv(&groups_text, &args.dimension, args.sum_tolerance).map(|d| vec![d])
+    }
+    .map_err(|e| format!("{}: {e}", args.groups.display()))?;
+    let settings = Settings {
+        control: args.control.clone(),
+        refer,
+        min_group_size: args.min_group_size,
+        ..Settings::default()
+    };
+    let mut agg = Aggregator::new(&dims, settings);
+    let text = read(&args.decisions)?;
+    let bad = |n: usize, what: &str| format!("{} line {}: {what}", args.decisions.display(), n + 1);
+    if args.decisions.extension().is_some_and(|e| e == "csv") {
+        let mut lines = text.lines();
+        let header: Vec<&str> = lines.next().unwrap_or_default().split(',').collect();
+        let col = |name: &str| {
+            header
+                .iter()
+                .position(|h| *h == name)
+                .ok_or_else(|| format!("{}: no column {name}", args.decisions.display()))
+        };
+        let (id, outcome, pd, score) = (
+            col("application_id")?,
+            col("outcome")?,
+            col("probability_of_default")?,
+            col("score")?,
+        );
+        for (n, line) in lines.enumerate() {
+            // Summary rows have no quoted commas before the reason codes (the last column).
+            let cells: Vec<&str> = line.split(',').collect();
+            let num = |i: usize| {
+                cells
+                    .get(i)
+                    .and_then(|c| c.parse::<f64>().ok())
+                    .ok_or_else(|| bad(n + 1, "not a decision summary row"))
+            };
+            agg.add(&DecisionRow {
+                application_id: cells.get(id).copied().unwrap_or_default(),
+                outcome: cells.get(outcome).copied().unwrap_or_default(),
+                probability: num(pd)?,
+                score: num(score)?,
+            });
+        }
+    } else {
+        for (n, line) in text
+            .lines()
+            .enumerate()
+            .filter(|(_, l)| !l.trim().is_empty())
+        {
+            let r: Value =
+                serde_json::from_str(line).map_err(|e| bad(n, &format!("not JSON: {e}")))?;
+            let (Some(id), Some(outcome), Some(pd), Some(score)) = (
+                r["application_id"].as_str(),
+                r["outcome"].as_str(),
+                r["probability_of_default"].as_f64(),
+                r["score"].as_f64(),
+            ) else {
+                return Err(bad(n, "not a decision record (application_id, outcome, probability_of_default, score)"));
+            };
+            agg.add(&DecisionRow {
+                application_id: id,
+                outcome,
+                probability: pd,
+                score,
+            });
+        }
+    }
+    Ok(agg.finish())
+}
+
+fn pct(v: Option<f64>) -> String {
+    v.map_or("-".into(), |x| format!("{:.1}%", 100.0 * x))
+}
+
+fn num(v: Option<f64>, places: usize) -> String {
+    v.map_or("-".into(), |x| format!("{x:.places$}"))
+}
+
+/// Tables for people.
+pub fn text(r: &Report) -> String {
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "fair-lending screening: {} decisions (referrals {})",
+        r.decisions,
+        match r.refer {
+            Refer::NotApproved => "counted as not approved".to_string(),
+            Refer::Excluded => format!("excluded: {}", r.referrals_excluded),
+        }
+    );
+    for d in &r.dimensions {
+        let _ = writeln!(
+            s,
+            "\n{} ({}) — control: {}",
+            d.name,
+            serde_json::to_value(d.kind)
+                .ok()
+                .and_then(|v| v.as_str().map(String::from))
+                .unwrap_or_default(),
+            d.control_group.as_deref().unwrap_or("none")
+        );
+        if let Some(n) = &d.note {
+            let _ = writeln!(s, "  NOTE: {n}");
+        }
+        let _ = writeln!(
+            s,
+            "  {:<16} {:>12} {:>12} {:>8} {:>7} {:<22} {:>10} {:>10} {:>8}",
+            "group",
+            "applications",
+            "approvals",
+            "rate",
+            "AIR",
+            "four-fifths",
+            "Fisher p",
+            "z p",
+            "SMD"
+        );
+        for g in &d.groups {
+            let _ = writeln!(
+                s,
+                "  {:<16} {:>12.1} {:>12.1} {:>8} {:>7} {:<22} {:>10} {:>10} {:>8}",
+                g.group,
+                g.applications,
+                g.approvals,
+                pct(g.approval_rate),
+                num(g.adverse_impact_ratio, 3),
+                g.four_fifths,
+                num(g.fisher_p, 4),
+                num(g.z_p, 4),
+                num(g.score_smd, 3)
+            );
+        }
+        let _ = writeln!(
+            s,
+            "  decisions without group data: {}; upload rows matching no decision: {}",
+            d.decisions_without_group_data, d.unknown_application_ids
+        );
+        if !d.groups_without_applications.is_empty() {
+            let _ = writeln!(
+                s,
+                "  groups with no applications: {}",
+                d.groups_without_applications.join(", ")
+            );
+        }
+    }
+    let _ = writeln!(s, "\n{}", r.caution);
+    s
+}
