@@ -56,7 +56,10 @@ fn four_fifths_boundary_is_exact() {
     // Control 25 of 30; a group at 20 of 30 is exactly 4/5, though in floating point
     // (20/30)/(25/30) = 0.7999999999999999 and a float comparison would flag it.
     let (at, control) = (std::hint::black_box(20.0f64), std::hint::black_box(25.0f64));
-    assert!((at / 30.0) / (control / 30.0) < 0.8, "the float trap this test guards against");
+    assert!(
+        (at / 30.0) / (control / 30.0) < 0.8,
+        "the float trap this test guards against"
+    );
     let r = labelled(
         &[
             ("control", 25, 30),
@@ -273,4 +276,56 @@ fn bad_uploads_are_named() {
         membership::SUM_TOLERANCE
     )
     .is_ok());
+}
+
+#[test]
+fn the_command_line_reads_an_export_and_an_upload() {
+    let dir = std::env::temp_dir().join(format!("plumbline-fair-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let mut decisions = String::new();
+    let mut groups = String::from("application_id,group\n");
+    for i in 0..80 {
+        let (group, outcome) = if i < 40 {
+            ("a", if i < 32 { "approve" } else { "decline" })
+        } else {
+            ("b", if i < 60 { "approve" } else { "decline" })
+        };
+        decisions.push_str(&format!("{{\"application_id\":\"FH-{i}\",\"outcome\":\"{outcome}\",\"probability_of_default\":0.05,\"score\":600}}\n"));
+        groups.push_str(&format!("FH-{i},{group}\n"));
+    }
+    std::fs::write(dir.join("export.jsonl"), decisions).unwrap();
+    std::fs::write(dir.join("groups.csv"), groups).unwrap();
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args(["fairness", "--json", "--dimension", "synthetic"])
+        .arg("--decisions")
+        .arg(dir.join("export.jsonl"))
+        .arg("--groups")
+        .arg(dir.join("groups.csv"))
+        .arg("--html")
+        .arg(dir.join("report.html"))
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let r: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    // a: 32 of 40 (0.8); b: 20 of 40 (0.5); 0.5 / 0.8 = 0.625 < 4/5.
+    assert_eq!(
+        r["dimensions"][0]["groups"][1]["four_fifths"],
+        "below_four_fifths"
+    );
+    assert!(std::fs::read_to_string(dir.join("report.html"))
+        .unwrap()
+        .contains("<svg"));
+    let bad = std::process::Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args(["fairness", "--refer", "sometimes"])
+        .arg("--decisions")
+        .arg(dir.join("export.jsonl"))
+        .arg("--groups")
+        .arg(dir.join("groups.csv"))
+        .output()
+        .unwrap();
+    assert_eq!(bad.status.code(), Some(2));
 }

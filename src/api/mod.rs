@@ -6,6 +6,7 @@
 pub mod auth;
 mod body;
 mod compliance;
+mod fairness;
 mod metrics;
 pub mod openapi;
 pub mod problem;
@@ -23,7 +24,8 @@ use std::time::{Duration, Instant};
 pub use auth::{Auth, Keys, Role};
 pub use registry::Registry;
 
-/// Request limits. Defaults: 64 KiB per decision, 8 MiB and 1,000 items per batch, 5 s for a
+/// Request limits. Defaults: 64 KiB per decision, 8 MiB and 1,000 items per batch, 64 MiB per
+/// group-membership upload (60 s to arrive), 5 s for a
 /// body to arrive, 5 s for a client to send its request head, 30 s to finish in-flight work on
 /// shutdown.
 #[derive(Debug, Clone)]
@@ -31,6 +33,8 @@ pub struct Limits {
     pub max_body_bytes: usize,
     pub max_batch_body_bytes: usize,
     pub max_batch_items: usize,
+    /// Largest group-membership upload (POST /v1/fairness/reports).
+    pub max_upload_bytes: usize,
     pub body_timeout: Duration,
     pub head_timeout: Duration,
     pub shutdown_timeout: Duration,
@@ -42,6 +46,7 @@ impl Default for Limits {
             max_body_bytes: 64 * 1024,
             max_batch_body_bytes: 8 * 1024 * 1024,
             max_batch_items: 1_000,
+            max_upload_bytes: 64 * 1024 * 1024,
             body_timeout: Duration::from_secs(5),
             head_timeout: Duration::from_secs(5),
             shutdown_timeout: Duration::from_secs(30),
@@ -175,6 +180,7 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
             ))
             .service(resource("/v1/models", web::get().to(routes::get_models)))
             .service(resource("/v1/models/{id}", web::get().to(routes::get_model)))
+            .service(resource("/v1/fairness/reports", web::post().to(fairness::create_report)))
             .service(resource("/v1/admin/reload", web::post().to(routes::reload)))
             .service(resource("/health/live", web::get().to(routes::live)))
             .service(resource("/health/ready", web::get().to(routes::ready)))

@@ -35,11 +35,21 @@ pub struct FairnessArgs {
     /// Print JSON instead of tables.
     #[arg(long)]
     json: bool,
+    /// Also write the report as a printable HTML page (tables and SVG charts) here.
+    #[arg(long)]
+    html: Option<PathBuf>,
 }
 
 pub fn run(args: FairnessArgs) -> i32 {
     match report(&args) {
         Ok(r) => {
+            if let Some(path) = &args.html {
+                let page = crate::fairness::html::page(&r, "Fair-lending screening");
+                if let Err(e) = std::fs::write(path, page) {
+                    eprintln!("error: cannot write {}: {e}", path.display());
+                    return super::EXIT_FAILURE;
+                }
+            }
             if args.json {
                 println!("{}", serde_json::to_string_pretty(&r).unwrap_or_default());
             } else {

@@ -36,6 +36,9 @@ pub struct ServeArgs {
     /// Most items in one batch.
     #[arg(long, default_value_t = 1_000)]
     max_batch_items: usize,
+    /// Largest group-membership upload of POST /v1/fairness/reports, in bytes.
+    #[arg(long, default_value_t = 64 * 1024 * 1024)]
+    max_upload_bytes: usize,
     /// Time for a request body to arrive, in milliseconds.
     #[arg(long, default_value_t = 5_000)]
     body_timeout_ms: u64,
@@ -83,6 +86,10 @@ fn check_limits(args: &ServeArgs) -> Result<(), String> {
         (
             args.max_batch_body_bytes >= 1024 && args.max_batch_body_bytes <= 256 << 20,
             "--max-batch-body-bytes must be 1 KiB to 256 MiB",
+        ),
+        (
+            args.max_upload_bytes >= 1024 && args.max_upload_bytes <= 1 << 30,
+            "--max-upload-bytes must be 1 KiB to 1 GiB",
         ),
         (
             (1..=100_000).contains(&args.max_batch_items),
@@ -135,6 +142,7 @@ pub fn run(args: ServeArgs) -> i32 {
         limits: Limits {
             max_body_bytes: args.max_body_bytes,
             max_batch_body_bytes: args.max_batch_body_bytes,
+            max_upload_bytes: args.max_upload_bytes,
             max_batch_items: args.max_batch_items,
             body_timeout: Duration::from_millis(args.body_timeout_ms),
             ..Limits::default()

@@ -2,6 +2,7 @@
 //! decisions by application id, with significance and a cutoff sweep. The result is a
 //! screening statistic for the people who decide, not a legal finding: every report says so.
 
+pub mod html;
 pub mod membership;
 pub mod report;
 pub mod stats;

@@ -1,0 +1,204 @@
+//! POST /v1/fairness/reports (review role): the fair-lending screening report over the recorded
+//! decisions in a range, joined to an uploaded group membership by application id. JSON by
+//! default, or the same report as a printable HTML page with `?format=html`. The upload is used
+//! for this one report in memory and never stored.
+
+use super::auth::Role;
+use super::body::read_json;
+use super::problem::Problem;
+use super::State;
+use crate::fairness::{html, membership, Aggregator, DecisionRow, Refer, Settings};
+use crate::features::InputError;
+use crate::records::Store;
+use actix_web::{web, HttpRequest, HttpResponse};
+use serde::Deserialize;
+use serde_json::Value;
+
+const REVIEWERS: &[Role] = &[Role::Review];
+/// Most cutoffs in one sweep.
+pub const MAX_CUTOFFS: usize = 200;
+
+/// The request body (see the OpenAPI document).
+#[derive(Debug, Deserialize, utoipa::ToSchema)]
+#[serde(deny_unknown_fields)]
+pub struct ReportRequest {
+    /// JSON upload: `{"dimensions": [{"name", "rows": [{"application_id", "group"} or
+    /// {"application_id", "probabilities": {"G": p}}]}]}`.
+    #[schema(value_type = Option<Object>)]
+    pub groups: Option<Value>,
+    /// CSV upload instead: `application_id,group` or `application_id,G1,G2,...`.
+    pub groups_csv: Option<String>,
+    /// Name of the dimension a CSV upload describes (default `group`).
+    pub dimension: Option<String>,
+    /// Decided at or after (RFC 3339 UTC or a date).
+    pub from: Option<String>,
+    /// Decided before (a date includes that day).
+    pub to: Option<String>,
+    /// The product's model (each product is decided by its own model id).
+    pub model_id: Option<String>,
+    pub model_version: Option<String>,
+    /// Control group; default the largest-rate group of at least the minimum size.
+    pub control: Option<String>,
+    /// `not_approved` (default) or `excluded`.
+    #[schema(value_type = Option<String>)]
+    pub refer: Option<Refer>,
+    pub min_group_size: Option<f64>,
+    pub sum_tolerance: Option<f64>,
+    /// Approve cutoffs (probability of default) for the sweep; default 0.02 to 0.30.
+    pub cutoffs: Option<Vec<f64>>,
+}
+
+fn invalid(field: &str, rule: &'static str, message: impl Into<String>) -> Problem {
+    Problem::invalid(InputError::one(field, rule, message))
+}
+
+fn settings(r: &ReportRequest) -> Result<Settings, Problem> {
+    let mut s = Settings {
+        control: r.control.clone(),
+        refer: r.refer.unwrap_or(Refer::NotApproved),
+        ..Settings::default()
+    };
+    if let Some(m) = r.min_group_size {
+        if !(m.is_finite() && m >= 1.0) {
+            return Err(invalid("min_group_size", "range", "must be at least 1"));
+        }
+        s.min_group_size = m;
+    }
+    if let Some(c) = &r.cutoffs {
+        if c.is_empty()
+            || c.len() > MAX_CUTOFFS
+            || c.iter().any(|x| !(x.is_finite() && *x > 0.0 && *x <= 1.0))
+            || c.windows(2).any(|w| w[0] >= w[1])
+        {
+            return Err(invalid(
+                "cutoffs",
+                "cutoffs",
+                format!("1 to {MAX_CUTOFFS} increasing probabilities in (0, 1]"),
+            ));
+        }
+        s.cutoffs = c.clone();
+    }
+    Ok(s)
+}
+
+fn upload(r: &ReportRequest) -> Result<Vec<membership::Dimension>, Problem> {
+    let tolerance = r.sum_tolerance.unwrap_or(membership::SUM_TOLERANCE);
+    if !(tolerance.is_finite() && (0.0..0.5).contains(&tolerance)) {
+        return Err(invalid("sum_tolerance", "range", "must be from 0 to 0.5"));
+    }
+    let named = |e: membership::UploadError| {
+        let at = e
+            .row
+            .map(|n| format!("groups.rows[{}].{}", n - 1, e.field))
+            .unwrap_or_else(|| format!("groups.{}", e.field));
+        invalid(&at, e.rule, e.message)
+    };
+    match (&r.groups, &r.groups_csv) {
+        (Some(v), None) => membership::from_json(v, tolerance).map_err(named),
+        (None, Some(text)) => {
+            membership::from_csv(text, r.dimension.as_deref().unwrap_or("group"), tolerance)
+                .map(|d| vec![d])
+                .map_err(named)
+        }
+        _ => Err(invalid(
+            "groups",
+            "one_upload",
+            "send the memberships as groups (JSON) or groups_csv (CSV), one of them",
+        )),
+    }
+}
+
+/// Build a screening report.
+#[utoipa::path(post, path = "/v1/fairness/reports", tag = "fairness", request_body = ReportRequest,
+    params(("format" = Option<String>, Query, description = "json (default) or html")),
+    responses(
+        (status = 200, description = "The report (JSON), or the same as a printable HTML page with SVG charts. A screening statistic, not a legal finding", content_type = "application/json"),
+        (status = 400, description = "Malformed JSON, or a bad time range", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "Only review keys may build reports", body = Problem, content_type = "application/problem+json"),
+        (status = 413, description = "Upload larger than the limit", body = Problem, content_type = "application/problem+json"),
+        (status = 422, description = "A bad upload (naming the row) or setting", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("api_key" = [])))]
+pub async fn create_report(
+    state: web::Data<State>,
+    req: HttpRequest,
+    payload: web::Payload,
+) -> Result<HttpResponse, Problem> {
+    let header = (req.headers().get("authorization")).and_then(|v| v.to_str().ok());
+    state.auth.check(header, REVIEWERS)?;
+    let html_wanted = match req.query_string() {
+        "" | "format=json" => false,
+        "format=html" => true,
+        _ => return Err(Problem::bad_query("format", "one_of", "json or html")),
+    };
+    let store: std::sync::Arc<dyn Store> = state
+        .recorder
+        .as_ref()
+        .ok_or_else(Problem::records_off)?
+        .store()
+        .clone();
+    // Uploads are large (a million probability rows is tens of MiB); give them time to arrive.
+    let body = read_json(
+        &req,
+        payload,
+        state.limits.max_upload_bytes,
+        state.limits.body_timeout * 12,
+    )
+    .await?;
+    let request: ReportRequest = serde_path_to_error::deserialize(&body).map_err(|e| {
+        let path = e.path().to_string();
+        invalid(
+            if path == "." { "body" } else { &path },
+            "shape",
+            e.into_inner().to_string(),
+        )
+    })?;
+    let settings = settings(&request)?;
+    let get = |name: &str| match name {
+        "from" => request.from.as_deref(),
+        "to" => request.to.as_deref(),
+        "model_id" => request.model_id.as_deref(),
+        "model_version" => request.model_version.as_deref(),
+        _ => None,
+    };
+    let query = crate::records::parse_query(get)
+        .map_err(|e| Problem::bad_query(&e.param, e.rule, e.message))?;
+    let dims = upload(&request)?;
+    let title = format!(
+        "Fair-lending screening{}{}",
+        request
+            .model_id
+            .as_deref()
+            .map(|m| format!(": {m}"))
+            .unwrap_or_default(),
+        match (&request.from, &request.to) {
+            (Some(f), Some(t)) => format!(", {f} to {t}"),
+            (Some(f), None) => format!(", from {f}"),
+            (None, Some(t)) => format!(", to {t}"),
+            (None, None) => String::new(),
+        }
+    );
+    let report = web::block(move || {
+        let mut agg = Aggregator::new(&dims, settings);
+        store.export(&query, &mut |r| {
+            agg.add(&DecisionRow {
+                application_id: &r.application_id,
+                outcome: &r.outcome,
+                probability: r.probability,
+                score: r.score as f64,
+            });
+            true
+        })?;
+        Ok::<_, crate::records::StoreError>(agg.finish())
+    })
+    .await
+    .map_err(|_| Problem::internal("the report worker stopped"))?
+    .map_err(|e| Problem::store_failed(&e))?;
+    if html_wanted {
+        return Ok(HttpResponse::Ok()
+            .content_type("text/html; charset=utf-8")
+            .body(html::page(&report, &title)));
+    }
+    Ok(HttpResponse::Ok().json(report))
+}
