@@ -4,6 +4,7 @@
 //! every request gets an id, a structured log line (no applicant values) and metrics.
 
 pub mod auth;
+mod batch;
 mod body;
 mod compliance;
 mod fairness;
@@ -171,7 +172,7 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
                     .route(web::get().to(compliance::search))
                     .default_service(web::to(routes::method_not_allowed)),
             )
-            .service(resource("/v1/decisions/batch", web::post().to(routes::post_batch)))
+            .service(resource("/v1/decisions/batch", web::post().to(batch::post_batch)))
             .service(resource("/v1/decisions/export", web::get().to(compliance::export)))
             .service(resource("/v1/decisions/{id}", web::get().to(compliance::get_decision)))
             .service(resource(

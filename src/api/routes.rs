@@ -13,11 +13,11 @@ use serde::Serialize;
 use serde_json::Value;
 use utoipa::ToSchema;
 
-const DECIDERS: &[Role] = &[Role::Scoring];
+pub(super) const DECIDERS: &[Role] = &[Role::Scoring];
 const READERS: &[Role] = &[Role::Scoring, Role::Review];
 const ADMINS: &[Role] = &[Role::Admin];
 
-fn authorize(state: &State, req: &HttpRequest, allowed: &[Role]) -> Result<(), Problem> {
+pub(super) fn authorize(state: &State, req: &HttpRequest, allowed: &[Role]) -> Result<(), Problem> {
     let header = req
         .headers()
         .get("authorization")
@@ -25,7 +25,7 @@ fn authorize(state: &State, req: &HttpRequest, allowed: &[Role]) -> Result<(), P
     state.auth.check(header, allowed).map(|_| ())
 }
 
-fn json<T: Serialize>(value: &T) -> HttpResponse {
+pub(super) fn json<T: Serialize>(value: &T) -> HttpResponse {
     HttpResponse::Ok()
         .content_type("application/json")
         .body(serde_json::to_string(value).unwrap_or_default())
@@ -56,12 +56,12 @@ pub struct ModelSelectorDoc {
 }
 
 /// A decision and the idempotency key its request carried.
-struct Decided {
-    decision: Decision,
-    idempotency_key: Option<String>,
+pub(super) struct Decided {
+    pub decision: Decision,
+    pub idempotency_key: Option<String>,
 }
 
-fn decide_value(state: &State, request: &Value) -> Result<Decided, Problem> {
+pub(super) fn decide_value(state: &State, request: &Value) -> Result<Decided, Problem> {
     let envelope = Envelope::parse(request).map_err(Problem::invalid)?;
     let set = state.registry.current();
     let Some(model) = set.select(envelope.model.as_ref()) else {
@@ -89,7 +89,7 @@ fn decide_value(state: &State, request: &Value) -> Result<Decided, Problem> {
     })
 }
 
-fn observe(state: &State, decision: &Decision, outcome: &str) {
+pub(super) fn observe(state: &State, decision: &Decision, outcome: &str) {
     let outcome = match outcome {
         "approve" => "approve",
         "refer" => "refer",
@@ -151,182 +151,6 @@ pub async fn post_decision(
         response.insert_header(("idempotency-replayed", "true"));
     }
     Ok(response.content_type("application/json").body(given.body))
-}
-
-#[derive(ToSchema)]
-#[allow(dead_code)]
-pub struct BatchRequestDoc {
-    /// Decision requests, each as for POST /v1/decisions.
-    items: Vec<DecisionRequest>,
-}
-
-/// One item's result: a decision or the problem with that item alone.
-#[derive(Serialize, ToSchema)]
-pub struct BatchItem {
-    pub index: usize,
-    pub status: u16,
-    /// The decision as recorded (with its `record` reference when the service keeps records).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    #[schema(value_type = Option<Decision>)]
-    pub decision: Option<Box<serde_json::value::RawValue>>,
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub problem: Option<Problem>,
-}
-
-#[derive(Serialize, ToSchema)]
-pub struct BatchResponse {
-    pub results: Vec<BatchItem>,
-    pub approved: usize,
-    pub referred: usize,
-    pub declined: usize,
-    pub failed: usize,
-}
-
-/// Decide many applications; one bad item never fails the others.
-#[utoipa::path(post, path = "/v1/decisions/batch", tag = "decisions", request_body = BatchRequestDoc,
-    responses(
-        (status = 200, description = "Per-item decisions and per-item problems", body = BatchResponse),
-        (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
-        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
-        (status = 403, description = "The key's role may not decide", body = Problem, content_type = "application/problem+json"),
-        (status = 413, description = "Body larger than the batch limit", body = Problem, content_type = "application/problem+json"),
-        (status = 415, description = "Content-Type is not application/json", body = Problem, content_type = "application/problem+json"),
-        (status = 422, description = "Not a batch, or more items than allowed", body = Problem, content_type = "application/problem+json"),
-    ),
-    security(("api_key" = [])))]
-pub async fn post_batch(
-    state: web::Data<State>,
-    req: HttpRequest,
-    payload: web::Payload,
-) -> Result<HttpResponse, Problem> {
-    authorize(&state, &req, DECIDERS)?;
-    let body = read_json(
-        &req,
-        payload,
-        state.limits.max_batch_body_bytes,
-        state.limits.body_timeout,
-    )
-    .await?;
-    let items = match body.get("items") {
-        Some(Value::Array(items)) if body.as_object().is_some_and(|o| o.len() == 1) => items,
-        _ => {
-            return Err(Problem::invalid(crate::InputError::one(
-                "items",
-                "required",
-                "a batch is {\"items\": [request, ...]} and nothing else",
-            )));
-        }
-    };
-    if items.len() > state.limits.max_batch_items {
-        return Err(Problem::batch_too_large(
-            items.len(),
-            state.limits.max_batch_items,
-        ));
-    }
-    // A full batch is milliseconds of CPU: run it on the blocking pool so this worker keeps
-    // reading other requests (and finishes them on shutdown) meanwhile.
-    let received_at = crate::records::now();
-    let state = state.into_inner();
-    let worker = state.clone();
-    let decided = web::block(move || decide_batch(&worker, &body, received_at))
-        .await
-        .map_err(|_| Problem::internal("the batch worker stopped"))?;
-    Ok(json(&batch_response(&state, decided).await?))
-}
-
-/// Each item decided, as the record to write (or as the bare decision when records are off).
-enum ItemResult {
-    Recorded(crate::records::Record),
-    Unrecorded(Decision),
-    Failed(Problem),
-}
-
-fn decide_batch(state: &State, body: &Value, received_at: String) -> Vec<ItemResult> {
-    let items = body["items"]
-        .as_array()
-        .map(Vec::as_slice)
-        .unwrap_or_default();
-    (items.iter())
-        .map(|item| match decide_value(state, item) {
-            Ok(d) if state.recorder.is_some() => ItemResult::Recorded(recording::record_for(
-                &d.decision,
-                d.idempotency_key,
-                item,
-                received_at.clone(),
-            )),
-            Ok(d) => ItemResult::Unrecorded(d.decision),
-            Err(p) => ItemResult::Failed(p),
-        })
-        .collect()
-}
-
-/// Records every decided item in one group (committed before anything is sent), then reports
-/// each item: its decision as recorded, or its own problem.
-async fn batch_response(state: &State, items: Vec<ItemResult>) -> Result<BatchResponse, Problem> {
-    let mut records = Vec::new();
-    let mut rest = Vec::with_capacity(items.len());
-    for item in items {
-        match item {
-            ItemResult::Recorded(r) => {
-                records.push(r);
-                rest.push(None);
-            }
-            other => rest.push(Some(other)),
-        }
-    }
-    let mut written = match (&state.recorder, records.is_empty()) {
-        (Some(recorder), false) => (recorder.record(records).await)
-            .map_err(|e| Problem::not_recorded(&e))?
-            .into_iter(),
-        _ => Vec::new().into_iter(),
-    };
-    let mut response = BatchResponse {
-        results: Vec::with_capacity(rest.len()),
-        approved: 0,
-        referred: 0,
-        declined: 0,
-        failed: 0,
-    };
-    for (index, item) in rest.into_iter().enumerate() {
-        let given = match item {
-            None => {
-                let (record, outcome) = (written.next())
-                    .ok_or_else(|| Problem::internal("the store gave too few outcomes"))?;
-                recording::settle(record, outcome).map(|g| (g.body, g.outcome))
-            }
-            Some(ItemResult::Unrecorded(d)) => Ok((
-                serde_json::to_string(&d).unwrap_or_default(),
-                d.outcome.name().to_string(),
-            )),
-            Some(ItemResult::Failed(p)) => Err(p),
-            Some(ItemResult::Recorded(_)) => Err(Problem::internal("an item was not recorded")),
-        };
-        response.results.push(match given {
-            Ok((body, outcome)) => {
-                match outcome.as_str() {
-                    "approve" => response.approved += 1,
-                    "refer" => response.referred += 1,
-                    _ => response.declined += 1,
-                }
-                BatchItem {
-                    index,
-                    status: 200,
-                    decision: serde_json::value::RawValue::from_string(body).ok(),
-                    problem: None,
-                }
-            }
-            Err(problem) => {
-                response.failed += 1;
-                BatchItem {
-                    index,
-                    status: problem.status,
-                    decision: None,
-                    problem: Some(problem),
-                }
-            }
-        });
-    }
-    Ok(response)
 }
 
 /// What a loaded model is: identity, digest, fields, cutoffs and reasons.
@@ -468,13 +292,21 @@ pub async fn live(state: web::Data<State>) -> HttpResponse {
     })
 }
 
-/// Readiness: models are loaded and validated (and, once records exist, the store answers).
-#[utoipa::path(get, path = "/health/ready", tag = "operations", responses((status = 200, body = Health)))]
-pub async fn ready(state: web::Data<State>) -> HttpResponse {
-    json(&Health {
+/// Readiness: models are loaded and validated, and the decision store answers (a replica whose
+/// store is down must not take decisions it cannot record).
+#[utoipa::path(get, path = "/health/ready", tag = "operations", responses((status = 200, body = Health), (status = 503, description = "The decision store does not answer", body = Problem, content_type = "application/problem+json")))]
+pub async fn ready(state: web::Data<State>) -> Result<HttpResponse, Problem> {
+    if let Some(recorder) = &state.recorder {
+        let store = recorder.store().clone();
+        web::block(move || store.get(crate::records::ids::PROBE_ID))
+            .await
+            .map_err(|_| Problem::internal("the store worker stopped"))?
+            .map_err(|e| Problem::store_failed(&e))?;
+    }
+    Ok(json(&Health {
         status: "ready",
         models: state.registry.current().models.len(),
-    })
+    }))
 }
 
 /// Counters and latency histograms, Prometheus text format.

@@ -50,6 +50,9 @@ pub fn new_decision_id() -> String {
     )
 }
 
+/// An id no decision has (version 7 with a zero time), looked up by readiness probes.
+pub const PROBE_ID: &str = "00000000-0000-7000-8000-000000000000";
+
 /// Whether `s` has the shape of a decision id (any UUID in lower-case hex).
 pub fn is_decision_id(s: &str) -> bool {
     s.len() == 36

@@ -1,0 +1,188 @@
+//! POST /v1/decisions/batch: many applications in one request. Items are decided on the blocking
+//! pool, recorded in one group, and reported one by one; a bad item never fails the others.
+
+use super::body::read_json;
+use super::problem::Problem;
+use super::routes::{authorize, decide_value, json, DecisionRequest, DECIDERS};
+use super::{recording, State};
+use crate::decide::Decision;
+use actix_web::{web, HttpRequest, HttpResponse};
+use serde::Serialize;
+use serde_json::Value;
+use utoipa::ToSchema;
+
+#[derive(ToSchema)]
+#[allow(dead_code)]
+pub struct BatchRequestDoc {
+    /// Decision requests, each as for POST /v1/decisions.
+    items: Vec<DecisionRequest>,
+}
+
+/// One item's result: a decision or the problem with that item alone.
+#[derive(Serialize, ToSchema)]
+pub struct BatchItem {
+    pub index: usize,
+    pub status: u16,
+    /// The decision as recorded (with its `record` reference when the service keeps records).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    #[schema(value_type = Option<Decision>)]
+    pub decision: Option<Box<serde_json::value::RawValue>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub problem: Option<Problem>,
+}
+
+#[derive(Serialize, ToSchema)]
+pub struct BatchResponse {
+    pub results: Vec<BatchItem>,
+    pub approved: usize,
+    pub referred: usize,
+    pub declined: usize,
+    pub failed: usize,
+}
+
+/// Decide many applications; one bad item never fails the others.
+#[utoipa::path(post, path = "/v1/decisions/batch", tag = "decisions", request_body = BatchRequestDoc,
+    responses(
+        (status = 200, description = "Per-item decisions and per-item problems", body = BatchResponse),
+        (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "The key's role may not decide", body = Problem, content_type = "application/problem+json"),
+        (status = 413, description = "Body larger than the batch limit", body = Problem, content_type = "application/problem+json"),
+        (status = 415, description = "Content-Type is not application/json", body = Problem, content_type = "application/problem+json"),
+        (status = 422, description = "Not a batch, or more items than allowed", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("api_key" = [])))]
+pub async fn post_batch(
+    state: web::Data<State>,
+    req: HttpRequest,
+    payload: web::Payload,
+) -> Result<HttpResponse, Problem> {
+    authorize(&state, &req, DECIDERS)?;
+    let body = read_json(
+        &req,
+        payload,
+        state.limits.max_batch_body_bytes,
+        state.limits.body_timeout,
+    )
+    .await?;
+    let items = match body.get("items") {
+        Some(Value::Array(items)) if body.as_object().is_some_and(|o| o.len() == 1) => items,
+        _ => {
+            return Err(Problem::invalid(crate::InputError::one(
+                "items",
+                "required",
+                "a batch is {\"items\": [request, ...]} and nothing else",
+            )));
+        }
+    };
+    if items.len() > state.limits.max_batch_items {
+        return Err(Problem::batch_too_large(
+            items.len(),
+            state.limits.max_batch_items,
+        ));
+    }
+    // A full batch is milliseconds of CPU: run it on the blocking pool so this worker keeps
+    // reading other requests (and finishes them on shutdown) meanwhile.
+    let received_at = crate::records::now();
+    let state = state.into_inner();
+    let worker = state.clone();
+    let decided = web::block(move || decide_batch(&worker, &body, received_at))
+        .await
+        .map_err(|_| Problem::internal("the batch worker stopped"))?;
+    Ok(json(&batch_response(&state, decided).await?))
+}
+
+/// Each item decided, as the record to write (or as the bare decision when records are off).
+enum ItemResult {
+    Recorded(crate::records::Record),
+    Unrecorded(Decision),
+    Failed(Problem),
+}
+
+fn decide_batch(state: &State, body: &Value, received_at: String) -> Vec<ItemResult> {
+    let items = body["items"]
+        .as_array()
+        .map(Vec::as_slice)
+        .unwrap_or_default();
+    (items.iter())
+        .map(|item| match decide_value(state, item) {
+            Ok(d) if state.recorder.is_some() => ItemResult::Recorded(recording::record_for(
+                &d.decision,
+                d.idempotency_key,
+                item,
+                received_at.clone(),
+            )),
+            Ok(d) => ItemResult::Unrecorded(d.decision),
+            Err(p) => ItemResult::Failed(p),
+        })
+        .collect()
+}
+
+/// Records every decided item in one group (committed before anything is sent), then reports
+/// each item: its decision as recorded, or its own problem.
+async fn batch_response(state: &State, items: Vec<ItemResult>) -> Result<BatchResponse, Problem> {
+    let mut records = Vec::new();
+    let mut rest = Vec::with_capacity(items.len());
+    for item in items {
+        match item {
+            ItemResult::Recorded(r) => {
+                records.push(r);
+                rest.push(None);
+            }
+            other => rest.push(Some(other)),
+        }
+    }
+    let mut written = match (&state.recorder, records.is_empty()) {
+        (Some(recorder), false) => (recorder.record(records).await)
+            .map_err(|e| Problem::not_recorded(&e))?
+            .into_iter(),
+        _ => Vec::new().into_iter(),
+    };
+    let mut response = BatchResponse {
+        results: Vec::with_capacity(rest.len()),
+        approved: 0,
+        referred: 0,
+        declined: 0,
+        failed: 0,
+    };
+    for (index, item) in rest.into_iter().enumerate() {
+        let given = match item {
+            None => {
+                let (record, outcome) = (written.next())
+                    .ok_or_else(|| Problem::internal("the store gave too few outcomes"))?;
+                recording::settle(record, outcome).map(|g| (g.body, g.outcome))
+            }
+            Some(ItemResult::Unrecorded(d)) => Ok((
+                serde_json::to_string(&d).unwrap_or_default(),
+                d.outcome.name().to_string(),
+            )),
+            Some(ItemResult::Failed(p)) => Err(p),
+            Some(ItemResult::Recorded(_)) => Err(Problem::internal("an item was not recorded")),
+        };
+        response.results.push(match given {
+            Ok((body, outcome)) => {
+                match outcome.as_str() {
+                    "approve" => response.approved += 1,
+                    "refer" => response.referred += 1,
+                    _ => response.declined += 1,
+                }
+                BatchItem {
+                    index,
+                    status: 200,
+                    decision: serde_json::value::RawValue::from_string(body).ok(),
+                    problem: None,
+                }
+            }
+            Err(problem) => {
+                response.failed += 1;
+                BatchItem {
+                    index,
+                    status: problem.status,
+                    decision: None,
+                    problem: Some(problem),
+                }
+            }
+        });
+    }
+    Ok(response)
+}
