@@ -186,3 +186,39 @@ fn draft_spec_prints_an_editable_spec_and_writes_nothing() {
         "nothing written"
     );
 }
+
+#[test]
+fn demo_requests_decide_with_the_trained_model() {
+    let dir = std::env::temp_dir().join(format!("plumbline-demo-req-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let (csv, requests) = (dir.join("apps.csv"), dir.join("requests.jsonl"));
+    let out = plumbline(
+        &[
+            "demo-data",
+            "--rows",
+            "300",
+            "--out",
+            csv.to_str().unwrap(),
+            "--requests-out",
+            requests.to_str().unwrap(),
+        ],
+        "",
+    );
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    let lines = std::fs::read_to_string(&requests).unwrap();
+    assert_eq!(lines.lines().count(), 300);
+    // Missing values are left out (the generator leaves utilisation blank for some applicants).
+    assert!(lines.lines().any(|l| !l.contains("revolving_utilization")));
+    assert!(!lines.contains("defaulted"), "the outcome is not an input");
+    let scored = plumbline(
+        &[
+            "score",
+            "--model",
+            "models/fernhill-logistic-trained.json",
+            requests.to_str().unwrap(),
+        ],
+        "",
+    );
+    assert!(scored.status.success(), "{}", text(&scored.stderr));
+    assert_eq!(text(&scored.stdout).lines().count(), 300);
+}

@@ -63,6 +63,9 @@ pub enum Command {
         /// Group-membership probabilities CSV (never model inputs).
         #[arg(long)]
         groups_out: Option<PathBuf>,
+        /// The same applications as decision requests (JSON lines) for `score` or the service.
+        #[arg(long)]
+        requests_out: Option<PathBuf>,
     },
     /// Print a first training spec inferred from a CSV (kinds, ranges, levels, missing values,
     /// placeholder reasons and cutoffs) to edit before `train`; writes nothing.
@@ -183,7 +186,14 @@ pub fn run(cli: Cli) -> i32 {
             seed,
             out,
             groups_out,
-        } => train::demo_data(rows, seed, &out, groups_out.as_deref()),
+            requests_out,
+        } => train::demo_data(
+            rows,
+            seed,
+            &out,
+            groups_out.as_deref(),
+            requests_out.as_deref(),
+        ),
     }
 }
 

@@ -75,13 +75,18 @@ pub fn demo_data(
     seed: u64,
     out: &std::path::Path,
     groups: Option<&std::path::Path>,
+    requests: Option<&std::path::Path>,
 ) -> i32 {
     if rows == 0 || rows > 10_000_000 {
         eprintln!("error: --rows must be 1 to 10000000");
         return EXIT_BAD_INPUT;
     }
     let (apps, group_csv) = crate::train::demo_data::applications_csv(rows, seed);
+    let request_lines = requests.map(|_| crate::train::demo_data::requests_jsonl(&apps));
     let mut writes = vec![(out, apps)];
+    if let (Some(r), Some(lines)) = (requests, request_lines) {
+        writes.push((r, lines));
+    }
     if let Some(g) = groups {
         writes.push((g, group_csv));
     }

@@ -187,6 +187,33 @@ pub fn applications_csv(rows: usize, seed: u64) -> (String, String) {
     (apps, groups)
 }
 
+/// The same applications as decision requests, one JSON object per line
+/// (`{"application_id", "applicant"}`; missing values left out, the outcome column dropped), for
+/// `plumbline score` or a batch to the service.
+pub fn requests_jsonl(applications_csv: &str) -> String {
+    let mut lines = applications_csv.lines();
+    let header: Vec<&str> = lines.next().unwrap_or_default().split(',').collect();
+    let mut out = String::new();
+    for line in lines {
+        let cells: Vec<&str> = line.split(',').collect();
+        let mut applicant = serde_json::Map::new();
+        for (name, cell) in header.iter().zip(&cells).skip(1) {
+            if cell.is_empty() || *name == "defaulted" {
+                continue;
+            }
+            let value = match (cell.parse::<i64>(), cell.parse::<f64>()) {
+                (Ok(i), _) => serde_json::Value::from(i),
+                (_, Ok(x)) => serde_json::Value::from(x),
+                _ => serde_json::Value::from(*cell),
+            };
+            applicant.insert(name.to_string(), value);
+        }
+        let request = serde_json::json!({"application_id": cells[0], "applicant": applicant});
+        let _ = writeln!(out, "{request}");
+    }
+    out
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
