@@ -14,12 +14,14 @@ fn main() {
         std::process::exit(2);
     };
     let rows: usize = rows.parse().expect("ROWS is a number");
-    let model = plumbline::LoadedModel::from_path(std::path::Path::new(model)).expect("the model loads");
+    let model =
+        plumbline::LoadedModel::from_path(std::path::Path::new(model)).expect("the model loads");
     let store = records::open(store).expect("the store opens");
     let started = Instant::now();
     let (csv, groups) = plumbline::train::demo_data::applications_csv(rows, 2026);
     std::fs::write(groups_out, groups).expect("groups written");
-    let data = plumbline::train::dataset::read_csv(&csv, &model.schema, "defaulted").expect("demo data reads");
+    let data = plumbline::train::dataset::read_csv(&csv, &model.schema, "defaulted")
+        .expect("demo data reads");
     let mut group = Vec::with_capacity(10_000);
     for (i, applicant) in data.applicants.into_iter().enumerate() {
         let request = serde_json::json!({"application_id": format!("FH-DEMO-{:07}", i + 1), "applicant": applicant});
@@ -52,5 +54,9 @@ fn main() {
     if !group.is_empty() {
         store.insert_group(&group).expect("written");
     }
-    eprintln!("recorded {rows} decisions in {:.1} s into {}", started.elapsed().as_secs_f64(), store.describe());
+    eprintln!(
+        "recorded {rows} decisions in {:.1} s into {}",
+        started.elapsed().as_secs_f64(),
+        store.describe()
+    );
 }
