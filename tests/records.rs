@@ -147,6 +147,15 @@ fn sqlite_store_suite() {
 fn postgres_store_suite() {
     let Some(db) = stores::postgres() else { return };
     suite(&db.url);
+    // Logs name the database without credentials.
+    let with_password = db.url.replacen("postgres@", "postgres:secret@", 1);
+    let described = records::open(&with_password).unwrap().describe();
+    assert!(
+        described.starts_with("postgres:")
+            && described.ends_with(db.url.rsplit('/').next().unwrap()),
+        "{described}"
+    );
+    assert!(!described.contains("secret"));
 }
 
 /// Replicas starting together: each migration applies exactly once (advisory lock), and

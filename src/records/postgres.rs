@@ -241,14 +241,15 @@ impl Store for PostgresStore {
     fn describe(&self) -> String {
         // Never the password: host, port and database only.
         let config: Result<postgres::Config, _> = self.url.parse();
-        match config {
-            Ok(c) => format!(
-                "postgres:{:?}:{:?}/{}",
-                c.get_hosts(),
-                c.get_ports(),
-                c.get_dbname().unwrap_or("")
-            ),
-            Err(_) => "postgres".into(),
-        }
+        let Ok(c) = config else {
+            return "postgres".into();
+        };
+        let host = match c.get_hosts().first() {
+            Some(postgres::config::Host::Tcp(h)) => h.clone(),
+            Some(postgres::config::Host::Unix(p)) => p.display().to_string(),
+            None => "localhost".into(),
+        };
+        let port = c.get_ports().first().copied().unwrap_or(5432);
+        format!("postgres:{host}:{port}/{}", c.get_dbname().unwrap_or(""))
     }
 }
