@@ -269,6 +269,9 @@ fn bad_uploads_are_named() {
     )
     .unwrap_err();
     assert_eq!((e.row, e.rule), (Some(1), "sum_to_one"));
+    let e =
+        membership::from_csv("application_id,a,a,b\nFH-1,0.2,0.3,0.5\n", "d", 0.001).unwrap_err();
+    assert_eq!((e.field.as_str(), e.rule), ("a", "unique_group"));
     // A BISG-style file rounded to 4 places passes within the default tolerance.
     assert!(membership::from_csv(
         "application_id,a,b,c\nFH-1,0.3333,0.3333,0.3333\n",

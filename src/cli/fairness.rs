@@ -113,8 +113,8 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
             col("score")?,
         );
         for (n, line) in lines.enumerate() {
-            // Summary rows have no quoted commas before the reason codes (the last column).
-            let cells: Vec<&str> = line.split(',').collect();
+            let owned = crate::records::export::csv_cells(line);
+            let cells: Vec<&str> = owned.iter().map(String::as_str).collect();
             let num = |i: usize| {
                 cells
                     .get(i)

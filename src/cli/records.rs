@@ -122,7 +122,7 @@ fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, Strin
         out.write_all(text.as_bytes())
             .map_err(|e| (EXIT_FAILURE, e.to_string()))
     };
-    match command {
+    let result = match command {
         RecordsCommand::Get { decision_id } => {
             write(&(found(decision_id)?.view().map_err(failed)? + "\n"))
         }
@@ -175,5 +175,9 @@ fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, Strin
                 .map_err(failed)?;
             problem.map_or(Ok(()), Err)
         }
-    }
+    };
+    result?;
+    // An export cut short by a full disk or a closed pipe must not exit 0.
+    out.flush()
+        .map_err(|e| (EXIT_FAILURE, format!("cannot write the output: {e}")))
 }

@@ -94,6 +94,13 @@ enum Against {
 
 impl Against {
     fn decide(&self, request: &Value) -> Result<Value, String> {
+        // The new side's own model decides: a selector naming the recorded model would refuse
+        // (a file) or bypass (a service) the challenger.
+        let mut request = request.clone();
+        if let Some(o) = request.as_object_mut() {
+            o.remove("model");
+        }
+        let request = &request;
         match self {
             Against::Model(m) => crate::decide_request(m, request)
                 .map_err(|e| e.to_string())

@@ -206,6 +206,14 @@ pub fn from_csv(text: &str, dimension: &str, tolerance: f64) -> Result<Dimension
     );
     if !labels {
         for name in &header[1..] {
+            if b.dim.groups.iter().any(|g| g == name) {
+                return Err(err(
+                    None,
+                    name,
+                    "unique_group",
+                    format!("group {name} is a column twice"),
+                ));
+            }
             b.group(name, 0)?;
         }
     }

@@ -76,6 +76,32 @@ fn csv_cell(s: &str) -> String {
     }
 }
 
+/// One CSV line split into cells, the inverse of the writer above: RFC 4180 quotes undone and
+/// the `'` put before a leading `=`, `+`, `-` or `@` removed.
+pub fn csv_cells(line: &str) -> Vec<String> {
+    let mut cells = Vec::new();
+    let mut cell = String::new();
+    let (mut quoted, mut chars) = (false, line.chars().peekable());
+    while let Some(c) = chars.next() {
+        match (c, quoted) {
+            ('"', true) if chars.peek() == Some(&'"') => {
+                cell.push('"');
+                chars.next();
+            }
+            ('"', _) => quoted = !quoted,
+            (',', false) => cells.push(std::mem::take(&mut cell)),
+            (c, _) => cell.push(c),
+        }
+    }
+    cells.push(cell);
+    for c in &mut cells {
+        if c.starts_with('\'') && c[1..].starts_with(['=', '+', '-', '@']) {
+            c.remove(0);
+        }
+    }
+    cells
+}
+
 /// The reason codes of a recorded response, in the order given.
 pub fn reason_codes(r: &Record) -> Vec<String> {
     let response: serde_json::Value = serde_json::from_str(&r.response).unwrap_or_default();
@@ -99,5 +125,12 @@ mod tests {
         assert_eq!(csv_cell("a,b"), "\"a,b\"");
         assert_eq!(csv_cell("say \"hi\""), "\"say \"\"hi\"\"\"");
         assert_eq!(csv_cell("=HYPERLINK(1)"), "'=HYPERLINK(1)");
+    }
+
+    #[test]
+    fn cells_read_back_as_written() {
+        let cells = ["FH-1", "a,b", "say \"hi\"", "=HYPERLINK(1)", "-5", ""];
+        let line: Vec<String> = cells.iter().map(|c| csv_cell(c)).collect();
+        assert_eq!(super::csv_cells(&line.join(",")), cells);
     }
 }

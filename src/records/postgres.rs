@@ -120,6 +120,17 @@ impl PostgresStore {
     }
 }
 
+/// The synchronous client closes its connection by blocking on its own runtime, which panics
+/// inside an async context; the last reference to a store may well be dropped in one (a server
+/// worker shutting down), so the clients are closed on a thread of their own.
+impl Drop for PostgresStore {
+    fn drop(&mut self) {
+        let writer = self.writer.get_mut().ok().and_then(Option::take);
+        let readers = self.readers.get_mut().map(std::mem::take).unwrap_or_default();
+        let _ = std::thread::spawn(move || drop((writer, readers))).join();
+    }
+}
+
 fn by_key(tx: &mut postgres::Transaction, key: &str) -> Result<Option<Record>, StoreError> {
     let rows = tx
         .query(

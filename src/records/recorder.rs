@@ -11,6 +11,9 @@ use tokio::sync::{mpsc, oneshot};
 pub const MAX_GROUP: usize = 512;
 /// Records waiting for the writer before handlers wait to hand theirs over.
 const QUEUE: usize = 4_096;
+/// Longest a handler waits for its commit; after it, the decision is not given (503). A hung
+/// database must not hold every request open.
+pub const COMMIT_TIMEOUT: std::time::Duration = std::time::Duration::from_secs(10);
 
 /// Each record handed back with what writing it did (moved through, never copied).
 pub type Written = Vec<(Record, Insert)>;
@@ -64,13 +67,21 @@ impl Recorder {
     /// committed, with each record and its outcome, in order.
     pub async fn record(&self, records: Vec<Record>) -> Result<Written, StoreError> {
         let (reply, answer) = oneshot::channel();
-        self.tx
-            .send(Job { records, reply })
-            .await
-            .map_err(|_| StoreError::Unavailable("the recorder has stopped".into()))?;
-        answer
-            .await
-            .map_err(|_| StoreError::Unavailable("the recorder has stopped".into()))?
+        let stopped = || StoreError::Unavailable("the recorder has stopped".into());
+        let waited = tokio::time::timeout(COMMIT_TIMEOUT, async {
+            self.tx
+                .send(Job { records, reply })
+                .await
+                .map_err(|_| stopped())?;
+            answer.await.map_err(|_| stopped())?
+        })
+        .await;
+        waited.unwrap_or_else(|_| {
+            Err(StoreError::Unavailable(format!(
+                "no commit within {} s",
+                COMMIT_TIMEOUT.as_secs()
+            )))
+        })
     }
 }
 

@@ -24,13 +24,18 @@ pub fn junit_xml(report: &Report, all: &[(String, String)]) -> String {
         "<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n<testsuite name=\"plumbline replay\" tests=\"{}\" failures=\"{}\" errors=\"{}\">\n",
         report.compared, failures, report.errors
     );
+    let changed: std::collections::HashMap<&str, &super::Compared> = report
+        .changes
+        .iter()
+        .map(|c| (c.name.as_str(), c))
+        .collect();
     for (name, application_id) in all {
         let case = format!(
             "  <testcase classname=\"replay.{}\" name=\"{}\"",
             escape(&report.against),
             escape(&format!("{name} ({application_id})"))
         );
-        match report.changes.iter().find(|c| &c.name == name) {
+        match changed.get(name.as_str()) {
             None => s.push_str(&format!("{case}/>\n")),
             Some(c) => {
                 let tag = if c.change == Change::Error {
