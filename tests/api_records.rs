@@ -128,6 +128,9 @@ fn suite(store: Option<String>) {
     let other = post(&server, &request("FH-REC-3", Some("retry-3"), 31.0));
     assert_eq!(other.0, 409);
     assert!(other.1.contains("retry-3"));
+    // The key is looked up first: a different body that is also invalid is still the conflict.
+    let invalid = post(&server, &request("FH-REC-3", Some("retry-3"), -5.0));
+    assert_eq!(invalid.0, 409, "{}", invalid.1);
     let (_, _, text) = review(&server, "/v1/decisions?application_id=FH-REC-3");
     assert_eq!(
         serde_json::from_str::<Value>(&text).unwrap()["decisions"]

@@ -48,6 +48,8 @@ fn suite(location: &str) {
     );
     assert_eq!(store.get(&a.decision_id).unwrap().as_ref(), Some(&a));
     assert_eq!(store.get(&records::ids::new_decision_id()).unwrap(), None);
+    assert_eq!(store.find_key("key-1").unwrap().as_ref(), Some(&a));
+    assert_eq!(store.find_key("no-such-key").unwrap(), None);
 
     // The same key again, and twice within one group: the first record comes back, nothing new.
     let retry = record(2, Some("key-1"), &time(11), "approve");

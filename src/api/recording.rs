@@ -61,6 +61,34 @@ pub fn record_for(
     }
 }
 
+/// The stored response for a request whose idempotency key is already recorded (`None` when
+/// it is not, or the service keeps no records); a 409 when the key was used for another body.
+pub async fn earlier(state: &super::State, request: &Value) -> Result<Option<String>, Problem> {
+    let (Some(recorder), Some(key)) = (
+        &state.recorder,
+        request.get("idempotency_key").and_then(Value::as_str),
+    ) else {
+        return Ok(None);
+    };
+    let (store, key) = (recorder.store().clone(), key.to_string());
+    let found = actix_web::web::block(move || store.find_key(&key))
+        .await
+        .map_err(|_| Problem::internal("the store worker stopped"))?
+        .map_err(|e| Problem::store_failed(&e))?;
+    let Some(existing) = found else {
+        return Ok(None);
+    };
+    let digest = crate::artifact::sha256_hex(&crate::artifact::canonical_json(request));
+    if existing.request_sha256 == digest {
+        Ok(Some(existing.response))
+    } else {
+        Err(Problem::idempotency_conflict(
+            existing.idempotency_key.as_deref().unwrap_or_default(),
+            &existing.decision_id,
+        ))
+    }
+}
+
 /// What is sent for a written record.
 pub struct Given {
     pub body: String,

@@ -128,6 +128,14 @@ pub async fn post_decision(
         state.limits.body_timeout,
     )
     .await?;
+    // A recorded key answers before anything is decided: a retry gets the stored response even
+    // if its model has since been unloaded, and a different body is a conflict first.
+    if let Some(given) = recording::earlier(&state, &request).await? {
+        return Ok(HttpResponse::Ok()
+            .insert_header(("idempotency-replayed", "true"))
+            .content_type("application/json")
+            .body(given));
+    }
     let Decided {
         decision,
         idempotency_key,

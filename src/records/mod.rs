@@ -174,6 +174,8 @@ pub trait Store: Send + Sync {
     /// its outcome carries the recorded one.
     fn insert_group(&self, records: &[Record]) -> Result<Vec<Insert>, StoreError>;
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError>;
+    /// The record holding this idempotency key, if any.
+    fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError>;
     fn search(&self, query: &Query, limit: usize) -> Result<Page, StoreError>;
     /// Every record matching `query`, oldest first, handed to `sink` one at a time as read
     /// (never all in memory). Stops early when `sink` returns false. Returns how many were sent.

@@ -126,7 +126,11 @@ impl PostgresStore {
 impl Drop for PostgresStore {
     fn drop(&mut self) {
         let writer = self.writer.get_mut().ok().and_then(Option::take);
-        let readers = self.readers.get_mut().map(std::mem::take).unwrap_or_default();
+        let readers = self
+            .readers
+            .get_mut()
+            .map(std::mem::take)
+            .unwrap_or_default();
         let _ = std::thread::spawn(move || drop((writer, readers))).join();
     }
 }
@@ -193,6 +197,21 @@ impl Store for PostgresStore {
         }
         tx.commit().map_err(failed)?;
         Ok(out)
+    }
+
+    fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError> {
+        self.with_reader(|c| {
+            let rows = c
+                .query(
+                    &format!(
+                        "SELECT {} FROM decisions WHERE idempotency_key = $1",
+                        sql::COLUMNS
+                    ),
+                    &[&key],
+                )
+                .map_err(failed)?;
+            rows.first().map(row_to_record).transpose()
+        })
     }
 
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError> {

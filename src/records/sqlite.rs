@@ -174,6 +174,10 @@ impl Store for SqliteStore {
         Ok(out)
     }
 
+    fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError> {
+        self.with_reader(|c| by_key(c, key))
+    }
+
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError> {
         self.with_reader(|c| {
             c.query_row(
