@@ -167,6 +167,18 @@ pub struct Page {
     pub next: Option<Cursor>,
 }
 
+impl Page {
+    /// A page from up to `limit + 1` rows in page order: the extra row only says another page
+    /// follows, after the last one kept.
+    pub fn cut(mut records: Vec<Record>, limit: usize) -> Page {
+        let next = (records.len() > limit).then(|| {
+            records.truncate(limit);
+            Cursor::after(&records[limit - 1])
+        });
+        Page { records, next }
+    }
+}
+
 /// The store interface; both back ends pass the same test suite (tests/records.rs).
 pub trait Store: Send + Sync {
     /// Writes the records in one transaction, committed before this returns. A record whose

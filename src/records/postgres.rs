@@ -135,16 +135,13 @@ impl Drop for PostgresStore {
     }
 }
 
-fn by_key(tx: &mut postgres::Transaction, key: &str) -> Result<Option<Record>, StoreError> {
-    let rows = tx
-        .query(
-            &format!(
-                "SELECT {} FROM decisions WHERE idempotency_key = $1",
-                sql::COLUMNS
-            ),
-            &[&key],
-        )
-        .map_err(failed)?;
+/// The record whose `key` column equals `value`, if any (on a client or in a transaction).
+fn one(
+    c: &mut impl postgres::GenericClient,
+    key: sql::Key,
+    value: &str,
+) -> Result<Option<Record>, StoreError> {
+    let rows = c.query(&sql::select_one(key), &[&value]).map_err(failed)?;
     rows.first().map(row_to_record).transpose()
 }
 
@@ -188,7 +185,7 @@ impl Store for PostgresStore {
                 .map_err(failed)?;
             out.push(match (written, &r.idempotency_key) {
                 (1, _) => Insert::Inserted,
-                (_, Some(key)) => match by_key(&mut tx, key)? {
+                (_, Some(key)) => match one(&mut tx, sql::Key::IdempotencyKey, key)? {
                     Some(existing) => Insert::Existing(Box::new(existing)),
                     None => return Err(StoreError::Failed("conflict without a record".into())),
                 },
@@ -200,33 +197,11 @@ impl Store for PostgresStore {
     }
 
     fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError> {
-        self.with_reader(|c| {
-            let rows = c
-                .query(
-                    &format!(
-                        "SELECT {} FROM decisions WHERE idempotency_key = $1",
-                        sql::COLUMNS
-                    ),
-                    &[&key],
-                )
-                .map_err(failed)?;
-            rows.first().map(row_to_record).transpose()
-        })
+        self.with_reader(|c| one(c, sql::Key::IdempotencyKey, key))
     }
 
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError> {
-        self.with_reader(|c| {
-            let rows = c
-                .query(
-                    &format!(
-                        "SELECT {} FROM decisions WHERE decision_id = $1",
-                        sql::COLUMNS
-                    ),
-                    &[&decision_id],
-                )
-                .map_err(failed)?;
-            rows.first().map(row_to_record).transpose()
-        })
+        self.with_reader(|c| one(c, sql::Key::DecisionId, decision_id))
     }
 
     fn search(&self, query: &Query, limit: usize) -> Result<Page, StoreError> {
@@ -234,15 +209,11 @@ impl Store for PostgresStore {
         let (text, params) = sql::select(query, Some(limit + 1));
         self.with_reader(|c| {
             let rows = c.query(&text, &text_params(&params)).map_err(failed)?;
-            let mut records = rows
+            let records = rows
                 .iter()
                 .map(row_to_record)
                 .collect::<Result<Vec<_>, _>>()?;
-            let next = (records.len() > limit).then(|| {
-                records.truncate(limit);
-                super::Cursor::after(&records[limit - 1])
-            });
-            Ok(Page { records, next })
+            Ok(Page::cut(records, limit))
         })
     }
 

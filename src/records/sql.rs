@@ -49,6 +49,22 @@ pub const INSERT: &str = "INSERT INTO decisions (decision_id, application_id, id
     VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15) \
     ON CONFLICT (idempotency_key) DO NOTHING";
 
+/// The columns by which one record is looked up (both unique).
+#[derive(Debug, Clone, Copy)]
+pub enum Key {
+    DecisionId,
+    IdempotencyKey,
+}
+
+/// SELECT of the one record whose `key` column equals `$1`.
+pub fn select_one(key: Key) -> String {
+    let column = match key {
+        Key::DecisionId => "decision_id",
+        Key::IdempotencyKey => "idempotency_key",
+    };
+    format!("SELECT {COLUMNS} FROM decisions WHERE {column} = $1")
+}
+
 /// `$n` -> `?n`: SQLite's numbered parameters.
 pub fn for_sqlite(sql: &str) -> String {
     sql.replace('$', "?")

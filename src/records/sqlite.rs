@@ -113,13 +113,11 @@ fn migrate(c: &mut Connection) -> Result<(), StoreError> {
     tx.commit().map_err(failed)
 }
 
-fn by_key(c: &Connection, key: &str) -> Result<Option<Record>, StoreError> {
+/// The record whose `key` column equals `value`, if any.
+fn one(c: &Connection, key: sql::Key, value: &str) -> Result<Option<Record>, StoreError> {
     c.query_row(
-        &format!(
-            "SELECT {} FROM decisions WHERE idempotency_key = ?1",
-            sql::COLUMNS
-        ),
-        [key],
+        &sql::for_sqlite(&sql::select_one(key)),
+        [value],
         row_to_record,
     )
     .optional()
@@ -162,7 +160,7 @@ impl Store for SqliteStore {
                     .map_err(failed)?;
                 out.push(match (written, &r.idempotency_key) {
                     (1, _) => Insert::Inserted,
-                    (_, Some(key)) => match by_key(&tx, key)? {
+                    (_, Some(key)) => match one(&tx, sql::Key::IdempotencyKey, key)? {
                         Some(existing) => Insert::Existing(Box::new(existing)),
                         None => return Err(StoreError::Failed("conflict without a record".into())),
                     },
@@ -175,22 +173,11 @@ impl Store for SqliteStore {
     }
 
     fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError> {
-        self.with_reader(|c| by_key(c, key))
+        self.with_reader(|c| one(c, sql::Key::IdempotencyKey, key))
     }
 
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError> {
-        self.with_reader(|c| {
-            c.query_row(
-                &format!(
-                    "SELECT {} FROM decisions WHERE decision_id = ?1",
-                    sql::COLUMNS
-                ),
-                [decision_id],
-                row_to_record,
-            )
-            .optional()
-            .map_err(failed)
-        })
+        self.with_reader(|c| one(c, sql::Key::DecisionId, decision_id))
     }
 
     fn search(&self, query: &Query, limit: usize) -> Result<Page, StoreError> {
@@ -198,16 +185,12 @@ impl Store for SqliteStore {
         let (text, params) = sql::select(query, Some(limit + 1));
         self.with_reader(|c| {
             let mut stmt = c.prepare(&sql::for_sqlite(&text)).map_err(failed)?;
-            let mut records: Vec<Record> = stmt
+            let records: Vec<Record> = stmt
                 .query_map(rusqlite::params_from_iter(params.iter()), row_to_record)
                 .map_err(failed)?
                 .collect::<Result<_, _>>()
                 .map_err(failed)?;
-            let next = (records.len() > limit).then(|| {
-                records.truncate(limit);
-                super::Cursor::after(&records[limit - 1])
-            });
-            Ok(Page { records, next })
+            Ok(Page::cut(records, limit))
         })
     }
 
