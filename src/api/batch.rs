@@ -92,46 +92,49 @@ pub async fn post_batch(
     Ok(json(&batch_response(&state, decided).await?))
 }
 
-/// Each item decided, as the record to write (or as the bare decision when records are off).
-enum ItemResult {
-    Recorded(crate::records::Record),
-    Unrecorded(Decision),
+/// Each item in order: decided and among the records to write, decided with records off, or
+/// refused with its own problem.
+enum Slot {
+    Recorded,
+    Bare(Decision),
     Failed(Problem),
 }
 
-fn decide_batch(state: &State, body: &Value, received_at: String) -> Vec<ItemResult> {
+/// The items decided, and the records to write for them (in item order).
+fn decide_batch(
+    state: &State,
+    body: &Value,
+    received_at: String,
+) -> (Vec<Slot>, Vec<crate::records::Record>) {
     let items = body["items"]
         .as_array()
         .map(Vec::as_slice)
         .unwrap_or_default();
-    (items.iter())
+    let mut records = Vec::new();
+    let slots = (items.iter())
         .map(|item| match decide_value(state, item) {
-            Ok(d) if state.recorder.is_some() => ItemResult::Recorded(recording::record_for(
-                &d.decision,
-                d.idempotency_key,
-                item,
-                received_at.clone(),
-            )),
-            Ok(d) => ItemResult::Unrecorded(d.decision),
-            Err(p) => ItemResult::Failed(p),
+            Ok(d) if state.recorder.is_some() => {
+                records.push(recording::record_for(
+                    &d.decision,
+                    d.idempotency_key,
+                    item,
+                    received_at.clone(),
+                ));
+                Slot::Recorded
+            }
+            Ok(d) => Slot::Bare(d.decision),
+            Err(p) => Slot::Failed(p),
         })
-        .collect()
+        .collect();
+    (slots, records)
 }
 
 /// Records every decided item in one group (committed before anything is sent), then reports
 /// each item: its decision as recorded, or its own problem.
-async fn batch_response(state: &State, items: Vec<ItemResult>) -> Result<BatchResponse, Problem> {
-    let mut records = Vec::new();
-    let mut rest = Vec::with_capacity(items.len());
-    for item in items {
-        match item {
-            ItemResult::Recorded(r) => {
-                records.push(r);
-                rest.push(None);
-            }
-            other => rest.push(Some(other)),
-        }
-    }
+async fn batch_response(
+    state: &State,
+    (slots, records): (Vec<Slot>, Vec<crate::records::Record>),
+) -> Result<BatchResponse, Problem> {
     let mut written = match (&state.recorder, records.is_empty()) {
         (Some(recorder), false) => (recorder.record(records).await)
             .map_err(|e| Problem::not_recorded(&e))?
@@ -139,25 +142,24 @@ async fn batch_response(state: &State, items: Vec<ItemResult>) -> Result<BatchRe
         _ => Vec::new().into_iter(),
     };
     let mut response = BatchResponse {
-        results: Vec::with_capacity(rest.len()),
+        results: Vec::with_capacity(slots.len()),
         approved: 0,
         referred: 0,
         declined: 0,
         failed: 0,
     };
-    for (index, item) in rest.into_iter().enumerate() {
-        let given = match item {
-            None => {
+    for (index, slot) in slots.into_iter().enumerate() {
+        let given = match slot {
+            Slot::Recorded => {
                 let (record, outcome) = (written.next())
                     .ok_or_else(|| Problem::internal("the store gave too few outcomes"))?;
                 recording::settle(record, outcome).map(|g| (g.body, g.outcome))
             }
-            Some(ItemResult::Unrecorded(d)) => Ok((
+            Slot::Bare(d) => Ok((
                 serde_json::to_string(&d).unwrap_or_default(),
                 d.outcome.name().to_string(),
             )),
-            Some(ItemResult::Failed(p)) => Err(p),
-            Some(ItemResult::Recorded(_)) => Err(Problem::internal("an item was not recorded")),
+            Slot::Failed(p) => Err(p),
         };
         response.results.push(match given {
             Ok((body, outcome)) => {

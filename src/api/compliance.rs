@@ -35,8 +35,13 @@ async fn blocking<T: Send + 'static>(
         .map_err(|e| Problem::store_failed(&e))
 }
 
-fn found(id: &str, record: Option<Record>) -> Result<Record, Problem> {
-    record.ok_or_else(|| Problem::unknown_decision(id))
+/// The record of decision `id` for a reviewer (404 when none is recorded).
+async fn recorded(state: &State, req: &HttpRequest, id: &str) -> Result<Record, Problem> {
+    let store = store(state, req)?;
+    let key = id.to_string();
+    blocking(move || store.get(&key))
+        .await?
+        .ok_or_else(|| Problem::unknown_decision(id))
 }
 
 /// One decision exactly as recorded: request, response, model and times.
@@ -54,10 +59,8 @@ pub async fn get_decision(
     req: HttpRequest,
     id: web::Path<String>,
 ) -> Result<HttpResponse, Problem> {
-    let store = store(&state, &req)?;
     let id = id.into_inner();
-    let key = id.clone();
-    let record = found(&id, blocking(move || store.get(&key)).await?)?;
+    let record = recorded(&state, &req, &id).await?;
     let body = record.view().map_err(|e| Problem::store_failed(&e))?;
     Ok(HttpResponse::Ok()
         .content_type("application/json")
@@ -80,10 +83,8 @@ pub async fn adverse_action(
     req: HttpRequest,
     id: web::Path<String>,
 ) -> Result<HttpResponse, Problem> {
-    let store = store(&state, &req)?;
     let id = id.into_inner();
-    let key = id.clone();
-    let record = found(&id, blocking(move || store.get(&key)).await?)?;
+    let record = recorded(&state, &req, &id).await?;
     match notice::adverse_action(&record) {
         Ok(n) => Ok(HttpResponse::Ok().json(n)),
         Err(notice::NoNotice::Approved) => Err(Problem::no_adverse_action(&id)),

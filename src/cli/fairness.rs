@@ -180,10 +180,7 @@ pub fn text(r: &Report) -> String {
             s,
             "\n{} ({}) — control: {}",
             d.name,
-            serde_json::to_value(d.kind)
-                .ok()
-                .and_then(|v| v.as_str().map(String::from))
-                .unwrap_or_default(),
+            d.kind.name(),
             d.control_group.as_deref().unwrap_or("none")
         );
         if let Some(n) = &d.note {

@@ -21,6 +21,15 @@ pub enum Kind {
     Probabilities,
 }
 
+impl Kind {
+    pub fn name(self) -> &'static str {
+        match self {
+            Kind::Labels => "labels",
+            Kind::Probabilities => "probabilities",
+        }
+    }
+}
+
 /// One group dimension (e.g. race and ethnicity, or sex): its groups and each application's
 /// membership weights (group index, billionths).
 #[derive(Debug, Clone)]

@@ -43,10 +43,7 @@ pub fn junit_xml(report: &Report, all: &[(String, String)]) -> String {
                 } else {
                     "failure"
                 };
-                let kind = serde_json::to_value(c.change)
-                    .ok()
-                    .and_then(|v| v.as_str().map(String::from))
-                    .unwrap_or_default();
+                let kind = c.change.name();
                 s.push_str(&format!(
                     "{case}>\n    <{tag} type=\"{kind}\" message=\"{}\"/>\n  </testcase>\n",
                     escape(&c.describe())

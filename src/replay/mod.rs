@@ -34,6 +34,19 @@ pub enum Change {
     Error,
 }
 
+impl Change {
+    /// As written in JSON and JUnit.
+    pub fn name(self) -> &'static str {
+        match self {
+            Change::Unchanged => "unchanged",
+            Change::ProbabilityOnly => "probability_only",
+            Change::Reasons => "reasons",
+            Change::DecisionFlip => "decision_flip",
+            Change::Error => "error",
+        }
+    }
+}
+
 #[derive(Debug, Clone, Serialize)]
 pub struct Compared {
     pub name: String,

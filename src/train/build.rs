@@ -230,20 +230,32 @@ fn assemble(
         .map_err(|e| TrainError::Artifact(e.to_string()))
 }
 
+/// The checks and reading both kinds share: the fold count, the spec's fields (as for a tree
+/// model when `trees`), and the CSV read against them; with the encoded column names.
+fn prepare(
+    spec: &TrainingSpec,
+    csv: &str,
+    folds: usize,
+    trees: bool,
+) -> Result<(Dataset, Vec<String>), TrainError> {
+    if !(2..=20).contains(&folds) {
+        return Err(TrainError::Spec("folds must be 2 to 20".into()));
+    }
+    let schema: Schema = crate::artifact::schema_from_specs(&spec.features, &spec.reasons, trees)
+        .map_err(|e| TrainError::Spec(e.to_string()))?;
+    let data = read_csv(csv, &schema, &spec.target).map_err(|e| TrainError::Data(e.to_string()))?;
+    let names = schema.columns.iter().map(|c| c.name.clone()).collect();
+    Ok((data, names))
+}
+
 pub fn train_logistic(
     spec: &TrainingSpec,
     csv: &str,
     folds: usize,
     seed: u64,
 ) -> Result<(String, TrainReport), TrainError> {
-    if !(2..=20).contains(&folds) {
-        return Err(TrainError::Spec("folds must be 2 to 20".into()));
-    }
-    let schema: Schema = crate::artifact::schema_from_specs(&spec.features, &spec.reasons, false)
-        .map_err(|e| TrainError::Spec(e.to_string()))?;
-    let data = read_csv(csv, &schema, &spec.target).map_err(|e| TrainError::Data(e.to_string()))?;
+    let (data, names) = prepare(spec, csv, folds, false)?;
     let (x, y) = (&data.columns, &data.defaulted);
-    let names: Vec<String> = schema.columns.iter().map(|c| c.name.clone()).collect();
     let fit_err = |e: logistic::FitError| match e {
         logistic::FitError::Constant(j) => TrainError::Fit(format!(
             "column {} is constant in the data; drop it from the spec",
@@ -345,14 +357,8 @@ pub fn train_forest(
             "forest: trees 1-1000, max_depth 1-40, min_samples_leaf at least 1".into(),
         ));
     }
-    if !(2..=20).contains(&folds) {
-        return Err(TrainError::Spec("folds must be 2 to 20".into()));
-    }
-    let schema: Schema = crate::artifact::schema_from_specs(&spec.features, &spec.reasons, true)
-        .map_err(|e| TrainError::Spec(e.to_string()))?;
-    let data = read_csv(csv, &schema, &spec.target).map_err(|e| TrainError::Data(e.to_string()))?;
+    let (data, names) = prepare(spec, csv, folds, true)?;
     let (x, y) = (&data.columns, &data.defaulted);
-    let names: Vec<String> = schema.columns.iter().map(|c| c.name.clone()).collect();
     let positives = y.iter().filter(|&&d| d).count();
     if positives == 0 || positives == y.len() {
         return Err(TrainError::Fit(format!(
