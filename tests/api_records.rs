@@ -43,7 +43,7 @@ fn post(server: &TestServer, body: &str) -> (u16, String, Option<String>) {
         Err(ureq::Error::Status(_, r)) => r,
         Err(e) => panic!("{e}"),
     };
-    let replayed = r.header("idempotency-replayed").map(String::from);
+    let replayed = r.header("x-response-from-record").map(String::from);
     (r.status(), r.into_string().unwrap(), replayed)
 }
 

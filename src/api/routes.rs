@@ -101,7 +101,7 @@ pub(super) fn observe(state: &State, decision: &Decision, outcome: &str) {
 /// Decide one application.
 #[utoipa::path(post, path = "/v1/decisions", tag = "decisions", request_body = DecisionRequest,
     responses(
-        (status = 200, description = "The decision: probability, score, outcome, reasons and exact contributions, plus `record` (RecordRef: decision_id, decided_at) once committed to the store. A retry with a recorded idempotency_key and the same body returns the stored bytes with header `idempotency-replayed: true`", body = Decision),
+        (status = 200, description = "The decision: probability, score, outcome, reasons and exact contributions, plus `record` (RecordRef: decision_id, decided_at) once committed to the store. A retry with a recorded idempotency_key and the same body returns the stored bytes with header `x-response-from-record: true`", body = Decision),
         (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The key's role may not decide", body = Problem, content_type = "application/problem+json"),
@@ -132,7 +132,7 @@ pub async fn post_decision(
     // if its model has since been unloaded, and a different body is a conflict first.
     if let Some(given) = recording::earlier(&state, &request).await? {
         return Ok(HttpResponse::Ok()
-            .insert_header(("idempotency-replayed", "true"))
+            .insert_header(("x-response-from-record", "true"))
             .content_type("application/json")
             .body(given));
     }
@@ -156,7 +156,7 @@ pub async fn post_decision(
     }
     let mut response = HttpResponse::Ok();
     if given.replayed {
-        response.insert_header(("idempotency-replayed", "true"));
+        response.insert_header(("x-response-from-record", "true"));
     }
     Ok(response.content_type("application/json").body(given.body))
 }
