@@ -18,6 +18,7 @@ pub mod evaluate;
 pub mod explain;
 pub mod fairness;
 pub mod features;
+pub mod import;
 pub mod model;
 pub mod policy;
 pub mod reasons;

@@ -7,7 +7,7 @@ mod parse;
 pub mod spec;
 mod validate;
 
-pub use validate::{schema_from_specs, MAX_TREE_DEPTH};
+pub use validate::{schema_from_specs, scorer_from_spec, MAX_TREE_DEPTH};
 
 pub use digest::{canonical_json, sha256_hex};
 

@@ -144,7 +144,8 @@ pub struct LogisticSpec {
 #[serde(deny_unknown_fields)]
 pub struct TreeEnsembleSpec {
     pub aggregation: Aggregation,
-    /// Added to the sum of tree outputs (`sum_log_odds` only; must be 0 for `mean_probability`).
+    /// Added to the sum of tree outputs (`sum_log_odds`, `sum_probability`; must be 0 for
+    /// `mean_probability`).
     #[serde(default)]
     pub base_score: f64,
     pub trees: Vec<TreeSpec>,
@@ -157,6 +158,9 @@ pub enum Aggregation {
     MeanProbability,
     /// Boosted trees: leaves hold log-odds increments; the model sums them plus `base_score`.
     SumLogOdds,
+    /// Forests as ONNX exporters write them: each leaf holds its tree's share of the probability
+    /// of default (already divided by the number of trees); the model sums them plus `base_score`.
+    SumProbability,
 }
 
 #[derive(Debug, Clone, Serialize, Deserialize)]

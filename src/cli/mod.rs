@@ -3,6 +3,7 @@
 
 mod evaluate;
 mod fairness;
+mod import;
 mod inspect;
 mod records;
 mod replay;
@@ -97,6 +98,27 @@ pub enum Command {
         #[arg(long, default_value_t = 2026)]
         seed: u64,
     },
+    /// Bring in a model built elsewhere: an ONNX-ML file (scikit-learn, LightGBM or XGBoost, as
+    /// skl2onnx or onnxmltools write it) read against a training spec and a reference CSV; writes
+    /// the artifact only if it validates. An imported model needs its own model-risk review.
+    Import {
+        /// ONNX model file.
+        model: PathBuf,
+        /// Training spec (as `draft-spec` writes it); its input columns are the spec's encoded
+        /// columns in the order listed. Training-only settings (kind, l2, forest) are ignored.
+        #[arg(long)]
+        spec: PathBuf,
+        /// CSV of development or training rows with the spec's fields and target column: node
+        /// covers, reference populations, stability bins and a first measure come from it.
+        #[arg(long)]
+        reference: PathBuf,
+        /// Where to write the artifact.
+        #[arg(long)]
+        out: PathBuf,
+        /// How reference rows weigh in tree node covers.
+        #[arg(long, value_enum, default_value_t = crate::import::Covers::Rows)]
+        covers: crate::import::Covers,
+    },
     /// Measure a model on labelled data: AUC, KS, Gini, Brier, log loss, calibration by decile,
     /// outcomes and expected cost at the model's cutoffs and at the cost-optimal cutoff.
     Evaluate {
@@ -180,6 +202,13 @@ pub fn run(cli: Cli) -> i32 {
             folds,
             seed,
         } => train::train(&data, &spec, &out, folds, seed),
+        Command::Import {
+            model,
+            spec,
+            reference,
+            out,
+            covers,
+        } => import::run(&model, &spec, &reference, &out, covers),
         Command::DraftSpec { data, target, kind } => train::draft_spec(&data, &target, &kind),
         Command::DemoData {
             rows,

@@ -83,7 +83,7 @@ pub struct Ensemble {
 }
 
 impl Ensemble {
-    /// Raw output: mean leaf probability, or base score plus summed leaf log-odds.
+    /// Raw output: mean leaf probability, or base score plus the summed leaves.
     pub fn raw(&self, x: &[f64]) -> f64 {
         let sum: f64 = self.trees.iter().map(|t| t.leaf(x).value).sum();
         self.finish(sum)
@@ -94,22 +94,22 @@ impl Ensemble {
     pub fn finish(&self, sum: f64) -> f64 {
         match self.aggregation {
             Aggregation::MeanProbability => sum / self.trees.len() as f64,
-            Aggregation::SumLogOdds => self.base_score + sum,
+            Aggregation::SumLogOdds | Aggregation::SumProbability => self.base_score + sum,
         }
     }
 
-    /// Scale applied to per-tree quantities (1/n for forests, 1 for boosting).
+    /// Scale applied to per-tree quantities (1/n for averaged forests, else 1).
     #[inline]
     pub fn tree_weight(&self) -> f64 {
         match self.aggregation {
             Aggregation::MeanProbability => 1.0 / self.trees.len() as f64,
-            Aggregation::SumLogOdds => 1.0,
+            Aggregation::SumLogOdds | Aggregation::SumProbability => 1.0,
         }
     }
 
     pub fn space(&self) -> Space {
         match self.aggregation {
-            Aggregation::MeanProbability => Space::Probability,
+            Aggregation::MeanProbability | Aggregation::SumProbability => Space::Probability,
             Aggregation::SumLogOdds => Space::LogOdds,
         }
     }

@@ -181,22 +181,26 @@ fn cross_validate(
         .collect()
 }
 
-/// The artifact around a fitted body: identity, the spec's fields, reasons and policy,
+/// Provenance with the cross-validation results added.
+fn with_cv(mut provenance: Value, cv_auc: &[f64]) -> Value {
+    let (auc_mean, auc_sd) = mean_sd(cv_auc);
+    provenance["folds"] = json!(cv_auc.len());
+    provenance["cv_auc_mean"] = json!(auc_mean);
+    provenance["cv_auc_sd"] = json!(auc_sd);
+    provenance
+}
+
+/// The artifact around a model body: identity, the spec's fields, reasons and policy,
 /// development-sample stability bins and provenance; validated by loading it before it is
-/// returned.
-fn assemble(
+/// returned. Shared by training and import, so both write artifacts the same way.
+pub fn assemble(
     spec: &TrainingSpec,
     data: &Dataset,
     producer: &str,
     model: Value,
     explanation: Value,
-    mut provenance: Value,
-    cv_auc: &[f64],
+    provenance: Value,
 ) -> Result<String, TrainError> {
-    let (auc_mean, auc_sd) = mean_sd(cv_auc);
-    provenance["folds"] = json!(cv_auc.len());
-    provenance["cv_auc_mean"] = json!(auc_mean);
-    provenance["cv_auc_sd"] = json!(auc_sd);
     let artifact = json!({
         "format": crate::artifact::spec::FORMAT_TAG,
         "format_version": crate::artifact::spec::FORMAT_VERSION,
@@ -302,12 +306,14 @@ pub fn train_logistic(
         &format!("plumbline {} train", crate::VERSION),
         json!({"kind": "logistic", "intercept": model.coefficients[0], "coefficients": coefficients}),
         explanation,
-        json!({
-            "rows": y.len(), "base_rate": base_rate, "data_sha256": data.sha256, "seed": seed, "l2": spec.l2,
-            "std_errors": std_errors,
-            "method": "maximum likelihood (IRLS); Wald standard errors",
-        }),
-        &cv_auc,
+        with_cv(
+            json!({
+                "rows": y.len(), "base_rate": base_rate, "data_sha256": data.sha256, "seed": seed, "l2": spec.l2,
+                "std_errors": std_errors,
+                "method": "maximum likelihood (IRLS); Wald standard errors",
+            }),
+            &cv_auc,
+        ),
     )?;
     Ok((
         text,
@@ -402,11 +408,13 @@ pub fn train_forest(
         ),
         json!({"kind": "tree_ensemble", "aggregation": "mean_probability", "trees": trees}),
         explanation,
-        json!({
-            "rows": y.len(), "base_rate": base_rate, "data_sha256": data.sha256, "seed": seed, "forest": params,
-            "method": "smartcore random forest; node covers and leaf default rates re-counted on the training rows",
-        }),
-        &cv_auc,
+        with_cv(
+            json!({
+                "rows": y.len(), "base_rate": base_rate, "data_sha256": data.sha256, "seed": seed, "forest": params,
+                "method": "smartcore random forest; node covers and leaf default rates re-counted on the training rows",
+            }),
+            &cv_auc,
+        ),
     )?;
 
     Ok((

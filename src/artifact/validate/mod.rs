@@ -379,6 +379,12 @@ fn check_bounds(f: &FieldSpec, ty: &FieldType, at: &str) -> Result<()> {
     Ok(())
 }
 
+/// The model body alone, checked and compiled against `schema` (covers not required), for tools
+/// that score before the rest of an artifact exists (import).
+pub fn scorer_from_spec(spec: &ModelSpec, schema: &Schema) -> Result<Scorer> {
+    compile_model(spec, schema, ExplainMethod::TreeInterventional)
+}
+
 fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Result<Scorer> {
     match spec {
         ModelSpec::Logistic(LogisticSpec {
@@ -440,6 +446,13 @@ fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Re
                     "mean_probability forests have no base score; use 0",
                 );
             }
+            if *aggregation == Aggregation::SumProbability && !(0.0..=1.0).contains(base_score) {
+                return fail(
+                    "$.model.base_score",
+                    "probability",
+                    "a sum_probability forest's base score is a probability in [0, 1]",
+                );
+            }
             let need_cover = method == ExplainMethod::TreePathDependent;
             let trees = trees
                 .iter()
@@ -499,11 +512,11 @@ fn compile_tree(
             if !v.is_finite() {
                 return fail(format!("{at}.value"), "finite", "must be a finite number");
             }
-            if agg == Aggregation::MeanProbability && !(0.0..=1.0).contains(&v) {
+            if agg != Aggregation::SumLogOdds && !(0.0..=1.0).contains(&v) {
                 return fail(
                     format!("{at}.value"),
                     "probability",
-                    "a forest leaf holds a probability in [0, 1]",
+                    "a forest leaf holds a probability (or a tree's share of one) in [0, 1]",
                 );
             }
             nodes.push(Node {
