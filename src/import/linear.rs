@@ -25,6 +25,7 @@ pub struct HeadForm {
 
 pub fn head_link(shape: &Shape) -> Result<HeadForm, ImportError> {
     let a = Attrs::new(shape.head);
+    super::check_labels(&a)?;
     let classes = a.reals("intercepts")?.map_or(0, |v| v.len());
     match (a.string("post_transform", "NONE")?.as_str(), classes) {
         ("LOGISTIC", 1 | 2) => Ok(HeadForm {

@@ -43,6 +43,9 @@ const NODE_ATTRS: &[&str] = &[
 /// The head's own link before the graph's later steps: the raw score, or its logistic.
 pub fn head_link(shape: &Shape) -> Result<bool, ImportError> {
     let a = Attrs::new(shape.head);
+    if shape.kind == Head::TreeEnsembleClassifier {
+        super::check_labels(&a)?;
+    }
     match a.string("post_transform", "NONE")?.as_str() {
         "NONE" => Ok(false),
         "LOGISTIC" if shape.kind == Head::TreeEnsembleClassifier => Ok(true),

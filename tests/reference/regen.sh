@@ -31,6 +31,7 @@ trap 'rm -rf "$out"' EXIT
 "$PLUMBLINE_PY" tests/reference/make_fixtures.py "$out"
 "$PLUMBLINE_PY" tests/reference/make_metrics.py "$out"
 "$PLUMBLINE_PY" tests/reference/make_fairness.py "$out"
+"$PLUMBLINE_PY" tests/reference/make_onnx.py "$out"
 
 fixtures=tests/reference/fixtures
 if [ "$write" = 1 ]; then
@@ -38,7 +39,9 @@ if [ "$write" = 1 ]; then
     for f in lightgbm.json forest.json expected.json metrics.json fairness.json; do
         cp "$out/$f" "$fixtures/$f"
     done
-    echo "regen: wrote $fixtures/{lightgbm,forest,expected,metrics,fairness}.json"
+    rm -rf "$fixtures/onnx"
+    cp -r "$out/onnx" "$fixtures/onnx"
+    echo "regen: wrote $fixtures/{lightgbm,forest,expected,metrics,fairness}.json and $fixtures/onnx/"
     exit 0
 fi
 

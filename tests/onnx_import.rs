@@ -1,0 +1,198 @@
+//! ONNX import checked against onnxruntime and the libraries that trained the models.
+//!
+//! Fixture: tests/reference/fixtures/onnx/, written by tests/reference/make_onnx.py with the
+//! versions recorded in its expected.json `libraries` (scikit-learn 1.9.1, LightGBM 4.7.0,
+//! XGBoost 3.2.0, shap 0.51.0, skl2onnx 1.20.0, onnxmltools 1.16.0, onnxruntime 1.31.1 when
+//! written; CI regenerates it from PyPI and fails on any difference).
+//!
+//! - Probabilities: onnxruntime's, to [`PROBABILITY_TOLERANCE`]. onnxruntime sums leaf weights and
+//!   linear terms in float32 and returns float32, so it is itself about one float32 step from the
+//!   exact sum of the stored weights, which plumbline computes in float64.
+//! - Branches: rows at, and one float32 (or float64) step either side of, every threshold of the
+//!   first trees of four models (BRANCH_LEQ, BRANCH_LT with missing values, through a Scaler, on a
+//!   float64 input). A wrong branch moves the output by a whole leaf, far beyond the tolerance.
+//! - Contributions: the exporting library's own exact values (shap TreeExplainer path-dependent,
+//!   LightGBM pred_contrib, XGBoost pred_contribs, shap LinearExplainer) to 1e-6, the leaf weights
+//!   and coefficients being float32 in the file and float64 in the library.
+
+use plumbline::import::{import, Covers, ImportError, ImportOptions};
+use plumbline::LoadedModel;
+use serde_json::Value;
+use std::path::{Path, PathBuf};
+
+const DIR: &str = "tests/reference/fixtures/onnx";
+/// Largest |plumbline - onnxruntime| accepted for a probability: onnxruntime's own float32
+/// rounding (1.1e-7 measured on these 1,918 rows; a float32 step near 0.5 is 6e-8).
+const PROBABILITY_TOLERANCE: f64 = 2e-7;
+/// Contributions and base values against the exporting library.
+const CONTRIBUTION_TOLERANCE: f64 = 1e-6;
+
+fn path(name: &str) -> PathBuf {
+    Path::new(DIR).join(name)
+}
+
+fn fixture() -> Value {
+    serde_json::from_slice(&std::fs::read(path("expected.json")).unwrap()).unwrap()
+}
+
+fn run(case: &Value) -> Result<String, ImportError> {
+    let s = |k: &str| case[k].as_str().unwrap();
+    let covers = match case["covers"].as_str().unwrap_or("rows") {
+        "hessian" => Covers::Hessian,
+        _ => Covers::Rows,
+    };
+    import(
+        &std::fs::read(path(s("model"))).unwrap(),
+        &std::fs::read_to_string(path(s("spec"))).unwrap(),
+        &std::fs::read_to_string(path(s("reference"))).unwrap(),
+        &ImportOptions { covers },
+    )
+    .map(|(text, _)| text)
+}
+
+fn imported(case: &Value) -> LoadedModel {
+    let name = case["name"].as_str().unwrap();
+    let text = run(case).unwrap_or_else(|e| panic!("{name}: {e}"));
+    LoadedModel::from_slice(text.as_bytes()).unwrap()
+}
+
+fn encode(model: &LoadedModel, applicant: &Value) -> Vec<f64> {
+    model
+        .schema
+        .check_and_encode(applicant, "")
+        .unwrap()
+        .columns
+}
+
+fn probability(model: &LoadedModel, x: &[f64]) -> f64 {
+    let raw = model.scorer.raw(x);
+    model.scorer.probability_and_log_odds(raw).0
+}
+
+#[test]
+fn probabilities_match_onnxruntime_at_and_beside_every_threshold() {
+    let f = fixture();
+    let mut checked = 0;
+    let mut worst = 0.0f64;
+    for group in ["cases", "edges"] {
+        for case in f[group].as_array().unwrap() {
+            let name = case["name"].as_str().unwrap();
+            let model = imported(case);
+            for (r, row) in case["rows"].as_array().unwrap().iter().enumerate() {
+                let p = probability(&model, &encode(&model, &row["applicant"]));
+                let want = row["onnxruntime"].as_f64().unwrap();
+                let d = (p - want).abs();
+                worst = worst.max(d);
+                assert!(
+                    d <= PROBABILITY_TOLERANCE,
+                    "{group} {name} row {r}: {p} vs onnxruntime {want} ({})",
+                    row["applicant"]
+                );
+                checked += 1;
+            }
+        }
+    }
+    assert!(checked > 1500, "only {checked} rows checked");
+    eprintln!("{checked} rows, largest difference from onnxruntime {worst:e}");
+}
+
+#[test]
+fn contributions_match_the_exporting_libraries() {
+    let f = fixture();
+    let cases = f["cases"].as_array().unwrap();
+    assert!(cases.len() >= 10);
+    for case in cases {
+        let name = case["name"].as_str().unwrap();
+        let source = case["contribution_source"].as_str().unwrap();
+        let model = imported(case);
+        assert_eq!(
+            plumbline::explain::space_name(model.scorer.space()),
+            case["space"].as_str().unwrap(),
+            "{name}"
+        );
+        for (r, row) in case["rows"].as_array().unwrap().iter().enumerate() {
+            let x = encode(&model, &row["applicant"]);
+            let (base, phi) = plumbline::explain::explain(&model.explainer, &x);
+            let output = model.scorer.raw(&x);
+            assert!(
+                plumbline::explain::is_additive(base, &phi, output),
+                "{name} row {r}: not additive"
+            );
+            let want_base = row["base_value"].as_f64().unwrap();
+            assert!(
+                (base - want_base).abs() <= CONTRIBUTION_TOLERANCE,
+                "{name} ({source}) row {r}: base value {base} vs {want_base}"
+            );
+            let want: Vec<f64> = (row["contributions"].as_array().unwrap().iter())
+                .map(|v| v.as_f64().unwrap())
+                .collect();
+            for (j, (got, want)) in phi.iter().zip(&want).enumerate() {
+                assert!(
+                    (got - want).abs() <= CONTRIBUTION_TOLERANCE,
+                    "{name} ({source}) row {r} column {j}: {got} vs {want}"
+                );
+            }
+        }
+    }
+}
+
+#[test]
+fn refusals_name_the_node_or_attribute_and_the_reason() {
+    let f = fixture();
+    let refusals = f["refusals"].as_array().unwrap();
+    assert!(refusals.len() >= 12);
+    for case in refusals {
+        let name = case["name"].as_str().unwrap();
+        let err = std::panic::catch_unwind(|| run(case))
+            .unwrap_or_else(|_| panic!("{name}: import panicked"))
+            .expect_err(name)
+            .to_string();
+        for word in case["expect"].as_array().unwrap() {
+            let word = word.as_str().unwrap();
+            assert!(err.contains(word), "{name}: {err:?} does not say {word:?}");
+        }
+    }
+}
+
+#[test]
+fn reimport_is_byte_identical_and_decides_identically() {
+    let f = fixture();
+    for case in f["cases"].as_array().unwrap().iter().take(4) {
+        let name = case["name"].as_str().unwrap();
+        let (a, b) = (run(case).unwrap(), run(case).unwrap());
+        assert_eq!(a, b, "{name}: two imports differ");
+        let (ma, mb) = (
+            LoadedModel::from_slice(a.as_bytes()).unwrap(),
+            LoadedModel::from_slice(b.as_bytes()).unwrap(),
+        );
+        for row in case["rows"].as_array().unwrap().iter().take(5) {
+            let request =
+                serde_json::json!({"application_id": "FX-1", "applicant": row["applicant"]});
+            let da =
+                serde_json::to_string(&plumbline::decide_request(&ma, &request).unwrap()).unwrap();
+            let db =
+                serde_json::to_string(&plumbline::decide_request(&mb, &request).unwrap()).unwrap();
+            assert_eq!(da, db, "{name}");
+        }
+    }
+}
+
+#[test]
+fn provenance_records_the_source_file() {
+    let f = fixture();
+    let case = &f["cases"][0];
+    let model = imported(case);
+    let bytes = std::fs::read(path(case["model"].as_str().unwrap())).unwrap();
+    let p = model.provenance.as_ref().unwrap();
+    assert_eq!(p["onnx"]["sha256"], plumbline::artifact::sha256_hex(&bytes));
+    assert_eq!(p["onnx"]["producer_name"], "skl2onnx");
+    assert_eq!(p["onnx"]["producer_version"], f["libraries"]["skl2onnx"]);
+    assert_eq!(p["onnx"]["graph_name"], "ONNX(RandomForestClassifier)");
+    assert!(p["onnx"]["opsets"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|o| o["domain"] == "ai.onnx.ml"));
+    assert_eq!(p["ignored_spec_settings"], serde_json::json!(["kind"]));
+    assert!(model.identity.producer.contains("import (skl2onnx"));
+}
