@@ -100,6 +100,69 @@ fn explain_line(model: &LoadedModel) -> String {
     )
 }
 
+/// Where an imported model came from, from its provenance (`None` for models trained here).
+fn import_lines(model: &LoadedModel) -> Option<Vec<String>> {
+    let p = model.provenance.as_ref()?;
+    let o = p.get("onnx")?;
+    let s = |v: &serde_json::Value| v.as_str().unwrap_or("?").to_string();
+    let opsets: Vec<String> = (o["opsets"].as_array().into_iter().flatten())
+        .map(|x| {
+            let d = x["domain"].as_str().unwrap_or("");
+            format!(
+                "{} {}",
+                if d.is_empty() { "ai.onnx" } else { d },
+                x["version"]
+            )
+        })
+        .collect();
+    let mut opsets = opsets;
+    opsets.dedup();
+    let mut v = vec![
+        format!(
+            "ONNX file sha256 {}, written by {} {}",
+            s(&o["sha256"]),
+            s(&o["producer_name"]),
+            s(&o["producer_version"])
+        ),
+        format!(
+            "graph \"{}\", IR version {}, opsets {}",
+            s(&o["graph_name"]),
+            o["ir_version"],
+            opsets.join(", ")
+        ),
+        format!(
+            "operator {} on {} input \"{}\"{}; probability from output \"{}\"",
+            s(&o["operator"]),
+            s(&o["input_precision"]),
+            s(&o["input"]),
+            if o["scaler"] == true {
+                " through a Scaler"
+            } else {
+                ""
+            },
+            s(&o["output"])
+        ),
+    ];
+    if let Some(c) = p["covers"].as_str() {
+        v.push(format!(
+            "covers: {c} (recounted on the {} reference rows)",
+            p["rows"]
+        ));
+    }
+    let metric = |k: &str| {
+        p[k].as_f64()
+            .map_or("n/a".to_string(), |x| format!("{x:.4}"))
+    };
+    v.push(format!(
+        "on the reference rows: AUC {}, KS {}, Brier {}",
+        metric("reference_auc"),
+        metric("reference_ks"),
+        metric("reference_brier")
+    ));
+    v.push("an imported model needs its own validation and model-risk review".into());
+    Some(v)
+}
+
 fn text(model: &LoadedModel) -> String {
     let mut s = String::new();
     let id = &model.identity;
@@ -141,6 +204,12 @@ fn text(model: &LoadedModel) -> String {
     let _ = writeln!(s, "\nmodel");
     for line in model_lines(model) {
         let _ = writeln!(s, "  {line}");
+    }
+    if let Some(lines) = import_lines(model) {
+        let _ = writeln!(s, "\nimported");
+        for line in lines {
+            let _ = writeln!(s, "  {line}");
+        }
     }
     let _ = writeln!(s, "\nexplanations\n  {}", explain_line(model));
     if let Some(alt) = model.explained_against_alternate() {
@@ -239,5 +308,7 @@ fn summary(model: &LoadedModel) -> serde_json::Value {
             "inquiry_extra": model.policy.inquiry_extra,
         },
         "reasons": model.reasons.reasons.iter().map(|r| json!({"code": r.code, "text": r.text, "inquiry": r.inquiry})).collect::<Vec<_>>(),
+        "imported": import_lines(model),
+        "provenance": model.provenance,
     })
 }

@@ -327,6 +327,7 @@ pub fn import(
     let text = crate::train::build::assemble(
         &spec,
         &data,
+        "reference rows given at import (development or training data)",
         &producer,
         model_json,
         explanation,

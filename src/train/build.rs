@@ -181,6 +181,9 @@ fn cross_validate(
         .collect()
 }
 
+/// Who the stability bins of a trained model describe.
+const FITTED_ON: &str = "training data the model was fitted on";
+
 /// Provenance with the cross-validation results added.
 fn with_cv(mut provenance: Value, cv_auc: &[f64]) -> Value {
     let (auc_mean, auc_sd) = mean_sd(cv_auc);
@@ -196,6 +199,7 @@ fn with_cv(mut provenance: Value, cv_auc: &[f64]) -> Value {
 pub fn assemble(
     spec: &TrainingSpec,
     data: &Dataset,
+    bins_label: &str,
     producer: &str,
     model: Value,
     explanation: Value,
@@ -223,8 +227,7 @@ pub fn assemble(
             loaded.policy.scaling.score(log_odds) as f64
         })
         .collect();
-    let label = "training data the model was fitted on";
-    let bins = stability::develop(label, &spec.features, &data.applicants, &scores);
+    let bins = stability::develop(bins_label, &spec.features, &data.applicants, &scores);
     let mut artifact = artifact;
     artifact["stability"] =
         serde_json::to_value(bins).map_err(|e| TrainError::Artifact(e.to_string()))?;
@@ -303,6 +306,7 @@ pub fn train_logistic(
     let text = assemble(
         spec,
         &data,
+        FITTED_ON,
         &format!("plumbline {} train", crate::VERSION),
         json!({"kind": "logistic", "intercept": model.coefficients[0], "coefficients": coefficients}),
         explanation,
@@ -402,6 +406,7 @@ pub fn train_forest(
     let text = assemble(
         spec,
         &data,
+        FITTED_ON,
         &format!(
             "plumbline {} train (smartcore 0.4 random forest, covers re-counted)",
             crate::VERSION

@@ -71,6 +71,7 @@ pub fn read_csv(text: &str, schema: &Schema, target: &str) -> Result<Dataset, Da
             continue;
         }
         let mut applicant = Map::new();
+        let before = problems.len();
         for (f, &i) in schema.fields.iter().zip(&at) {
             let cell = cells[i];
             let value = if cell.is_empty() {
@@ -104,8 +105,14 @@ pub fn read_csv(text: &str, schema: &Schema, target: &str) -> Result<Dataset, Da
             applicant.insert(f.name.clone(), value);
         }
         let object = Value::Object(applicant);
-        match schema.check_and_encode(&object, "") {
-            Ok(e) if problems.is_empty() => {
+        // A cell already named above is not reported again as missing.
+        let checked = if problems.len() > before {
+            Ok(None)
+        } else {
+            schema.check_and_encode(&object, "").map(Some)
+        };
+        match checked {
+            Ok(Some(e)) if problems.is_empty() => {
                 columns.push(e.columns);
                 if let Value::Object(m) = object {
                     applicants.push(m);

@@ -1,7 +1,8 @@
-//! Stated risk directions checked on a fitted forest. A logistic slope is checked exactly when
-//! the artifact loads; a random forest cannot be constrained by smartcore, so training reports
-//! where its partial dependence (average prediction with one input set to each grid value,
-//! Friedman 2001, sec. 8.2) runs against the stated direction, for a reviewer to judge.
+//! Stated risk directions checked on a fitted or imported tree model. A logistic slope is checked
+//! exactly when the artifact loads; a random forest cannot be constrained by smartcore, and an
+//! imported ensemble was fitted elsewhere, so training and import report where its partial
+//! dependence (average prediction with one input set to each grid value, Friedman 2001, sec. 8.2)
+//! runs against the stated direction, for a reviewer to judge.
 
 use crate::artifact::spec::{FieldSpec, Monotone};
 
@@ -25,7 +26,11 @@ pub fn forest_notes(
         else {
             continue;
         };
-        let mut values: Vec<f64> = x.iter().map(|r| r[c]).collect();
+        // Missing values (left to the trees) are no point on the grid.
+        let mut values: Vec<f64> = x.iter().map(|r| r[c]).filter(|v| !v.is_nan()).collect();
+        if values.is_empty() {
+            continue;
+        }
         values.sort_by(f64::total_cmp);
         let mut grid: Vec<f64> = (0..GRID)
             .map(|k| values[k * (values.len() - 1) / (GRID - 1)])
@@ -57,7 +62,7 @@ pub fn forest_notes(
             .max_by(|a, b| a.0.total_cmp(&b.0));
         if let Some((against, k)) = worst.filter(|w| w.0 > 1e-12) {
             notes.push(format!(
-                "{}: stated risk direction {}, but the forest's average probability of default moves the other way by {against:.5} between {} and {} (partial dependence on {} rows); random forests are not constrained, so review before use",
+                "{}: stated risk direction {}, but the tree model's average probability of default moves the other way by {against:.5} between {} and {} (partial dependence on {} rows); its trees are not constrained to the direction, so review before use",
                 f.name,
                 match direction {
                     Monotone::Increasing => "increasing",
