@@ -20,6 +20,7 @@ pub mod fairness;
 pub mod features;
 pub mod import;
 pub mod model;
+pub mod onnx;
 pub mod policy;
 pub mod reasons;
 pub mod records;

@@ -4,10 +4,10 @@
 //! on those paths is refused, naming the node.
 
 use super::boundary::{Affine, Precision};
-use super::onnx::{node_label, tensor_values, Attrs};
 use super::ImportError;
+use crate::onnx::pb;
+use crate::onnx::{node_label, tensor_values, Attrs};
 use std::collections::HashMap;
-use tract_onnx::pb;
 
 /// The ONNX-ML operators that hold a whole model.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
@@ -207,7 +207,9 @@ pub fn read(graph: &pb::GraphProto) -> Result<Shape<'_>, ImportError> {
                         && to != pb::tensor_proto::DataType::Double as i64
                         && to != pb::tensor_proto::DataType::Int64 as i64
                     {
-                        return Err(refuse("casts to a type other than float, double or int64"));
+                        return Err(
+                            refuse("casts to a type other than float, double or int64").into()
+                        );
                     }
                     steps.push(Traced::Cast {
                         to_int: to == pb::tensor_proto::DataType::Int64 as i64,
@@ -222,7 +224,7 @@ pub fn read(graph: &pb::GraphProto) -> Result<Shape<'_>, ImportError> {
                     let (c, x) = match (scalar(&consts, a)?, scalar(&consts, b)?) {
                         (None, Some(c)) => (c, a),
                         (Some(c), None) if op == "Mul" => (c, b),
-                        _ => return Err(refuse("must scale the scores by one constant")),
+                        _ => return Err(refuse("must scale the scores by one constant").into()),
                     };
                     steps.push(Traced::Step(Step::Scale(if op == "Div" {
                         1.0 / c
@@ -240,7 +242,8 @@ pub fn read(graph: &pb::GraphProto) -> Result<Shape<'_>, ImportError> {
                     return Err(refuse(
                         "is not an operator plumbline reads between the model and its outputs \
                          (Identity, Cast, Mul or Div by a constant, Sigmoid, ZipMap)",
-                    ))
+                    )
+                    .into())
                 }
             };
         };
@@ -385,31 +388,37 @@ fn read_scaler(n: &pb::NodeProto, width: Option<usize>) -> Result<Vec<Affine>, I
     let scale = a.reals("scale")?.unwrap_or_default();
     let offset = a.reals("offset")?.unwrap_or_else(|| vec![0.0; scale.len()]);
     if scale.is_empty() || scale.len() != offset.len() {
-        return Err(a.err(
-            "scale",
-            format!(
-                "has {} values and offset {}; both must have one per column, or one",
-                scale.len(),
-                offset.len()
-            ),
-        ));
+        return Err(a
+            .err(
+                "scale",
+                format!(
+                    "has {} values and offset {}; both must have one per column, or one",
+                    scale.len(),
+                    offset.len()
+                ),
+            )
+            .into());
     }
     if let Some(w) = width {
         if scale.len() != 1 && scale.len() != w {
-            return Err(a.err(
-                "scale",
-                format!("has {} values for an input of {w} columns", scale.len()),
-            ));
+            return Err(a
+                .err(
+                    "scale",
+                    format!("has {} values for an input of {w} columns", scale.len()),
+                )
+                .into());
         }
     }
     for (j, (&s, &o)) in scale.iter().zip(&offset).enumerate() {
         if !s.is_finite() || s == 0.0 || !o.is_finite() {
-            return Err(a.err(
-                "scale",
-                format!(
+            return Err(a
+                .err(
+                    "scale",
+                    format!(
                     "column {j}: scale {s} and offset {o} must be finite and the scale non-zero"
                 ),
-            ));
+                )
+                .into());
         }
     }
     Ok((offset.iter().zip(&scale))

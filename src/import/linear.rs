@@ -6,8 +6,8 @@
 //! that rounding only (a few float32 ulps of the largest term), never in form.
 
 use super::graph::Shape;
-use super::onnx::Attrs;
 use super::{ImportError, Link};
+use crate::onnx::Attrs;
 
 /// The log-odds of default as `intercept + coefficients . x`, one coefficient per column.
 pub struct Linear {
@@ -43,7 +43,7 @@ pub fn head_link(shape: &Shape) -> Result<HeadForm, ImportError> {
         (other, n) => Err(a.err(
             "post_transform",
             format!("{other} with {n} intercepts is not read; plumbline reads LOGISTIC (one or two classes), SOFTMAX (two) or NONE followed by a Sigmoid"),
-        )),
+        ).into()),
     }
 }
 
@@ -67,24 +67,26 @@ pub fn read(
         return Err(a.err(
             "post_transform",
             "the output is the raw linear score, not a probability; a logistic model needs LOGISTIC or a Sigmoid",
-        ));
+        ).into());
     };
     let w = a.reals("coefficients")?.unwrap_or_default();
     let b = a.reals("intercepts")?.unwrap_or_default();
     if w.len() != b.len() * width {
-        return Err(a.err(
-            "coefficients",
-            format!(
-                "holds {} values: {} classes of {} columns would be {}",
-                w.len(),
-                b.len(),
-                width,
-                b.len() * width
-            ),
-        ));
+        return Err(a
+            .err(
+                "coefficients",
+                format!(
+                    "holds {} values: {} classes of {} columns would be {}",
+                    w.len(),
+                    b.len(),
+                    width,
+                    b.len() * width
+                ),
+            )
+            .into());
     }
     if w.iter().chain(&b).any(|v| !v.is_finite()) {
-        return Err(a.err("coefficients", "must be finite"));
+        return Err(a.err("coefficients", "must be finite").into());
     }
     // The positive class is the last row; a softmax of two measures it against the first.
     let last = b.len() - 1;

@@ -15,12 +15,11 @@ pub mod boundary;
 mod covers;
 mod graph;
 mod linear;
-mod onnx;
 mod trees;
 
+pub use crate::onnx::Source;
 pub use covers::Covers;
 pub use graph::Head;
-pub use onnx::Source;
 
 use crate::artifact::spec::{ModelSpec, TreeEnsembleSpec};
 use crate::train::build::{TrainError, TrainingSpec};
@@ -45,6 +44,15 @@ impl ImportError {
         ImportError::Model {
             at: at.into(),
             message: message.into(),
+        }
+    }
+}
+
+impl From<crate::onnx::OnnxError> for ImportError {
+    fn from(e: crate::onnx::OnnxError) -> Self {
+        ImportError::Model {
+            at: e.at,
+            message: e.message,
         }
     }
 }
@@ -107,7 +115,7 @@ fn fold(logistic: bool, steps: &[Step], output: &str) -> Result<Link, ImportErro
 }
 
 /// Binary models only, labelled 0 and 1 (1 = defaulted), so column 1 is the default probability.
-fn check_labels(a: &onnx::Attrs) -> Result<(), ImportError> {
+fn check_labels(a: &crate::onnx::Attrs) -> Result<(), ImportError> {
     let ints = a.ints("classlabels_int64s");
     let ints = if ints.is_empty() {
         a.ints("classlabels_ints")
@@ -133,11 +141,11 @@ fn check_labels(a: &onnx::Attrs) -> Result<(), ImportError> {
         2 => Err(a.err(
             name,
             format!("labels {labels:?}: plumbline reads models whose classes are 0 and 1 (1 = defaulted); relabel the outcome before training"),
-        )),
+        ).into()),
         n => Err(a.err(
             name,
             format!("{n} classes: plumbline reads binary default models only (multiclass is refused)"),
-        )),
+        ).into()),
     }
 }
 
@@ -186,7 +194,7 @@ pub fn import(
         serde_json::from_value(raw).map_err(|e| ImportError::Spec(e.to_string()))?;
     crate::train::draft::check_no_placeholders(&spec)?;
 
-    let (model, source) = onnx::decode(onnx_bytes)?;
+    let (model, source) = crate::onnx::decode(onnx_bytes)?;
     let Some(graph_proto) = model.graph.as_ref() else {
         return Err(ImportError::model("file", "holds no graph"));
     };

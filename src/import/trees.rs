@@ -10,9 +10,9 @@
 
 use super::boundary::{self, Affine, Mode, Precision};
 use super::graph::{Head, Shape};
-use super::onnx::Attrs;
 use super::{ImportError, Link};
 use crate::artifact::spec::{Aggregation, Comparison, NodeSpec, Side, TreeSpec};
+use crate::onnx::Attrs;
 use std::collections::HashMap;
 
 /// The trees, how they combine, and words on how they were read.
@@ -59,7 +59,7 @@ pub fn head_link(shape: &Shape) -> Result<bool, ImportError> {
                     ""
                 }
             ),
-        )),
+        ).into()),
     }
 }
 
@@ -93,24 +93,28 @@ pub fn read(shape: &Shape, columns: &[String], link: Link) -> Result<Trees, Impo
             match ids.as_slice() {
                 [0] => {}
                 [1] if base_values.is_empty() => {}
-                [1] => return Err(a.err("base_values", "with weights for class 1 only, onnxruntime adds base values unevenly; export in the single-score form (class id 0)")),
-                [] => return Err(a.err("class_ids", "holds no leaf weights")),
-                _ => return Err(a.err("class_ids", format!("weights for classes {ids:?}: plumbline reads the binary single-score form (one class id), where onnxruntime's probability is the logistic or the sum of the scores"))),
+                [1] => return Err(a.err("base_values", "with weights for class 1 only, onnxruntime adds base values unevenly; export in the single-score form (class id 0)").into()),
+                [] => return Err(a.err("class_ids", "holds no leaf weights").into()),
+                _ => return Err(a.err("class_ids", format!("weights for classes {ids:?}: plumbline reads the binary single-score form (one class id), where onnxruntime's probability is the logistic or the sum of the scores")).into()),
             }
             false
         }
         _ => {
             if a.int("n_targets", 1) != 1 || class_ids.iter().any(|&i| i != 0) {
-                return Err(a.err("n_targets", "plumbline reads regressors with one target"));
+                return Err(a
+                    .err("n_targets", "plumbline reads regressors with one target")
+                    .into());
             }
             match a.string("aggregate_function", "SUM")?.as_str() {
                 "SUM" => false,
                 "AVERAGE" => true,
                 other => {
-                    return Err(a.err(
-                        "aggregate_function",
-                        format!("{other} is not read; plumbline reads SUM and AVERAGE"),
-                    ))
+                    return Err(a
+                        .err(
+                            "aggregate_function",
+                            format!("{other} is not read; plumbline reads SUM and AVERAGE"),
+                        )
+                        .into())
                 }
             }
         }
@@ -122,25 +126,29 @@ pub fn read(shape: &Shape, columns: &[String], link: Link) -> Result<Trees, Impo
                 "holds {} values; with one score, onnxruntime uses only the first, so the file is ambiguous",
                 base_values.len()
             ),
-        ));
+        ).into());
     }
     let base = base_values.first().copied().unwrap_or(0.0);
     if !base.is_finite() {
-        return Err(a.err("base_values", "must be finite"));
+        return Err(a.err("base_values", "must be finite").into());
     }
 
     let mut trees = structure(&a, shape, columns, leaf)?;
     let (aggregation, scale) = match (link, average) {
         (Link::LogOdds { scale }, false) => (Aggregation::SumLogOdds, scale),
         (Link::LogOdds { .. }, true) => {
-            return Err(a.err(
-                "aggregate_function",
-                "AVERAGE followed by a logistic is not read; export the summed margin",
-            ))
+            return Err(a
+                .err(
+                    "aggregate_function",
+                    "AVERAGE followed by a logistic is not read; export the summed margin",
+                )
+                .into())
         }
         (Link::Probability { scale }, true) => {
             if base != 0.0 {
-                return Err(a.err("base_values", "an averaged forest has no base value"));
+                return Err(a
+                    .err("base_values", "an averaged forest has no base value")
+                    .into());
             }
             (Aggregation::MeanProbability, scale)
         }
@@ -161,14 +169,16 @@ pub fn read(shape: &Shape, columns: &[String], link: Link) -> Result<Trees, Impo
                         format!(
                             "tree {t}, leaf {i} holds {v}: with no logistic after the trees the output is used as the probability, so leaves must lie in [0, 1]"
                         ),
-                    ));
+                    ).into());
                 }
             }
         }
     }
     let base_score = base * scale;
     if aggregation == Aggregation::SumProbability && !(0.0..=1.0).contains(&base_score) {
-        return Err(a.err("base_values", "must be a probability in [0, 1]"));
+        return Err(a
+            .err("base_values", "must be a probability in [0, 1]")
+            .into());
     }
     notes.push(format!(
         "{} trees read from {}; thresholds rewritten to the float64 boundaries that give onnxruntime's branch on every input ({} input{})",
@@ -225,17 +235,21 @@ fn structure(
         ("nodes_values", values.len()),
     ] {
         if len != n {
-            return Err(a.err(
-                name,
-                format!("has {len} entries for {n} nodes (nodes_treeids)"),
-            ));
+            return Err(a
+                .err(
+                    name,
+                    format!("has {len} entries for {n} nodes (nodes_treeids)"),
+                )
+                .into());
         }
     }
     if !tracks.is_empty() && tracks.len() != n {
-        return Err(a.err(
-            "nodes_missing_value_tracks_true",
-            format!("has {} entries for {n} nodes", tracks.len()),
-        ));
+        return Err(a
+            .err(
+                "nodes_missing_value_tracks_true",
+                format!("has {} entries for {n} nodes", tracks.len()),
+            )
+            .into());
     }
     let mut listed = Vec::with_capacity(n);
     for i in 0..n {
@@ -249,9 +263,9 @@ fn structure(
                 return Err(a.err(
                     "nodes_modes",
                     format!("node {i} is {m}: categorical (equality or set) splits are not read; encode categories as the spec's 0/1 dummy columns"),
-                ))
+                ).into())
             }
-            m => return Err(a.err("nodes_modes", format!("node {i}: unknown mode {m}"))),
+            m => return Err(a.err("nodes_modes", format!("node {i}: unknown mode {m}")).into()),
         };
         if mode.is_some() {
             let f = features[i];
@@ -262,10 +276,12 @@ fn structure(
                         "node {i} splits on input column {f}; the spec's features encode to {} columns",
                         columns.len()
                     ),
-                ));
+                ).into());
             }
             if values[i].is_nan() {
-                return Err(a.err("nodes_values", format!("node {i} has a NaN threshold")));
+                return Err(a
+                    .err("nodes_values", format!("node {i} has a NaN threshold"))
+                    .into());
             }
         }
         listed.push(Listed {
@@ -285,10 +301,12 @@ fn structure(
     for l in &listed {
         if order.last() != Some(&l.tree) {
             if order.contains(&l.tree) {
-                return Err(a.err(
-                    "nodes_treeids",
-                    format!("tree {} is listed in more than one run", l.tree),
-                ));
+                return Err(a
+                    .err(
+                        "nodes_treeids",
+                        format!("tree {} is listed in more than one run", l.tree),
+                    )
+                    .into());
             }
             order.push(l.tree);
         }
@@ -321,10 +339,12 @@ fn leaf_weights(
     let nodeids = a.ints(&format!("{leaf}_nodeids"));
     let w = a.reals(&format!("{leaf}_weights"))?.unwrap_or_default();
     if nodeids.len() != treeids.len() || w.len() != treeids.len() {
-        return Err(a.err(
-            &format!("{leaf}_weights"),
-            "leaf weight lists differ in length",
-        ));
+        return Err(a
+            .err(
+                &format!("{leaf}_weights"),
+                "leaf weight lists differ in length",
+            )
+            .into());
     }
     let leaves: HashMap<(i64, i64), bool> = (listed.iter())
         .map(|l| ((l.tree, l.id), l.mode.is_none()))
@@ -335,29 +355,35 @@ fn leaf_weights(
         match leaves.get(&key) {
             Some(true) => {}
             Some(false) => {
-                return Err(a.err(
-                    &format!("{leaf}_nodeids"),
-                    format!(
-                        "weight {i} is attached to node {} of tree {}, which is a split",
-                        key.1, key.0
-                    ),
-                ))
+                return Err(a
+                    .err(
+                        &format!("{leaf}_nodeids"),
+                        format!(
+                            "weight {i} is attached to node {} of tree {}, which is a split",
+                            key.1, key.0
+                        ),
+                    )
+                    .into())
             }
             None => {
-                return Err(a.err(
-                    &format!("{leaf}_nodeids"),
-                    format!(
-                        "weight {i} is attached to node {} of tree {}, which does not exist",
-                        key.1, key.0
-                    ),
-                ))
+                return Err(a
+                    .err(
+                        &format!("{leaf}_nodeids"),
+                        format!(
+                            "weight {i} is attached to node {} of tree {}, which does not exist",
+                            key.1, key.0
+                        ),
+                    )
+                    .into())
             }
         }
         if !w[i].is_finite() {
-            return Err(a.err(
-                &format!("{leaf}_weights"),
-                format!("weight {i} is not finite"),
-            ));
+            return Err(a
+                .err(
+                    &format!("{leaf}_weights"),
+                    format!("weight {i} is not finite"),
+                )
+                .into());
         }
         *out.entry(key).or_insert(0.0) += w[i];
     }
@@ -379,7 +405,7 @@ fn one_tree(
     let mut pos: HashMap<i64, usize> = HashMap::new();
     for (i, l) in nodes.iter().enumerate() {
         if pos.insert(l.id, i).is_some() {
-            return Err(at(&format!("node id {} is listed twice", l.id)));
+            return Err(at(&format!("node id {} is listed twice", l.id)).into());
         }
     }
     let child = |l: &Listed, id: i64, which: &str| {
@@ -403,13 +429,14 @@ fn one_tree(
             return Err(at(&format!(
                 "node {} is reached twice (a shared child or a cycle; or the first listed node is not the root)",
                 nodes[i].id
-            )));
+            )).into());
         }
         if depth > crate::artifact::MAX_TREE_DEPTH {
             return Err(at(&format!(
                 "deeper than {} splits",
                 crate::artifact::MAX_TREE_DEPTH
-            )));
+            ))
+            .into());
         }
         let me = out.len();
         new_index[i] = me;
@@ -444,7 +471,7 @@ fn one_tree(
         let split = boundary::split(mode, l.threshold, shape.precision, scaler);
         let (yes, no) = (child(l, l.yes, "true")?, child(l, l.no, "false")?);
         if yes == no {
-            return Err(at(&format!("node {} has the same child twice", l.id)));
+            return Err(at(&format!("node {} has the same child twice", l.id)).into());
         }
         let (left_child, right_child) = if split.true_below {
             (yes, no)
@@ -478,7 +505,8 @@ fn one_tree(
         return Err(at(&format!(
             "node {} is not reachable from the root (tree index {t})",
             nodes[i].id
-        )));
+        ))
+        .into());
     }
     Ok(TreeSpec { nodes: out })
 }

@@ -1,10 +1,27 @@
-//! The ONNX file itself: protobuf decoded by prost into tract-onnx's generated ONNX types (no
-//! hand-written wire decoding), the facts provenance records, and typed access to node
-//! attributes and constant tensors, every failure naming the node and attribute.
+//! The ONNX file format (onnx.ai, open standard): protobuf decoded by prost into tract-onnx's
+//! generated ONNX types (no hand-written wire decoding), the facts provenance records, and typed
+//! access to node attributes and constant tensors, every failure naming the node and attribute.
+//! Shared by `import` (reading a model into our structures) and `model::graph` (evaluating one).
 
-use super::ImportError;
 use prost::Message;
-use tract_onnx::pb;
+pub use tract_onnx::pb;
+
+/// A problem with an ONNX file: where (node, attribute, input or output) and why.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("{at}: {message}")]
+pub struct OnnxError {
+    pub at: String,
+    pub message: String,
+}
+
+impl OnnxError {
+    pub fn new(at: impl Into<String>, message: impl Into<String>) -> Self {
+        OnnxError {
+            at: at.into(),
+            message: message.into(),
+        }
+    }
+}
 
 /// Where the model came from, as the ONNX file says (recorded in the artifact's provenance).
 #[derive(Debug, Clone, PartialEq, serde::Serialize)]
@@ -26,18 +43,18 @@ pub struct Opset {
 }
 
 /// Decodes the file; refuses what cannot be a self-contained model.
-pub fn decode(bytes: &[u8]) -> Result<(pb::ModelProto, Source), ImportError> {
+pub fn decode(bytes: &[u8]) -> Result<(pb::ModelProto, Source), OnnxError> {
     let model = pb::ModelProto::decode(bytes).map_err(|e| {
-        ImportError::model(
+        OnnxError::new(
             "file",
             format!("is not an ONNX model (protobuf decoding failed: {e})"),
         )
     })?;
     let Some(graph) = &model.graph else {
-        return Err(ImportError::model("file", "holds no graph"));
+        return Err(OnnxError::new("file", "holds no graph"));
     };
     if graph.node.is_empty() {
-        return Err(ImportError::model("graph", "has no nodes"));
+        return Err(OnnxError::new("graph", "has no nodes"));
     }
     let source = Source {
         sha256: crate::artifact::sha256_hex(bytes),
@@ -65,10 +82,10 @@ pub fn node_label(node: &pb::NodeProto) -> String {
 }
 
 /// A constant tensor's values as float64, with its shape.
-pub fn tensor_values(t: &pb::TensorProto, at: &str) -> Result<(Vec<i64>, Vec<f64>), ImportError> {
+pub fn tensor_values(t: &pb::TensorProto, at: &str) -> Result<(Vec<i64>, Vec<f64>), OnnxError> {
     use pb::tensor_proto::DataType;
     if !t.external_data.is_empty() || t.data_location == Some(1) {
-        return Err(ImportError::model(
+        return Err(OnnxError::new(
             at,
             "keeps its data in an external file; export the model with its data inside",
         ));
@@ -88,7 +105,7 @@ pub fn tensor_values(t: &pb::TensorProto, at: &str) -> Result<(Vec<i64>, Vec<f64
             .collect(),
         Ok(DataType::Int64) => t.int64_data.iter().map(|&v| v as f64).collect(),
         _ => {
-            return Err(ImportError::model(
+            return Err(OnnxError::new(
                 at,
                 format!(
                     "holds a tensor of data type {}; only float, double and int64 are read",
@@ -99,7 +116,7 @@ pub fn tensor_values(t: &pb::TensorProto, at: &str) -> Result<(Vec<i64>, Vec<f64
     };
     let count: i64 = t.dims.iter().product();
     if t.dims.iter().any(|&d| d < 0) || count as usize != values.len() {
-        return Err(ImportError::model(
+        return Err(OnnxError::new(
             at,
             format!("tensor of shape {:?} holds {} values", t.dims, values.len()),
         ));
@@ -126,12 +143,12 @@ impl<'a> Attrs<'a> {
     }
 
     /// An error at attribute `name` of this node.
-    pub fn err(&self, name: &str, message: impl Into<String>) -> ImportError {
-        ImportError::model(format!("{}, attribute {name}", self.at), message)
+    pub fn err(&self, name: &str, message: impl Into<String>) -> OnnxError {
+        OnnxError::new(format!("{}, attribute {name}", self.at), message)
     }
 
     /// Refuses attributes this reader does not know: they would change what the node computes.
-    pub fn only(&self, known: &[&str]) -> Result<(), ImportError> {
+    pub fn only(&self, known: &[&str]) -> Result<(), OnnxError> {
         for a in &self.node.attribute {
             if !known.contains(&a.name.as_str()) {
                 return Err(self.err(
@@ -158,14 +175,14 @@ impl<'a> Attrs<'a> {
         self.get(name).map_or(default, |a| a.i)
     }
 
-    pub fn string(&self, name: &str, default: &str) -> Result<String, ImportError> {
+    pub fn string(&self, name: &str, default: &str) -> Result<String, OnnxError> {
         match self.get(name) {
             None => Ok(default.to_string()),
             Some(a) => String::from_utf8(a.s.clone()).map_err(|_| self.err(name, "is not UTF-8")),
         }
     }
 
-    pub fn strings(&self, name: &str) -> Result<Vec<String>, ImportError> {
+    pub fn strings(&self, name: &str) -> Result<Vec<String>, OnnxError> {
         let Some(a) = self.get(name) else {
             return Ok(Vec::new());
         };
@@ -176,7 +193,7 @@ impl<'a> Attrs<'a> {
 
     /// Real values from `name` (float32 list) or `name_as_tensor` (float or double tensor), as
     /// float64; `None` when neither is present. Both at once is refused.
-    pub fn reals(&self, name: &str) -> Result<Option<Vec<f64>>, ImportError> {
+    pub fn reals(&self, name: &str) -> Result<Option<Vec<f64>>, OnnxError> {
         let tensor_name = format!("{name}_as_tensor");
         match (self.get(name), self.get(&tensor_name)) {
             (Some(_), Some(_)) => {
