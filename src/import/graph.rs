@@ -207,9 +207,7 @@ pub fn read(graph: &pb::GraphProto) -> Result<Shape<'_>, ImportError> {
                         && to != pb::tensor_proto::DataType::Double as i64
                         && to != pb::tensor_proto::DataType::Int64 as i64
                     {
-                        return Err(
-                            refuse("casts to a type other than float, double or int64").into()
-                        );
+                        return Err(refuse("casts to a type other than float, double or int64"));
                     }
                     steps.push(Traced::Cast {
                         to_int: to == pb::tensor_proto::DataType::Int64 as i64,
@@ -224,7 +222,7 @@ pub fn read(graph: &pb::GraphProto) -> Result<Shape<'_>, ImportError> {
                     let (c, x) = match (scalar(&consts, a)?, scalar(&consts, b)?) {
                         (None, Some(c)) => (c, a),
                         (Some(c), None) if op == "Mul" => (c, b),
-                        _ => return Err(refuse("must scale the scores by one constant").into()),
+                        _ => return Err(refuse("must scale the scores by one constant")),
                     };
                     steps.push(Traced::Step(Step::Scale(if op == "Div" {
                         1.0 / c
@@ -242,8 +240,7 @@ pub fn read(graph: &pb::GraphProto) -> Result<Shape<'_>, ImportError> {
                     return Err(refuse(
                         "is not an operator plumbline reads between the model and its outputs \
                          (Identity, Cast, Mul or Div by a constant, Sigmoid, ZipMap)",
-                    )
-                    .into())
+                    ))
                 }
             };
         };
