@@ -209,3 +209,38 @@ impl<'a> Attrs<'a> {
         }
     }
 }
+
+/// Binary models only, labelled 0 and 1 (1 = defaulted), so column 1 is the default probability.
+pub fn check_binary_labels(a: &Attrs) -> Result<(), OnnxError> {
+    let ints = a.ints("classlabels_int64s");
+    let ints = if ints.is_empty() {
+        a.ints("classlabels_ints")
+    } else {
+        ints
+    };
+    let strings = a.strings("classlabels_strings")?;
+    let (name, labels): (&str, Vec<String>) = if !strings.is_empty() {
+        ("classlabels_strings", strings)
+    } else if a.has("classlabels_ints") {
+        (
+            "classlabels_ints",
+            ints.iter().map(|i| i.to_string()).collect(),
+        )
+    } else {
+        (
+            "classlabels_int64s",
+            ints.iter().map(|i| i.to_string()).collect(),
+        )
+    };
+    match labels.len() {
+        2 if labels == ["0", "1"] => Ok(()),
+        2 => Err(a.err(
+            name,
+            format!("labels {labels:?}: plumbline reads models whose classes are 0 and 1 (1 = defaulted); relabel the outcome before training"),
+        )),
+        n => Err(a.err(
+            name,
+            format!("{n} classes: plumbline reads binary default models only (multiclass is refused)"),
+        )),
+    }
+}

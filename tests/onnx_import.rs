@@ -41,11 +41,17 @@ fn run(case: &Value) -> Result<String, ImportError> {
         "hessian" => Covers::Hessian,
         _ => Covers::Rows,
     };
+    let background =
+        (case["background"].as_str()).map(|b| std::fs::read_to_string(path(b)).unwrap());
     import(
         &std::fs::read(path(s("model"))).unwrap(),
         &std::fs::read_to_string(path(s("spec"))).unwrap(),
         &std::fs::read_to_string(path(s("reference"))).unwrap(),
-        &ImportOptions { covers },
+        &ImportOptions {
+            covers,
+            background,
+            approximate: false,
+        },
     )
     .map(|(text, _)| text)
 }
@@ -100,7 +106,7 @@ fn probabilities_match_onnxruntime_at_and_beside_every_threshold() {
 fn contributions_match_the_exporting_libraries() {
     let f = fixture();
     let cases = f["cases"].as_array().unwrap();
-    assert!(cases.len() >= 10);
+    assert!(cases.len() >= 13);
     for case in cases {
         let name = case["name"].as_str().unwrap();
         let source = case["contribution_source"].as_str().unwrap();
@@ -195,4 +201,88 @@ fn provenance_records_the_source_file() {
         .any(|o| o["domain"] == "ai.onnx.ml"));
     assert_eq!(p["ignored_spec_settings"], serde_json::json!(["kind"]));
     assert!(model.identity.producer.contains("import (skl2onnx"));
+}
+
+/// The Shapley computation on a function whose answer is known in closed form: for a linear f,
+/// the interventional value of field i is beta_i * (x_i - mean of the background's x_i).
+#[test]
+fn shapley_values_of_a_linear_graph_are_its_terms() {
+    use plumbline::explain::shapley::{Mode, ShapleyExplainer};
+    let f = fixture();
+    let lg = &f["linear_graph"];
+    let bytes = std::fs::read(path(lg["model"].as_str().unwrap())).unwrap();
+    let (proto, _) = plumbline::onnx::decode(&bytes).unwrap();
+    let graph = std::sync::Arc::new(plumbline::model::graph::compile(&proto).unwrap());
+    let w: Vec<f64> = (lg["weights"].as_array().unwrap().iter())
+        .map(|v| v.as_f64().unwrap())
+        .collect();
+    let csv = std::fs::read_to_string(path("background.csv")).unwrap();
+    let background: Vec<Vec<f64>> = (csv.lines().skip(1))
+        .map(|l| l.split(',').map(|c| c.parse().unwrap()).collect())
+        .collect();
+    let groups = (0..w.len()).map(|j| j..j + 1).collect();
+    let explainer = ShapleyExplainer::new(graph.clone(), &background, groups, Mode::Exact).unwrap();
+    // The background rows are float32 values, so the closed form's mean is exact here.
+    let mean: Vec<f64> = (0..w.len())
+        .map(|j| background.iter().map(|b| b[j]).sum::<f64>() / background.len() as f64)
+        .collect();
+    for row in f["cases"][0]["rows"].as_array().unwrap().iter().take(10) {
+        let x: Vec<f64> = (0..w.len())
+            .map(|j| row["applicant"][format!("x{j}")].as_f64().unwrap())
+            .collect();
+        let mut phi = vec![0.0; w.len()];
+        explainer.explain_into(&x, &mut phi, &mut Vec::new());
+        for j in 0..w.len() {
+            let want = w[j] * (x[j] - mean[j]);
+            assert!(
+                (phi[j] - want).abs() <= 1e-6,
+                "field {j}: {} vs {want}",
+                phi[j]
+            );
+        }
+        let total = explainer.base_value() + phi.iter().sum::<f64>();
+        assert!((total - graph.probability(&x)).abs() <= 1e-12);
+    }
+}
+
+/// Sampled estimates: additive exactly, each within a few standard errors of the exact value,
+/// and the decision says they are estimated.
+#[test]
+fn sampled_estimates_are_additive_and_close_to_exact() {
+    let f = fixture();
+    let case = (f["cases"].as_array().unwrap().iter())
+        .find(|c| c["name"] == "mlp_relu")
+        .unwrap();
+    let text = run(case).unwrap();
+    let exact = LoadedModel::from_slice(text.as_bytes()).unwrap();
+    let mut artifact: Value = serde_json::from_str(&text).unwrap();
+    artifact["explanation"]["method"] = "shapley_sampled".into();
+    artifact["explanation"]["samples"] = 64.into();
+    artifact["explanation"]["seed"] = 7.into();
+    let sampled = LoadedModel::from_value(&artifact).unwrap();
+    for row in case["rows"].as_array().unwrap().iter().take(5) {
+        let request = serde_json::json!({"application_id": "FX-S", "applicant": row["applicant"]});
+        let d = plumbline::decide_request(&sampled, &request).unwrap();
+        let e = plumbline::decide_request(&exact, &request).unwrap();
+        let c = &d.contributions;
+        let sum: f64 = c.fields.iter().map(|f| f.contribution).sum();
+        assert!((c.base_value + sum - c.model_output).abs() <= 1e-9);
+        assert_eq!(c.model_output, e.contributions.model_output);
+        assert!(c.estimate.is_some() && e.contributions.estimate.is_none());
+        for (s, x) in c.fields.iter().zip(&e.contributions.fields) {
+            let se = s.standard_error.unwrap();
+            assert!(se > 0.0 && x.standard_error.is_none());
+            assert!(
+                (s.contribution - x.contribution).abs() <= 5.0 * se + 1e-6,
+                "{}: {} vs exact {} (se {se})",
+                s.field,
+                s.contribution,
+                x.contribution
+            );
+        }
+        let json = serde_json::to_value(&d).unwrap();
+        assert_eq!(json["contributions"]["method"], "shapley_sampled");
+        assert_eq!(json["contributions"]["estimate"]["permutations"], 64);
+        assert!(json["contributions"]["fields"][0]["standard_error"].is_number());
+    }
 }

@@ -96,7 +96,7 @@ pub async fn post_batch(
 /// refused with its own problem.
 enum Slot {
     Recorded,
-    Bare(Decision),
+    Bare(Box<Decision>),
     Failed(Problem),
 }
 
@@ -122,7 +122,7 @@ fn decide_batch(
                 ));
                 Slot::Recorded
             }
-            Ok(d) => Slot::Bare(d.decision),
+            Ok(d) => Slot::Bare(Box::new(d.decision)),
             Err(p) => Slot::Failed(p),
         })
         .collect();

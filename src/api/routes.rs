@@ -209,6 +209,7 @@ fn summary(m: &LoadedModel, champion: bool) -> ModelSummary {
         kind: match m.scorer {
             crate::model::Scorer::Logistic(_) => "logistic",
             crate::model::Scorer::Trees(_) => "tree_ensemble",
+            crate::model::Scorer::Graph(_) => "onnx_graph",
         },
         explanation: m.explainer.method(),
         reference: m.reference.population,

@@ -37,6 +37,8 @@ struct ModelBody {
     aggregation: Option<Aggregation>,
     base_score: Option<f64>,
     trees: Option<Vec<TreeSpec>>,
+    onnx: Option<String>,
+    sha256: Option<String>,
 }
 
 pub fn parse(bytes: &[u8]) -> Result<ArtifactSpec, ArtifactError> {
@@ -84,6 +86,8 @@ fn model_spec(m: ModelBody) -> Result<ModelSpec, ArtifactError> {
                     ("aggregation", m.aggregation.is_some()),
                     ("base_score", m.base_score.is_some()),
                     ("trees", m.trees.is_some()),
+                    ("onnx", m.onnx.is_some()),
+                    ("sha256", m.sha256.is_some()),
                 ],
                 "logistic",
             )?;
@@ -97,6 +101,8 @@ fn model_spec(m: ModelBody) -> Result<ModelSpec, ArtifactError> {
                 &[
                     ("intercept", m.intercept.is_some()),
                     ("coefficients", m.coefficients.is_some()),
+                    ("onnx", m.onnx.is_some()),
+                    ("sha256", m.sha256.is_some()),
                 ],
                 "tree_ensemble",
             )?;
@@ -106,10 +112,28 @@ fn model_spec(m: ModelBody) -> Result<ModelSpec, ArtifactError> {
                 trees: m.trees.ok_or_else(|| need("trees"))?,
             }))
         }
+        "onnx_graph" => {
+            stray(
+                &[
+                    ("intercept", m.intercept.is_some()),
+                    ("coefficients", m.coefficients.is_some()),
+                    ("aggregation", m.aggregation.is_some()),
+                    ("base_score", m.base_score.is_some()),
+                    ("trees", m.trees.is_some()),
+                ],
+                "onnx_graph",
+            )?;
+            Ok(ModelSpec::OnnxGraph(OnnxGraphSpec {
+                onnx: m.onnx.ok_or_else(|| need("onnx"))?,
+                sha256: m.sha256.ok_or_else(|| need("sha256"))?,
+            }))
+        }
         other => Err(ArtifactError::new(
             "$.model.kind",
             "shape",
-            format!("unknown model kind \"{other}\"; expected logistic or tree_ensemble"),
+            format!(
+                "unknown model kind \"{other}\"; expected logistic, tree_ensemble or onnx_graph"
+            ),
         )),
     }
 }

@@ -129,6 +129,18 @@ pub struct ImputeSpec {
 pub enum ModelSpec {
     Logistic(LogisticSpec),
     TreeEnsemble(TreeEnsembleSpec),
+    OnnxGraph(OnnxGraphSpec),
+}
+
+/// A model kept as an ONNX graph (neural network, support-vector machine), embedded whole so
+/// the artifact stays the one file a service loads; evaluated by `model::graph`.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct OnnxGraphSpec {
+    /// The ONNX file's bytes, base64 (RFC 4648, standard alphabet, padded).
+    pub onnx: String,
+    /// SHA-256 of those bytes, lower-case hex; checked when the artifact loads.
+    pub sha256: String,
 }
 
 /// log-odds of default = intercept + sum(coefficient * encoded column).
@@ -224,6 +236,12 @@ pub struct ExplanationSpec {
     /// use their mean instead of `mean`).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub background: Vec<serde_json::Map<String, serde_json::Value>>,
+    /// Permutations per background row (`shapley_sampled` only; even: each with its reverse).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub samples: Option<usize>,
+    /// Seed of those permutations (`shapley_sampled` only).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub seed: Option<u64>,
     /// The other population of comment 9(b)(2)-5, carried so that reviewers can compare the
     /// reasons each gives; decisions use the primary one above.
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -239,6 +257,12 @@ pub enum ExplainMethod {
     TreePathDependent,
     /// TreeSHAP against the background sample (Lundberg et al. 2020).
     TreeInterventional,
+    /// Any model: exact interventional Shapley values over fields against the background, by
+    /// enumerating every coalition.
+    ShapleyInterventional,
+    /// Any model: the same values estimated from `samples` seeded permutations per background
+    /// row, with standard errors.
+    ShapleySampled,
 }
 
 #[derive(Debug, Clone, Serialize, Deserialize)]

@@ -5,12 +5,39 @@ use super::{EXIT_BAD_INPUT, EXIT_FAILURE};
 use crate::import::{import, Covers, ImportOptions};
 use std::path::Path;
 
-pub fn run(model: &Path, spec: &Path, reference: &Path, out: &Path, covers: Covers) -> i32 {
+/// Where the import reads from and writes to, and how.
+pub struct Args<'a> {
+    pub model: &'a Path,
+    pub spec: &'a Path,
+    pub reference: &'a Path,
+    pub out: &'a Path,
+    pub covers: Covers,
+    pub background: Option<&'a Path>,
+    pub approximate: bool,
+}
+
+pub fn run(args: Args) -> i32 {
+    let Args {
+        model,
+        spec,
+        reference,
+        out,
+        covers,
+        background,
+        approximate,
+    } = args;
     let read = |p: &Path| std::fs::read(p).map_err(|e| format!("cannot read {}: {e}", p.display()));
     let text = |p: &Path| {
         read(p).and_then(|b| {
             String::from_utf8(b).map_err(|_| format!("{} is not UTF-8 text", p.display()))
         })
+    };
+    let background = match background.map(text).transpose() {
+        Ok(b) => b,
+        Err(e) => {
+            eprintln!("error: {e}");
+            return EXIT_BAD_INPUT;
+        }
     };
     let (onnx, spec_text, csv) = match (read(model), text(spec), text(reference)) {
         (Ok(a), Ok(b), Ok(c)) => (a, b, c),
@@ -19,7 +46,12 @@ pub fn run(model: &Path, spec: &Path, reference: &Path, out: &Path, covers: Cove
             return EXIT_BAD_INPUT;
         }
     };
-    match import(&onnx, &spec_text, &csv, &ImportOptions { covers }) {
+    let options = ImportOptions {
+        covers,
+        background,
+        approximate,
+    };
+    match import(&onnx, &spec_text, &csv, &options) {
         Ok((artifact, report)) => {
             if let Err(e) = std::fs::write(out, artifact) {
                 eprintln!("error: cannot write {}: {e}", out.display());
@@ -27,7 +59,7 @@ pub fn run(model: &Path, spec: &Path, reference: &Path, out: &Path, covers: Cove
             }
             let s = &report.source;
             eprintln!(
-                "read {:?} from {} (written by {} {}, graph \"{}\", sha256 {})",
+                "read {} from {} (written by {} {}, graph \"{}\", sha256 {})",
                 report.operator,
                 model.display(),
                 s.producer_name,

@@ -61,6 +61,30 @@ fn model_lines(model: &LoadedModel) -> Vec<String> {
             }
             v
         }
+        Scorer::Graph(g) => {
+            let s = &g.summary;
+            let ops: Vec<String> = (s.operators.iter())
+                .map(|(op, n)| {
+                    if *n == 1 {
+                        op.clone()
+                    } else {
+                        format!("{op} x{n}")
+                    }
+                })
+                .collect();
+            let mut v = vec![
+                format!(
+                    "ONNX graph, evaluated (probability from output \"{}\")",
+                    s.output
+                ),
+                format!("  operators: {}", ops.join(", ")),
+                format!("  parameters: {}", s.parameters),
+            ];
+            if let Some(n) = s.support_vectors {
+                v.push(format!("  support vectors: {n}"));
+            }
+            v
+        }
         Scorer::Trees(e) => {
             let leaves: usize = e.trees.iter().map(|t| t.leaves()).sum();
             let mean_depth =
@@ -90,6 +114,22 @@ fn explain_line(model: &LoadedModel) -> String {
         }
         Explainer::Interventional(i) => format!(", background of {} rows", i.background_rows()),
         Explainer::Linear(_) => String::new(),
+        Explainer::Shapley(e) => {
+            let how = match e.mode() {
+                crate::explain::shapley::Mode::Exact => {
+                    format!("all {} coalitions", 1u64 << e.fields())
+                }
+                crate::explain::shapley::Mode::Sampled { permutations, seed } => {
+                    format!("{permutations} permutations per row (seed {seed}), estimated with standard errors")
+                }
+            };
+            format!(
+                ", {} fields, background of {} rows, {how}: {} model evaluations per decision",
+                e.fields(),
+                e.background_rows(),
+                e.evaluations()
+            )
+        }
     };
     format!(
         "{} against {} \"{}\", base value {} ({space}){extra}",

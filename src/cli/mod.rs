@@ -98,9 +98,10 @@ pub enum Command {
         #[arg(long, default_value_t = 2026)]
         seed: u64,
     },
-    /// Bring in a model built elsewhere: an ONNX-ML file (scikit-learn, LightGBM or XGBoost, as
-    /// skl2onnx or onnxmltools write it) read against a training spec and a reference CSV; writes
-    /// the artifact only if it validates. An imported model needs its own model-risk review.
+    /// Bring in a model built elsewhere: an ONNX file (trees and logistic models from
+    /// scikit-learn, LightGBM or XGBoost read into our structures; neural networks and SVMs kept
+    /// as graphs) read against a training spec and a reference CSV; writes the artifact only if
+    /// it validates. An imported model needs its own model-risk review.
     Import {
         /// ONNX model file.
         model: PathBuf,
@@ -118,6 +119,15 @@ pub enum Command {
         /// How reference rows weigh in tree node covers.
         #[arg(long, value_enum, default_value_t = crate::import::Covers::Rows)]
         covers: crate::import::Covers,
+        /// Graph models: CSV of explanation background rows (the spec's fields; the target
+        /// column may be absent). Default: a seeded sample of the reference rows, stratified by
+        /// outcome, at most 256.
+        #[arg(long)]
+        background: Option<PathBuf>,
+        /// Graph models: when exact Shapley enumeration is over the per-decision budget,
+        /// estimate contributions from seeded permutations (each decision reports standard errors).
+        #[arg(long)]
+        approximate: bool,
     },
     /// Measure a model on labelled data: AUC, KS, Gini, Brier, log loss, calibration by decile,
     /// outcomes and expected cost at the model's cutoffs and at the cost-optimal cutoff.
@@ -208,7 +218,17 @@ pub fn run(cli: Cli) -> i32 {
             reference,
             out,
             covers,
-        } => import::run(&model, &spec, &reference, &out, covers),
+            background,
+            approximate,
+        } => import::run(import::Args {
+            model: &model,
+            spec: &spec,
+            reference: &reference,
+            out: &out,
+            covers,
+            background: background.as_deref(),
+            approximate,
+        }),
         Command::DraftSpec { data, target, kind } => train::draft_spec(&data, &target, &kind),
         Command::DemoData {
             rows,

@@ -58,6 +58,19 @@ pub struct ContributionReport {
     pub model_output: f64,
     /// One entry per scored field in schema order; category dummies are summed into their field.
     pub fields: Vec<FieldContribution>,
+    /// Present when the contributions are estimated (sampled), not exact: how, from how much.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub estimate: Option<Estimate>,
+}
+
+/// How estimated contributions were sampled; each field then carries its standard error.
+#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
+pub struct Estimate {
+    /// Always "seeded permutations with their reverses, every background row".
+    pub sampling: &'static str,
+    pub permutations: usize,
+    pub background_rows: usize,
+    pub seed: u64,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
@@ -72,6 +85,9 @@ pub struct FieldContribution {
     /// The value as given (null when missing).
     pub value: Value,
     pub contribution: f64,
+    /// Standard error of an estimated contribution (absent when exact).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub standard_error: Option<f64>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
@@ -132,7 +148,8 @@ pub fn decide(
     let (probability, log_odds) = model.scorer.probability_and_log_odds(raw);
 
     let mut by_column = vec![0.0; x.len()];
-    model.explainer.explain_into(x, &mut by_column);
+    let mut errors = Vec::new();
+    (model.explainer).explain_with_errors(x, &mut by_column, &mut errors);
     let base = model.explainer.base_value();
     debug_assert!(
         explain::is_additive(base, &by_column, raw),
@@ -152,6 +169,7 @@ pub fn decide(
             field: f.name.clone(),
             value: given_value(applicant, &f.name),
             contribution: c,
+            standard_error: (!errors.is_empty()).then(|| errors[f.columns.clone()].iter().sum()),
         });
     }
 
@@ -205,6 +223,7 @@ pub fn decide(
             base_value: base,
             model_output: raw,
             fields,
+            estimate: estimate(&model.explainer),
         },
         missing: encoded
             .missing
@@ -215,6 +234,21 @@ pub fn decide(
             })
             .collect(),
     })
+}
+
+fn estimate(explainer: &explain::Explainer) -> Option<Estimate> {
+    let explain::Explainer::Shapley(e) = explainer else {
+        return None;
+    };
+    match e.mode() {
+        explain::shapley::Mode::Exact => None,
+        explain::shapley::Mode::Sampled { permutations, seed } => Some(Estimate {
+            sampling: "seeded permutations with their reverses, every background row",
+            permutations: *permutations,
+            background_rows: e.background_rows(),
+            seed: *seed,
+        }),
+    }
 }
 
 fn given_value(applicant: &Value, name: &str) -> Value {

@@ -7,12 +7,14 @@
 mod linear;
 mod paths;
 mod quadrature;
+pub mod shapley;
 mod tree_interventional;
 mod tree_path;
 mod weights;
 
 pub use linear::LinearExplainer;
 pub use paths::TreePaths;
+pub use shapley::ShapleyExplainer;
 pub use tree_interventional::InterventionalExplainer;
 pub use tree_path::PathExplainer;
 
@@ -25,6 +27,10 @@ pub enum Method {
     Linear,
     TreePathDependent,
     TreeInterventional,
+    /// Exact interventional Shapley values of any model, by enumerating every coalition.
+    ShapleyInterventional,
+    /// Interventional Shapley values estimated from seeded permutations, with standard errors.
+    ShapleySampled,
 }
 
 /// A compiled explainer, ready for one row at a time.
@@ -33,6 +39,7 @@ pub enum Explainer {
     Linear(LinearExplainer),
     PathDependent(PathExplainer),
     Interventional(InterventionalExplainer),
+    Shapley(ShapleyExplainer),
 }
 
 impl Explainer {
@@ -41,6 +48,10 @@ impl Explainer {
             Explainer::Linear(_) => Method::Linear,
             Explainer::PathDependent(_) => Method::TreePathDependent,
             Explainer::Interventional(_) => Method::TreeInterventional,
+            Explainer::Shapley(e) => match e.mode() {
+                shapley::Mode::Exact => Method::ShapleyInterventional,
+                shapley::Mode::Sampled { .. } => Method::ShapleySampled,
+            },
         }
     }
 
@@ -50,16 +61,25 @@ impl Explainer {
             Explainer::Linear(e) => e.base_value(),
             Explainer::PathDependent(e) => e.base_value(),
             Explainer::Interventional(e) => e.base_value(),
+            Explainer::Shapley(e) => e.base_value(),
         }
     }
 
     /// Writes one contribution per encoded column into `out` (overwritten, not added to).
     pub fn explain_into(&self, x: &[f64], out: &mut [f64]) {
+        self.explain_with_errors(x, out, &mut Vec::new());
+    }
+
+    /// As [`Self::explain_into`]; estimated contributions also write their standard errors into
+    /// `errors` (one per column, like `out`), which is left empty for exact ones.
+    pub fn explain_with_errors(&self, x: &[f64], out: &mut [f64], errors: &mut Vec<f64>) {
         out.fill(0.0);
+        errors.clear();
         match self {
             Explainer::Linear(e) => e.explain_into(x, out),
             Explainer::PathDependent(e) => e.explain_into(x, out),
             Explainer::Interventional(e) => e.explain_into(x, out),
+            Explainer::Shapley(e) => e.explain_into(x, out, errors),
         }
     }
 }

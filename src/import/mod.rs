@@ -11,6 +11,7 @@
 //! An imported model needs its own validation and model-risk review; import proves only that
 //! plumbline computes what onnxruntime computes, and explains it exactly.
 
+mod any;
 pub mod boundary;
 mod covers;
 mod graph;
@@ -116,50 +117,26 @@ fn fold(logistic: bool, steps: &[Step], output: &str) -> Result<Link, ImportErro
 
 /// Binary models only, labelled 0 and 1 (1 = defaulted), so column 1 is the default probability.
 fn check_labels(a: &crate::onnx::Attrs) -> Result<(), ImportError> {
-    let ints = a.ints("classlabels_int64s");
-    let ints = if ints.is_empty() {
-        a.ints("classlabels_ints")
-    } else {
-        ints
-    };
-    let strings = a.strings("classlabels_strings")?;
-    let (name, labels): (&str, Vec<String>) = if !strings.is_empty() {
-        ("classlabels_strings", strings)
-    } else if a.has("classlabels_ints") {
-        (
-            "classlabels_ints",
-            ints.iter().map(|i| i.to_string()).collect(),
-        )
-    } else {
-        (
-            "classlabels_int64s",
-            ints.iter().map(|i| i.to_string()).collect(),
-        )
-    };
-    match labels.len() {
-        2 if labels == ["0", "1"] => Ok(()),
-        2 => Err(a.err(
-            name,
-            format!("labels {labels:?}: plumbline reads models whose classes are 0 and 1 (1 = defaulted); relabel the outcome before training"),
-        ).into()),
-        n => Err(a.err(
-            name,
-            format!("{n} classes: plumbline reads binary default models only (multiclass is refused)"),
-        ).into()),
-    }
+    Ok(crate::onnx::check_binary_labels(a)?)
 }
 
-/// What the import ran with.
-#[derive(Debug, Clone, Copy, Default)]
+/// What the import runs with.
+#[derive(Debug, Clone, Default)]
 pub struct ImportOptions {
     pub covers: Covers,
+    /// Graph models: the explanation background as CSV text (the spec's fields; the target
+    /// column may be absent). Without it, a seeded stratified sample of the reference rows.
+    pub background: Option<String>,
+    /// Graph models: estimate contributions by sampling when exact enumeration is over budget.
+    pub approximate: bool,
 }
 
 /// What the import measured and noticed, for the person running it.
 #[derive(Debug, Clone)]
 pub struct ImportReport {
     pub source: Source,
-    pub operator: Head,
+    /// The model operator read, or the graph's operators.
+    pub operator: String,
     pub rows: usize,
     pub base_rate: f64,
     /// On the reference rows; `None` when they hold one class only.
@@ -171,6 +148,100 @@ pub struct ImportReport {
 
 /// Settings of a training spec that import does not use.
 const TRAINING_ONLY: &[&str] = &["kind", "l2", "forest"];
+
+/// What kind of model the file holds: one operator read into our structures, or a graph.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Kind {
+    Trees,
+    Linear,
+    Graph,
+}
+
+fn kind_of(graph: &crate::onnx::pb::GraphProto) -> Kind {
+    let has = |op: &str| (graph.node.iter()).any(|n| n.domain == "ai.onnx.ml" && n.op_type == op);
+    if has("TreeEnsembleClassifier") || has("TreeEnsembleRegressor") {
+        Kind::Trees
+    } else if has("LinearClassifier") {
+        Kind::Linear
+    } else {
+        Kind::Graph
+    }
+}
+
+/// The model body read from the file, with what provenance records of it.
+struct Body {
+    spec: ModelSpec,
+    notes: Vec<String>,
+    operator: String,
+    onnx: Value,
+    /// Graph models: the compiled graph (scored in batches) .
+    graph: Option<std::sync::Arc<crate::model::graph::GraphModel>>,
+}
+
+/// Trees or a logistic model, read into our structures.
+fn operators(
+    graph: &crate::onnx::pb::GraphProto,
+    names: &[String],
+    options: &ImportOptions,
+) -> Result<Body, ImportError> {
+    let shape = graph::read(graph)?;
+    if let Some(w) = shape.width.filter(|&w| w != names.len()) {
+        return Err(ImportError::model(
+            format!("input \"{}\"", shape.input_name),
+            format!(
+                "has {w} columns; the spec's features encode to {} ({}), in the order they are listed",
+                names.len(),
+                names.join(", ")
+            ),
+        ));
+    }
+    let (spec, notes) = if shape.kind != Head::LinearClassifier {
+        let link = fold(trees::head_link(&shape)?, &shape.steps, &shape.output_name)?;
+        let t = trees::read(&shape, names, link)?;
+        if options.covers == Covers::Hessian
+            && t.aggregation != crate::artifact::spec::Aggregation::SumLogOdds
+        {
+            return Err(ImportError::Spec(
+                "hessian covers need a boosted log-odds model; use row covers for forests".into(),
+            ));
+        }
+        let spec = ModelSpec::TreeEnsemble(TreeEnsembleSpec {
+            aggregation: t.aggregation,
+            base_score: t.base_score,
+            trees: t.trees,
+        });
+        (spec, t.notes)
+    } else {
+        if options.covers != Covers::Rows {
+            return Err(ImportError::Spec(
+                "covers apply to tree ensembles; a logistic model has none".into(),
+            ));
+        }
+        let form = linear::head_link(&shape)?;
+        let link = fold(form.logistic, &shape.steps, &shape.output_name)?;
+        let l = linear::read(&shape, names.len(), &form, link)?;
+        let coefficients = names.iter().cloned().zip(l.coefficients).collect();
+        let spec = ModelSpec::Logistic(crate::artifact::spec::LogisticSpec {
+            intercept: l.intercept,
+            coefficients,
+        });
+        (spec, l.notes)
+    };
+    Ok(Body {
+        spec,
+        notes,
+        operator: format!("{:?}", shape.kind),
+        onnx: json!({
+            "operator": shape.kind, "input": shape.input_name, "output": shape.output_name,
+            "input_precision": match shape.precision {
+                boundary::Precision::Float32 => "float32",
+                boundary::Precision::Float64 => "float64",
+            },
+            "scaler": shape.scaler.is_some(), "zipmap": shape.zipmap,
+        }),
+        graph: None,
+    })
+}
 
 /// Reads an ONNX model against a training spec and a reference CSV; returns the artifact text
 /// (written only by the caller, and only because it validated) and a report.
@@ -198,75 +269,82 @@ pub fn import(
     let Some(graph_proto) = model.graph.as_ref() else {
         return Err(ImportError::model("file", "holds no graph"));
     };
-    let shape = graph::read(graph_proto)?;
-    let is_trees = shape.kind != Head::LinearClassifier;
-    let schema = crate::artifact::schema_from_specs(&spec.features, &spec.reasons, is_trees)
-        .map_err(|e| ImportError::Spec(e.to_string()))?;
+    let kind = kind_of(graph_proto);
+    let schema =
+        crate::artifact::schema_from_specs(&spec.features, &spec.reasons, kind == Kind::Trees)
+            .map_err(|e| ImportError::Spec(e.to_string()))?;
     let names: Vec<String> = schema.columns.iter().map(|c| c.name.clone()).collect();
-    if let Some(w) = shape.width.filter(|&w| w != names.len()) {
-        return Err(ImportError::model(
-            format!("input \"{}\"", shape.input_name),
-            format!(
-                "has {w} columns; the spec's features encode to {} ({}), in the order they are listed",
-                names.len(),
-                names.join(", ")
-            ),
-        ));
-    }
-    if !is_trees && options.covers != Covers::Rows {
+    if kind != Kind::Graph && (options.background.is_some() || options.approximate) {
         return Err(ImportError::Spec(
-            "covers apply to tree ensembles; a logistic model has none".into(),
+            "--background and --approximate are for graph models (neural networks, SVMs); trees and logistic models are explained exactly by their own methods".into(),
         ));
     }
-
-    let (mut model_spec, body_notes) = if is_trees {
-        let link = fold(trees::head_link(&shape)?, &shape.steps, &shape.output_name)?;
-        let t = trees::read(&shape, &names, link)?;
-        if options.covers == Covers::Hessian
-            && t.aggregation != crate::artifact::spec::Aggregation::SumLogOdds
-        {
-            return Err(ImportError::Spec(
-                "hessian covers need a boosted log-odds model; use row covers for forests".into(),
-            ));
+    let mut body = match kind {
+        Kind::Graph => {
+            if options.covers != Covers::Rows {
+                return Err(ImportError::Spec("covers apply to tree ensembles".into()));
+            }
+            let (spec, graph) = any::body(onnx_bytes, &model, &names)?;
+            let s = &graph.summary;
+            let ops: Vec<String> = s
+                .operators
+                .iter()
+                .map(|(o, n)| format!("{o} x{n}"))
+                .collect();
+            Body {
+                spec: ModelSpec::OnnxGraph(spec),
+                notes: vec![format!(
+                    "graph kept whole and evaluated: {}; {} parameters{}",
+                    ops.join(", "),
+                    s.parameters,
+                    s.support_vectors
+                        .map_or(String::new(), |n| format!(", {n} support vectors"))
+                )],
+                operator: format!("graph ({})", ops.join(", ")),
+                onnx: json!({
+                    "operators": s.operators, "parameters": s.parameters,
+                    "support_vectors": s.support_vectors, "output": s.output,
+                    "input_precision": "float32",
+                }),
+                graph: Some(std::sync::Arc::new(graph)),
+            }
         }
-        let spec = ModelSpec::TreeEnsemble(TreeEnsembleSpec {
-            aggregation: t.aggregation,
-            base_score: t.base_score,
-            trees: t.trees,
-        });
-        (spec, t.notes)
-    } else {
-        let form = linear::head_link(&shape)?;
-        let link = fold(form.logistic, &shape.steps, &shape.output_name)?;
-        let l = linear::read(&shape, names.len(), &form, link)?;
-        let coefficients = names.iter().cloned().zip(l.coefficients).collect();
-        let spec = ModelSpec::Logistic(crate::artifact::spec::LogisticSpec {
-            intercept: l.intercept,
-            coefficients,
-        });
-        (spec, l.notes)
+        _ => operators(graph_proto, &names, options)?,
     };
-    let mut model_notes = body_notes;
     let invalid = |e: crate::ArtifactError| ImportError::Artifact(e.to_string());
-    let scorer = crate::artifact::scorer_from_spec(&model_spec, &schema).map_err(invalid)?;
+    let scorer = crate::artifact::scorer_from_spec(&body.spec, &schema).map_err(invalid)?;
 
     let data = dataset::read_csv(csv, &schema, &spec.target)
         .map_err(|e| ImportError::Data(e.to_string()))?;
     let (x, y) = (&data.columns, &data.defaulted);
-    if let (crate::model::Scorer::Trees(ensemble), ModelSpec::TreeEnsemble(body)) =
-        (&scorer, &mut model_spec)
+    if let (crate::model::Scorer::Trees(ensemble), ModelSpec::TreeEnsemble(tree_body)) =
+        (&scorer, &mut body.spec)
     {
         let covers = covers::count(ensemble, x, options.covers);
-        for (tree, cover) in body.trees.iter_mut().zip(covers) {
+        for (tree, cover) in tree_body.trees.iter_mut().zip(covers) {
             for (node, c) in tree.nodes.iter_mut().zip(cover) {
                 node.cover = Some(c);
             }
         }
-        model_notes.push(options.covers.words().to_string());
+        body.notes.push(options.covers.words().to_string());
     }
-    notes.extend(model_notes.iter().cloned());
-    let probability = |r: &[f64]| scorer.probability_and_log_odds(scorer.raw(r)).0;
-    let p: Vec<f64> = x.iter().map(|r| probability(r)).collect();
+    let score = |rows: &[&[f64]]| -> Vec<f64> {
+        match &body.graph {
+            Some(g) => {
+                let flat: Vec<f32> = rows
+                    .iter()
+                    .flat_map(|r| r.iter().map(|&v| v as f32))
+                    .collect();
+                g.probabilities(&flat, rows.len())
+                    .unwrap_or_else(|_| vec![f64::NAN; rows.len()])
+            }
+            None => (rows.iter())
+                .map(|r| scorer.probability_and_log_odds(scorer.raw(r)).0)
+                .collect(),
+        }
+    };
+    let all: Vec<&[f64]> = x.iter().map(Vec::as_slice).collect();
+    let p = score(&all);
     if let Some(i) = p.iter().position(|v| !v.is_finite()) {
         return Err(ImportError::Data(format!(
             "row {}: the model's output is not a finite number",
@@ -274,25 +352,64 @@ pub fn import(
         )));
     }
 
+    // Graph models: the background sample and how contributions are computed.
+    let fields = schema.fields.iter().filter(|f| f.scored).count();
+    let explicit = match &options.background {
+        Some(text) => Some(
+            dataset::read_rows(text, &schema, None)
+                .map_err(|e| ImportError::Data(format!("background: {e}")))?,
+        ),
+        None => None,
+    };
+    let (mode, sample) = if kind == Kind::Graph {
+        let (mode, sample) = any::plan(
+            fields,
+            explicit.as_ref().map(|d| d.applicants.len()),
+            options.approximate,
+        )?;
+        body.notes.push(match &explicit {
+            Some(d) => format!("explanation background: the {} rows of --background", d.applicants.len()),
+            None => format!("explanation background: a seeded sample of at most {sample} reference rows per population, stratified by outcome (seed {})", any::SEED),
+        });
+        body.notes.push(match &mode {
+            crate::explain::shapley::Mode::Exact => format!("exact interventional Shapley values: all {} coalitions of {fields} fields per background row", 1u64 << fields),
+            crate::explain::shapley::Mode::Sampled { permutations, .. } => format!("estimated interventional Shapley values: {permutations} seeded permutations per background row, standard errors reported"),
+        });
+        (Some(mode), sample)
+    } else {
+        (None, 0)
+    };
+    let mut primary_done = false;
     let (explanation, reference_notes) = reference::explanation(
         &spec.reference,
         &p,
         spec.policy.approve_below,
-        |population, label, rows| {
-            if is_trees {
-                reference::tree_section(population, label, rows, &data.applicants)
-            } else {
-                reference::linear_section(population, label, rows, x, &names)
+        |population, label, rows| match (kind, &mode) {
+            (Kind::Trees, _) => reference::tree_section(population, label, rows, &data.applicants),
+            (Kind::Linear, _) => reference::linear_section(population, label, rows, x, &names),
+            (_, mode) => {
+                let mode = mode.as_ref().expect("graph models have a plan");
+                // The explicit background is the primary population's; others are sampled.
+                let background = match (&explicit, primary_done) {
+                    (Some(d), false) => d.applicants.clone(),
+                    _ => any::stratified(rows, y, sample, any::SEED)
+                        .into_iter()
+                        .map(|i| data.applicants[i].clone())
+                        .collect(),
+                };
+                primary_done = true;
+                any::section(population, label, background, mode)
             }
         },
     )?;
+    notes.extend(body.notes.iter().cloned());
     notes.extend(reference_notes);
-    if is_trees {
+    if kind != Kind::Linear {
         notes.extend(crate::train::monotone::forest_notes(
             &spec.features,
             &names,
             x,
-            |rows| rows.iter().map(|r| probability(r)).collect(),
+            score,
         ));
     }
 
@@ -306,20 +423,19 @@ pub fn import(
         .map(|(p, &d)| (p - f64::from(u8::from(d))).powi(2))
         .sum::<f64>()
         / y.len() as f64;
+    let mut onnx = json!({
+        "sha256": source.sha256, "producer_name": source.producer_name,
+        "producer_version": source.producer_version, "ir_version": source.ir_version,
+        "opsets": source.opsets, "graph_name": source.graph_name,
+    });
+    if let (Some(o), Some(extra)) = (onnx.as_object_mut(), body.onnx.as_object()) {
+        o.extend(extra.clone());
+    }
     let provenance = json!({
-        "method": format!("imported from ONNX ({:?}); {}", shape.kind, model_notes.join("; ")),
-        "onnx": {
-            "sha256": source.sha256, "producer_name": source.producer_name,
-            "producer_version": source.producer_version, "ir_version": source.ir_version,
-            "opsets": source.opsets, "graph_name": source.graph_name,
-            "operator": shape.kind, "input": shape.input_name, "output": shape.output_name,
-            "input_precision": match shape.precision {
-                boundary::Precision::Float32 => "float32",
-                boundary::Precision::Float64 => "float64",
-            },
-            "scaler": shape.scaler.is_some(), "zipmap": shape.zipmap,
-        },
-        "covers": if is_trees { json!(options.covers) } else { Value::Null },
+        "method": format!("imported from ONNX ({}); {}", body.operator, body.notes.join("; ")),
+        "onnx": onnx,
+        "covers": if kind == Kind::Trees { json!(options.covers) } else { Value::Null },
+        "background_sha256": explicit.as_ref().map(|d| d.sha256.clone()),
         "rows": y.len(), "base_rate": base_rate, "data_sha256": data.sha256,
         "reference_auc": auc, "reference_ks": ks, "reference_brier": brier,
         "ignored_spec_settings": ignored,
@@ -331,7 +447,7 @@ pub fn import(
         source.producer_version
     );
     let model_json =
-        serde_json::to_value(&model_spec).map_err(|e| ImportError::Artifact(e.to_string()))?;
+        serde_json::to_value(&body.spec).map_err(|e| ImportError::Artifact(e.to_string()))?;
     let text = crate::train::build::assemble(
         &spec,
         &data,
@@ -345,7 +461,7 @@ pub fn import(
         text,
         ImportReport {
             source,
-            operator: shape.kind,
+            operator: body.operator,
             rows: y.len(),
             base_rate,
             auc,

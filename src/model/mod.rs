@@ -2,6 +2,7 @@
 //! Evaluation only; fitting lives elsewhere.
 
 pub mod forest;
+pub mod graph;
 pub mod logistic;
 
 pub use forest::{Ensemble, Node, Tree};
@@ -23,6 +24,8 @@ pub enum Space {
 pub enum Scorer {
     Logistic(Logistic),
     Trees(Ensemble),
+    /// An ONNX graph (neural network, support-vector machine), evaluated: probability space.
+    Graph(std::sync::Arc<graph::GraphModel>),
 }
 
 impl Scorer {
@@ -31,6 +34,7 @@ impl Scorer {
         match self {
             Scorer::Logistic(m) => m.log_odds(x),
             Scorer::Trees(m) => m.raw(x),
+            Scorer::Graph(g) => g.probability(x),
         }
     }
 
@@ -38,6 +42,7 @@ impl Scorer {
         match self {
             Scorer::Logistic(_) => Space::LogOdds,
             Scorer::Trees(m) => m.space(),
+            Scorer::Graph(_) => Space::Probability,
         }
     }
 

@@ -31,6 +31,12 @@ fn problem(msg: String) -> DataError {
 /// Reads `text` (comma-separated, header first, no quoted commas), encodes each row, and stops
 /// after 20 problems.
 pub fn read_csv(text: &str, schema: &Schema, target: &str) -> Result<Dataset, DataError> {
+    read_rows(text, schema, Some(target))
+}
+
+/// As [`read_csv`]; without a target the outcome column may be absent (explanation background
+/// rows need no outcome) and `defaulted` stays empty.
+pub fn read_rows(text: &str, schema: &Schema, target: Option<&str>) -> Result<Dataset, DataError> {
     let mut lines = text.lines();
     let header: Vec<&str> = lines
         .next()
@@ -39,8 +45,12 @@ pub fn read_csv(text: &str, schema: &Schema, target: &str) -> Result<Dataset, Da
         .map(str::trim)
         .collect();
     let col = |name: &str| header.iter().position(|h| *h == name);
-    let target_at =
-        col(target).ok_or_else(|| problem(format!("header: no target column \"{target}\"")))?;
+    let target_at = match target {
+        Some(t) => {
+            Some(col(t).ok_or_else(|| problem(format!("header: no target column \"{t}\"")))?)
+        }
+        None => None,
+    };
     let mut at = Vec::new();
     let mut missing_columns = Vec::new();
     for f in &schema.fields {
@@ -130,12 +140,14 @@ pub fn read_csv(text: &str, schema: &Schema, target: &str) -> Result<Dataset, Da
                 }
             }
         }
-        match cells[target_at] {
-            "1" => defaulted.push(true),
-            "0" => defaulted.push(false),
-            other => problems.push(format!(
-                "row {row}, column {target}: \"{other}\" is not 0 or 1"
-            )),
+        if let (Some(at), Some(target)) = (target_at, target) {
+            match cells[at] {
+                "1" => defaulted.push(true),
+                "0" => defaulted.push(false),
+                other => problems.push(format!(
+                    "row {row}, column {target}: \"{other}\" is not 0 or 1"
+                )),
+            }
         }
         if problems.len() >= 20 {
             break;

@@ -62,7 +62,7 @@ pub fn forest_notes(
             .max_by(|a, b| a.0.total_cmp(&b.0));
         if let Some((against, k)) = worst.filter(|w| w.0 > 1e-12) {
             notes.push(format!(
-                "{}: stated risk direction {}, but the tree model's average probability of default moves the other way by {against:.5} between {} and {} (partial dependence on {} rows); its trees are not constrained to the direction, so review before use",
+                "{}: stated risk direction {}, but the model's average probability of default moves the other way by {against:.5} between {} and {} (partial dependence on {} rows); the model is not constrained to the direction, so review before use",
                 f.name,
                 match direction {
                     Monotone::Increasing => "increasing",

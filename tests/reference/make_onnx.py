@@ -62,6 +62,8 @@ N_TEST = 40
 NAN_FEATURES = (1, 3)
 OPSET = {"": 17, "ai.onnx.ml": 3}
 EDGE_TREES = 3  # trees whose every split is probed at and beside its threshold
+N_BACKGROUND = 50  # explicit explanation background of the graph models
+N_GRAPH_ROWS = 20  # test rows explained by shap's Exact explainer
 
 
 def fail(msg):
@@ -453,6 +455,52 @@ def main(outdir):
          np.asarray(ex.shap_values(Xte))[:, :, 1], float(np.asarray(ex.expected_value).reshape(-1)[1]),
          f"shap {shap.__version__} TreeExplainer(RandomForestClassifier), path-dependent, class 1", "probability")
 
+    # Any model: neural networks and a support-vector machine, kept as graphs and explained by
+    # exact interventional Shapley values against an explicit background (shap's Exact explainer
+    # with an Independent masker over the same rows, onnxruntime as the model).
+    bg = Xtr[:N_BACKGROUND]
+    with open(os.path.join(out, "background.csv"), "w", encoding="utf-8", newline="\n") as f:
+        f.write(",".join(NAMES) + "\n")
+        for row in bg:
+            f.write(",".join(repr(float(v)) for v in row) + "\n")
+    Xg = Xte[:N_GRAPH_ROWS]
+
+    def graph_case(name, model, lib_prob):
+        s = session(model)
+        inp = s.get_inputs()[0].name
+
+        def f(X):
+            return ort_probability(model, np.asarray(X, dtype=np.float32))[0]
+
+        ex = shap.explainers.Exact(f, shap.maskers.Independent(bg, max_samples=bg.shape[0]))
+        e = ex(Xg)
+        d = np.max(np.abs(np.asarray(e.base_values) + e.values.sum(axis=1) - f(Xg)))
+        if not d <= 1e-6:
+            fail(f"{name}: shap Exact values do not add up ({d})")
+        case(name, model, Xg, lib_prob, e.values, float(np.asarray(e.base_values).reshape(-1)[0]),
+             f"shap {shap.__version__} Exact explainer, Independent masker over background.csv, onnxruntime {ort.__version__} as the model",
+             "probability")
+        cases[-1]["background"] = "background.csv"
+        del inp
+
+    from sklearn.neural_network import MLPClassifier
+    from sklearn.svm import SVC
+    mlp = make_pipeline(StandardScaler(), MLPClassifier(hidden_layer_sizes=(16, 8), max_iter=800, random_state=SEED)).fit(X32, ytr)
+    graph_case("mlp_relu", sk_onnx(mlp, X32), mlp.predict_proba(Xg)[:, 1])
+    mlpt = make_pipeline(StandardScaler(), MLPClassifier(hidden_layer_sizes=(8,), activation="tanh", max_iter=800, random_state=SEED)).fit(X32, ytr)
+    graph_case("mlp_tanh_zipmap", skl2onnx.to_onnx(mlpt, X32[:1], target_opset=OPSET), mlpt.predict_proba(Xg)[:, 1])
+    svc = make_pipeline(StandardScaler(), SVC(kernel="rbf", probability=True, random_state=SEED)).fit(X32[:600], ytr[:600])
+    graph_case("svm_rbf", sk_onnx(svc, X32), svc.predict_proba(Xg)[:, 1])
+
+    # A linear function as a graph, for the closed form beta * (x - mean of the background).
+    w = np.array([[0.02], [-0.015], [0.01], [-0.03], [0.025], [0.005]], dtype=np.float32)
+    lin = graph_model(
+        [helper.make_node("MatMul", ["X", "w"], ["xw"]), helper.make_node("Add", ["xw", "c"], ["probability"])],
+        outputs=[helper.make_tensor_value_info("probability", TensorProto.FLOAT, [None, 1])],
+        initializers=[onnx.numpy_helper.from_array(w, "w"), onnx.numpy_helper.from_array(np.array([0.3], dtype=np.float32), "c")],
+    )
+    linear_graph = {"model": save("linear_graph", lin), "weights": [float(v) for v in w.reshape(-1)], "intercept": 0.3}
+
     refused = []
     for name, model, words in refusals():
         refused.append({"name": name, "model": save(f"refuse_{name}", model), "spec": "spec.json", "reference": "complete.csv", "expect": words})
@@ -465,7 +513,7 @@ def main(outdir):
                     "reference": "complete.csv", "expect": ["has 6 columns", "encode to 5"]})
 
     cv.write_json(os.path.join(out, "expected.json"), {
-        "libraries": versions, "cases": cases, "edges": edges, "refusals": refused,
+        "libraries": versions, "cases": cases, "edges": edges, "refusals": refused, "linear_graph": linear_graph,
         "notes": "Probabilities are onnxruntime's (float32 arithmetic); contributions are the named library's.",
     })
     for line in log:

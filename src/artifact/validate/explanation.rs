@@ -87,6 +87,20 @@ fn compile_one(
                 })
         })
         .collect::<Result<Vec<_>>>()?;
+    if spec.method != ExplainMethod::ShapleySampled {
+        for (key, present) in [
+            ("samples", spec.samples.is_some()),
+            ("seed", spec.seed.is_some()),
+        ] {
+            if present {
+                return fail(
+                    format!("{at}.{key}"),
+                    "method",
+                    "only shapley_sampled takes samples and a seed",
+                );
+            }
+        }
+    }
     if spec.mean.is_some() && !matches!(scorer, Scorer::Logistic(_)) {
         return fail(format!("{at}.mean"), "method", "a reference mean is used only by linear explanations; tree explanations use covers or the background");
     }
@@ -147,6 +161,19 @@ fn compile_one(
                 &background,
             )))
         }
+        (Scorer::Graph(g), ExplainMethod::ShapleyInterventional | ExplainMethod::ShapleySampled) => {
+            shapley(spec, at, schema, g, &background)
+        }
+        (Scorer::Graph(_), _) => fail(
+            format!("{at}.method"),
+            "method",
+            "a graph model is explained by shapley_interventional or shapley_sampled",
+        ),
+        (_, ExplainMethod::ShapleyInterventional | ExplainMethod::ShapleySampled) => fail(
+            format!("{at}.method"),
+            "method",
+            "Shapley enumeration is for graph models; logistic and tree models have exact methods of their own",
+        ),
         (Scorer::Logistic(_), _) => fail(
             format!("{at}.method"),
             "method",
@@ -159,6 +186,73 @@ fn compile_one(
         ),
     };
     explainer.map(|e| (e, background))
+}
+
+/// Exact or sampled Shapley values of a graph model, within the per-decision budget.
+fn shapley(
+    spec: &ExplanationSpec,
+    at: &str,
+    schema: &Schema,
+    model: &std::sync::Arc<crate::model::graph::GraphModel>,
+    background: &[Vec<f64>],
+) -> Result<Explainer> {
+    use crate::explain::shapley::{self, Mode, MAX_EVALUATIONS, MAX_EXACT_FIELDS};
+    if background.is_empty() {
+        return fail(
+            format!("{at}.background"),
+            "required",
+            "Shapley explanations need a background sample",
+        );
+    }
+    let groups: Vec<_> = (schema.fields.iter())
+        .filter(|f| f.scored)
+        .map(|f| f.columns.clone())
+        .collect();
+    let mode = match spec.method {
+        ExplainMethod::ShapleyInterventional => {
+            if groups.len() > MAX_EXACT_FIELDS {
+                return fail(
+                    format!("{at}.method"),
+                    "budget",
+                    format!("exact enumeration serves at most {MAX_EXACT_FIELDS} fields; this model scores {}; use shapley_sampled", groups.len()),
+                );
+            }
+            Mode::Exact
+        }
+        _ => {
+            let Some(permutations) = spec.samples.filter(|&k| k >= 2) else {
+                return fail(
+                    format!("{at}.samples"),
+                    "required",
+                    "shapley_sampled needs samples: permutations per background row, at least 2",
+                );
+            };
+            let Some(seed) = spec.seed else {
+                return fail(
+                    format!("{at}.seed"),
+                    "required",
+                    "shapley_sampled needs a seed, so every decision is reproducible",
+                );
+            };
+            Mode::Sampled { permutations, seed }
+        }
+    };
+    let cost = shapley::evaluations(groups.len(), background.len(), &mode);
+    if cost > MAX_EVALUATIONS {
+        return fail(
+            format!("{at}.background"),
+            "budget",
+            format!(
+                "{cost} model evaluations per decision ({} fields, {} background rows); at most {MAX_EVALUATIONS}: use fewer rows{}",
+                groups.len(),
+                background.len(),
+                if mode == Mode::Exact { ", or shapley_sampled" } else { " or samples" }
+            ),
+        );
+    }
+    let explainer = crate::explain::ShapleyExplainer::new(model.clone(), background, groups, mode)
+        .map_err(|e| ArtifactError::new(format!("{at}.background"), "onnx", e))?;
+    Ok(Explainer::Shapley(explainer))
 }
 
 /// A declined applicant must have at least one adverse contribution, which holds when the

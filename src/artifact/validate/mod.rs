@@ -424,6 +424,7 @@ fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Re
                 coefficients: coef,
             }))
         }
+        ModelSpec::OnnxGraph(g) => compile_graph(g, schema),
         ModelSpec::TreeEnsemble(TreeEnsembleSpec {
             aggregation,
             base_score,
@@ -466,6 +467,38 @@ fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Re
             }))
         }
     }
+}
+
+/// The embedded ONNX file: decoded, digest-checked, compiled, its input as wide as the schema.
+fn compile_graph(g: &OnnxGraphSpec, schema: &Schema) -> Result<Scorer> {
+    use base64::Engine;
+    let bytes = base64::engine::general_purpose::STANDARD
+        .decode(g.onnx.trim())
+        .map_err(|e| ArtifactError::new("$.model.onnx", "base64", e.to_string()))?;
+    let digest = super::sha256_hex(&bytes);
+    if digest != g.sha256 {
+        return fail(
+            "$.model.sha256",
+            "digest",
+            format!("the embedded ONNX file's SHA-256 is {digest}"),
+        );
+    }
+    let (proto, _) = crate::onnx::decode(&bytes)
+        .map_err(|e| ArtifactError::new("$.model.onnx", "onnx", e.to_string()))?;
+    let model = crate::model::graph::compile(&proto)
+        .map_err(|e| ArtifactError::new("$.model.onnx", "onnx", e.to_string()))?;
+    if model.width != schema.columns.len() {
+        return fail(
+            "$.model.onnx",
+            "columns",
+            format!(
+                "the graph's input has {} columns; the features encode to {}",
+                model.width,
+                schema.columns.len()
+            ),
+        );
+    }
+    Ok(Scorer::Graph(std::sync::Arc::new(model)))
 }
 
 fn compile_tree(
