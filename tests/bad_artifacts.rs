@@ -3,8 +3,9 @@
 //!
 //! Layout of `tests/bad-artifacts/`:
 //!
-//! - `base-trees.json`: a small *valid* tree-ensemble artifact (the logistic base is the demo
-//!   model `models/fernhill-logistic.json`). Both bases must load.
+//! - `base-trees.json`: a small *valid* tree-ensemble artifact, and `base-graph.json` a valid
+//!   graph model (a small neural network imported from tests/reference/fixtures/onnx; the logistic
+//!   base is the demo model `models/fernhill-logistic.json`). Every base must load.
 //! - `<case>.json`: one broken artifact, written as a patch of a base:
 //!   ```json
 //!   {"description": "why this is wrong, one sentence",
@@ -35,6 +36,7 @@ const MIN_CASES: usize = 40;
 
 const LOGISTIC_BASE: &str = "models/fernhill-logistic.json";
 const TREES_BASE: &str = "tests/bad-artifacts/base-trees.json";
+const GRAPH_BASE: &str = "tests/bad-artifacts/base-graph.json";
 
 /// What a case expects the loader to report.
 #[derive(Debug, Deserialize, PartialEq, Eq)]
@@ -228,7 +230,7 @@ fn files_in(dir: &Path) -> Vec<String> {
 fn patch_cases() -> Vec<String> {
     files_in(&corpus())
         .into_iter()
-        .filter(|f| f.ends_with(".json") && f != "base-trees.json")
+        .filter(|f| f.ends_with(".json") && f != "base-trees.json" && f != "base-graph.json")
         .map(|f| f.trim_end_matches(".json").to_string())
         .collect()
 }
@@ -239,8 +241,8 @@ fn raw_expectations() -> BTreeMap<String, Expect> {
 }
 
 #[test]
-fn both_bases_load() {
-    for base in [LOGISTIC_BASE, TREES_BASE] {
+fn every_base_loads() {
+    for base in [LOGISTIC_BASE, TREES_BASE, GRAPH_BASE] {
         match load(&read(&root().join(base))) {
             Err(panic) => panic!("{base}: panicked: {panic}"),
             Ok(Err(e)) => panic!("{base} must load: {e}"),
@@ -306,7 +308,7 @@ fn corpus_is_large_enough_and_has_no_stray_files() {
         "the corpus has {total} cases, fewer than {MIN_CASES}"
     );
 
-    // Top level: the tree base, patch cases, and the raw folder; nothing else.
+    // Top level: the tree and graph bases, patch cases, and the raw folder; nothing else.
     let stray: Vec<String> = files_in(&corpus())
         .into_iter()
         .filter(|f| !f.ends_with(".json"))
