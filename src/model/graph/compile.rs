@@ -3,7 +3,7 @@
 //! into ai.onnx.ml stages run natively and runs of standard operators handed to tract. Nodes that
 //! feed only the label output are not read. Anything else is refused, naming the node.
 
-use super::{GraphModel, Norm, Segment, Stage, Summary, Svm, CHUNK};
+use super::{front, GraphModel, Norm, Segment, Stage, Summary, Svm, CHUNK};
 use crate::onnx::{node_label, pb, Attrs, OnnxError};
 use std::collections::{HashMap, HashSet};
 use std::sync::Arc;
@@ -154,6 +154,9 @@ pub fn compile(model: &pb::ModelProto) -> Result<GraphModel, OnnxError> {
     let mut current = input.name.as_str();
     let mut current_width = width;
     let mut run: Vec<&pb::NodeProto> = Vec::new();
+    // The first run handed to tract: (its nodes, from, to, input width, stage index).
+    type Run<'a> = (Vec<&'a pb::NodeProto>, &'a str, &'a str, usize, usize);
+    let mut first_run: Option<Run> = None;
     for n in &path {
         if is_default(n) {
             if !STANDARD.contains(&n.op_type.as_str()) {
@@ -170,6 +173,15 @@ pub fn compile(model: &pb::ModelProto) -> Result<GraphModel, OnnxError> {
         };
         if !run.is_empty() {
             let seg = segment(model, &run, current, first, current_width, &constants)?;
+            if first_run.is_none() {
+                first_run = Some((
+                    run.clone(),
+                    current,
+                    first.as_str(),
+                    current_width,
+                    stages.len(),
+                ));
+            }
             current_width = seg.out_width;
             stages.push(Stage::Tract(seg));
             run.clear();
@@ -227,6 +239,9 @@ pub fn compile(model: &pb::ModelProto) -> Result<GraphModel, OnnxError> {
     }
     if !run.is_empty() {
         let seg = segment(model, &run, current, tensor, current_width, &constants)?;
+        if first_run.is_none() {
+            first_run = Some((run.clone(), current, tensor, current_width, stages.len()));
+        }
         current_width = seg.out_width;
         stages.push(Stage::Tract(seg));
         current = tensor;
@@ -243,8 +258,12 @@ pub fn compile(model: &pb::ModelProto) -> Result<GraphModel, OnnxError> {
             format!("has {current_width} columns; a binary model writes one or two probabilities"),
         ));
     }
+    let front = first_run.and_then(|(nodes, from, to, w, at)| {
+        front::detect(model, &stages, at, &nodes, from, to, w, &constants)
+    });
     let model = GraphModel {
         width,
+        front,
         stages,
         out_width: current_width,
         positive: current_width - 1,
@@ -340,7 +359,7 @@ fn probability_output<'a>(
 }
 
 /// A run of standard operators from tensor `from` to tensor `to`, as its own small model.
-fn segment(
+pub(super) fn segment(
     model: &pb::ModelProto,
     run: &[&pb::NodeProto],
     from: &str,
@@ -419,12 +438,13 @@ fn segment(
             .into_runnable()
             .map_err(fail)
     };
-    let chunk = plan(CHUNK)?;
-    let probe = super::run_plan(&chunk, &vec![0.0; CHUNK * in_width], CHUNK, in_width)
+    let (one, chunk) = (plan(1)?, plan(CHUNK)?);
+    let probe = super::run_plan(&one, &vec![0.0; in_width], 1, in_width)
         .map_err(|e| OnnxError::new(at(), e))?;
     Ok(Segment {
+        one,
         chunk,
         in_width,
-        out_width: probe.len() / CHUNK,
+        out_width: probe.len(),
     })
 }

@@ -8,9 +8,11 @@
 //! as a float64 of the float32 the graph computes.
 
 mod compile;
+mod front;
 mod svm;
 
 pub use compile::compile;
+pub use front::Front;
 pub use svm::{Kernel, Svm};
 
 use std::sync::Arc;
@@ -33,6 +35,8 @@ pub struct GraphModel {
     out_width: usize,
     positive: usize,
     pub summary: Summary,
+    /// The first layer folded into an affine map, when the graph starts with one.
+    front: Option<Front>,
 }
 
 /// What `inspect` shows about a graph.
@@ -76,20 +80,29 @@ enum Norm {
     L2,
 }
 
-/// A tract plan for [`CHUNK`] rows. Every evaluation goes through it, one row padded to a
-/// chunk included, so that a row's probability never depends on how many rows it was run with
-/// (a one-row plan may sum in another order, and additivity is checked to 1e-9).
+/// Tract plans for one row (a decision's probability) and for [`CHUNK`] rows (explanations,
+/// import). The two may round differently in the last float32 bit; explanations take the model
+/// output and the background's from the one-row plan, so contributions add up to the decision's
+/// probability exactly (see `explain::shapley`).
 #[derive(Clone)]
 struct Segment {
+    one: Arc<TypedSimplePlan>,
     chunk: Arc<TypedSimplePlan>,
     in_width: usize,
     out_width: usize,
 }
 
 impl Segment {
-    /// `rows` rows of `in_width` values -> rows of `out_width` values.
+    /// Rows of `in_width` values -> rows of `out_width` values.
     fn run(&self, input: &[f32]) -> Result<Vec<f32>, String> {
         let rows = input.len() / self.in_width.max(1);
+        if rows == 1 {
+            let out = run_plan(&self.one, input, 1, self.in_width)?;
+            if out.len() != self.out_width {
+                return Err(format!("the graph wrote {} values for one row", out.len()));
+            }
+            return Ok(out);
+        }
         let mut out = Vec::with_capacity(rows * self.out_width);
         for block in input.chunks(CHUNK * self.in_width) {
             let n = block.len() / self.in_width;
@@ -204,6 +217,39 @@ impl GraphModel {
             .ok()
             .and_then(|p| p.first().copied())
             .unwrap_or(f64::NAN)
+    }
+
+    /// The folded first layer, when the graph starts with one (explanations walk coalitions
+    /// through it).
+    pub fn front(&self) -> Option<&Front> {
+        self.front.as_ref()
+    }
+
+    /// The class-1 probability of rows given as first-layer pre-activations (`hidden` values
+    /// each), through the stages after the first layer.
+    pub fn probabilities_after_front(
+        &self,
+        pre: Vec<f32>,
+        rows: usize,
+    ) -> Result<Vec<f64>, String> {
+        let front = self
+            .front
+            .as_ref()
+            .ok_or("the graph has no folded first layer")?;
+        let mut data = pre;
+        let mut width = front.hidden;
+        for stage in &front.rest {
+            let (next, w) = stage.apply(data, rows, width)?;
+            data = next;
+            width = w;
+        }
+        if width != self.out_width {
+            return Err(format!("the layers after the first write {width} columns"));
+        }
+        Ok(data
+            .chunks_exact(self.out_width)
+            .map(|r| r[self.positive] as f64)
+            .collect())
     }
 
     /// The support-vector classifier, when the graph's model is one (explanations factor its
