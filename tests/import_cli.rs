@@ -212,3 +212,104 @@ fn refused_imports_write_nothing() {
     );
     assert!(!out_path.exists());
 }
+
+#[test]
+fn a_neural_network_imports_serves_and_explains() {
+    let dir = TempDir::new();
+    let artifact = dir.0.join("mlp.json").display().to_string();
+    let out = plumbline(&[
+        "import",
+        &format!("{FX}/mlp_relu.onnx"),
+        "--spec",
+        &format!("{FX}/spec.json"),
+        "--reference",
+        &format!("{FX}/complete.csv"),
+        "--background",
+        &format!("{FX}/background.csv"),
+        "--out",
+        &artifact,
+    ]);
+    let err = text(&out.stderr);
+    assert_eq!(out.status.code(), Some(0), "{err}");
+    assert!(
+        err.contains("graph kept whole") && err.contains("exact interventional Shapley"),
+        "{err}"
+    );
+    let shown = text(&plumbline(&["inspect", &artifact]).stdout);
+    for want in [
+        "ONNX graph, evaluated",
+        "operators: Scaler, Cast, MatMul x3, Add x3, Relu x2, Sigmoid, Sub, Concat",
+        "parameters: ",
+        "shapley_interventional",
+        "background of 50 rows, all 64 coalitions: 3200 model evaluations per decision",
+        "explanation background: the --background file",
+    ] {
+        assert!(shown.contains(want), "inspect lacks {want:?}:\n{shown}");
+    }
+
+    let fixture: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(format!("{FX}/expected.json")).unwrap()).unwrap();
+    let case = (fixture["cases"].as_array().unwrap().iter())
+        .find(|c| c["name"] == "mlp_relu")
+        .unwrap();
+    let row = &case["rows"][0];
+    let request = serde_json::json!({"application_id": "FX-MLP-1", "applicant": row["applicant"]});
+    let request_path = dir.0.join("request.json");
+    std::fs::write(&request_path, request.to_string()).unwrap();
+    let cli = text(
+        &plumbline(&[
+            "score",
+            "--model",
+            &artifact,
+            &request_path.display().to_string(),
+        ])
+        .stdout,
+    );
+    let store = format!("sqlite:{}", dir.0.join("records.sqlite3").display());
+    let served = Served::start(&artifact, &store);
+    let (status, _, body) = send(
+        "POST",
+        &format!("{}/v1/decisions", served.1),
+        Some(SCORING),
+        Some("application/json"),
+        Some(&request.to_string()),
+    );
+    assert_eq!(status, 200, "{body}");
+    assert!(
+        body.starts_with(cli.trim_end().strip_suffix('}').unwrap()),
+        "service {body}\ncli {cli}"
+    );
+    let got: serde_json::Value = serde_json::from_str(&body).unwrap();
+    let c = &got["contributions"];
+    assert_eq!(c["method"], "shapley_interventional");
+    assert_eq!(c["space"], "probability");
+    assert!(c.get("estimate").is_none());
+    let p = got["probability_of_default"].as_f64().unwrap();
+    assert!((p - row["onnxruntime"].as_f64().unwrap()).abs() <= 2e-7);
+    for (f, want) in c["fields"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .zip(row["contributions"].as_array().unwrap())
+    {
+        assert!((f["contribution"].as_f64().unwrap() - want.as_f64().unwrap()).abs() <= 1e-6);
+    }
+}
+
+#[test]
+fn graph_options_are_refused_for_trees() {
+    let dir = TempDir::new();
+    let out = plumbline(&[
+        "import",
+        &format!("{FX}/random_forest.onnx"),
+        "--spec",
+        &format!("{FX}/spec.json"),
+        "--reference",
+        &format!("{FX}/complete.csv"),
+        "--approximate",
+        "--out",
+        &dir.0.join("x.json").display().to_string(),
+    ]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(text(&out.stderr).contains("--background and --approximate are for graph models"));
+}

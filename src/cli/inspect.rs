@@ -170,19 +170,32 @@ fn import_lines(model: &LoadedModel) -> Option<Vec<String>> {
             o["ir_version"],
             opsets.join(", ")
         ),
-        format!(
-            "operator {} on {} input \"{}\"{}; probability from output \"{}\"",
-            s(&o["operator"]),
-            s(&o["input_precision"]),
-            s(&o["input"]),
-            if o["scaler"] == true {
-                " through a Scaler"
-            } else {
-                ""
-            },
-            s(&o["output"])
-        ),
+        if o.get("operator").is_some() {
+            format!(
+                "operator {} on {} input \"{}\"{}; probability from output \"{}\"",
+                s(&o["operator"]),
+                s(&o["input_precision"]),
+                s(&o["input"]),
+                if o["scaler"] == true {
+                    " through a Scaler"
+                } else {
+                    ""
+                },
+                s(&o["output"])
+            )
+        } else {
+            format!(
+                "graph kept whole and evaluated (tract; Scaler, Normalizer, SVMClassifier natively), {} input; probability from output \"{}\"",
+                s(&o["input_precision"]),
+                s(&o["output"])
+            )
+        },
     ];
+    if let Some(b) = p["background_sha256"].as_str() {
+        v.push(format!(
+            "explanation background: the --background file, sha256 {b}"
+        ));
+    }
     if let Some(c) = p["covers"].as_str() {
         v.push(format!(
             "covers: {c} (recounted on the {} reference rows)",
