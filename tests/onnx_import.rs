@@ -21,9 +21,12 @@ use serde_json::Value;
 use std::path::{Path, PathBuf};
 
 const DIR: &str = "tests/reference/fixtures/onnx";
-/// Largest |plumbline - onnxruntime| accepted for a probability: onnxruntime's own float32
-/// rounding (1.1e-7 measured on these 1,918 rows; a float32 step near 0.5 is 6e-8).
+/// Largest |plumbline - onnxruntime| accepted for a probability of a tree or logistic model:
+/// onnxruntime's own float32 rounding (1.1e-7 measured; a float32 step near 0.5 is 6e-8).
 const PROBABILITY_TOLERANCE: f64 = 2e-7;
+/// The same for graph models (networks, SVMs), whose layers both runtimes compute in float32
+/// in their own order, and whose SVM kernel plumbline sums in float64 (1.9e-7 measured).
+const GRAPH_PROBABILITY_TOLERANCE: f64 = 1e-6;
 /// Contributions and base values against the exporting library.
 const CONTRIBUTION_TOLERANCE: f64 = 1e-6;
 
@@ -84,18 +87,26 @@ fn probabilities_match_onnxruntime_at_and_beside_every_threshold() {
         for case in f[group].as_array().unwrap() {
             let name = case["name"].as_str().unwrap();
             let model = imported(case);
+            let mut case_worst = 0.0f64;
             for (r, row) in case["rows"].as_array().unwrap().iter().enumerate() {
                 let p = probability(&model, &encode(&model, &row["applicant"]));
                 let want = row["onnxruntime"].as_f64().unwrap();
                 let d = (p - want).abs();
                 worst = worst.max(d);
+                case_worst = case_worst.max(d);
+                let tolerance = if case["background"].is_string() {
+                    GRAPH_PROBABILITY_TOLERANCE
+                } else {
+                    PROBABILITY_TOLERANCE
+                };
                 assert!(
-                    d <= PROBABILITY_TOLERANCE,
+                    d <= tolerance,
                     "{group} {name} row {r}: {p} vs onnxruntime {want} ({})",
                     row["applicant"]
                 );
                 checked += 1;
             }
+            eprintln!("{group} {name}: largest difference from onnxruntime {case_worst:e}");
         }
     }
     assert!(checked > 1500, "only {checked} rows checked");
@@ -111,6 +122,7 @@ fn contributions_match_the_exporting_libraries() {
         let name = case["name"].as_str().unwrap();
         let source = case["contribution_source"].as_str().unwrap();
         let model = imported(case);
+        let mut worst = 0.0f64;
         assert_eq!(
             plumbline::explain::space_name(model.scorer.space()),
             case["space"].as_str().unwrap(),
@@ -133,12 +145,14 @@ fn contributions_match_the_exporting_libraries() {
                 .map(|v| v.as_f64().unwrap())
                 .collect();
             for (j, (got, want)) in phi.iter().zip(&want).enumerate() {
+                worst = worst.max((got - want).abs());
                 assert!(
                     (got - want).abs() <= CONTRIBUTION_TOLERANCE,
                     "{name} ({source}) row {r} column {j}: {got} vs {want}"
                 );
             }
         }
+        eprintln!("{name}: largest difference from {source}: {worst:e}");
     }
 }
 
