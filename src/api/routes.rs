@@ -89,6 +89,16 @@ pub(super) fn decide_value(state: &State, request: &Value) -> Result<Decided, Pr
     })
 }
 
+/// Whether the model a request selects explains by enumerating coalitions (milliseconds).
+fn slow_to_explain(state: &State, request: &Value) -> bool {
+    let Ok(envelope) = Envelope::parse(request) else {
+        return false;
+    };
+    let set = state.registry.current();
+    set.select(envelope.model.as_ref())
+        .is_some_and(|m| matches!(m.explainer, crate::explain::Explainer::Shapley(_)))
+}
+
 pub(super) fn observe(state: &State, decision: &Decision, outcome: &str) {
     let outcome = match outcome {
         "approve" => "approve",
@@ -136,10 +146,19 @@ pub async fn post_decision(
             .content_type("application/json")
             .body(given));
     }
+    // Graph models' explanations take milliseconds: they run on the blocking pool, so a worker
+    // keeps reading other requests meanwhile.
     let Decided {
         decision,
         idempotency_key,
-    } = decide_value(&state, &request)?;
+    } = if slow_to_explain(&state, &request) {
+        let (s, r) = (state.clone(), request.clone());
+        web::block(move || decide_value(&s, &r))
+            .await
+            .map_err(|_| Problem::internal("the decision's worker thread failed"))??
+    } else {
+        decide_value(&state, &request)?
+    };
     let Some(recorder) = &state.recorder else {
         observe(&state, &decision, decision.outcome.name());
         return Ok(json(&decision));
@@ -169,7 +188,7 @@ pub struct ModelSummary {
     pub sha256: String,
     pub description: String,
     pub champion: bool,
-    /// `logistic` or `tree_ensemble`.
+    /// `logistic`, `tree_ensemble` or `onnx_graph`.
     pub kind: &'static str,
     pub explanation: crate::explain::Method,
     pub reference: crate::artifact::spec::Population,
