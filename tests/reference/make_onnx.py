@@ -492,6 +492,18 @@ def main(outdir):
     svc = make_pipeline(StandardScaler(), SVC(kernel="rbf", probability=True, random_state=SEED)).fit(X32[:600], ytr[:600])
     graph_case("svm_rbf", sk_onnx(svc, X32), svc.predict_proba(Xg)[:, 1])
 
+    # A hand-built graph through Normalizer (native) and Softmax (tract), which no first-layer
+    # shortcut applies to: every hybrid row is evaluated in full.
+    W2 = np.array([[0.8, -0.6], [-0.5, 0.4], [0.3, 0.9], [-0.7, 0.2], [0.6, -0.4], [0.1, 0.5]], dtype=np.float32)
+    normalizer_graph = graph_model(
+        [helper.make_node("Normalizer", ["X"], ["n"], domain="ai.onnx.ml", norm="L2"),
+         helper.make_node("MatMul", ["n", "W"], ["z"]), helper.make_node("Add", ["z", "b"], ["logits"]),
+         helper.make_node("Softmax", ["logits"], ["probabilities"], axis=1)],
+        outputs=[helper.make_tensor_value_info("probabilities", TensorProto.FLOAT, [None, 2])],
+        initializers=[onnx.numpy_helper.from_array(W2, "W"), onnx.numpy_helper.from_array(np.array([0.4, -1.6], dtype=np.float32), "b")],
+    )
+    graph_case("normalizer_softmax", normalizer_graph, ort_probability(normalizer_graph, Xg)[0])
+
     # A linear function as a graph, for the closed form beta * (x - mean of the background).
     w = np.array([[0.02], [-0.015], [0.01], [-0.03], [0.025], [0.005]], dtype=np.float32)
     lin = graph_model(

@@ -164,16 +164,30 @@ impl Stage {
                 }
                 Ok((x, width))
             }
+            // As onnxruntime's Normalizer: a zero norm leaves the row as it is; L2 divides the
+            // squares, then takes the root with the value's sign.
             Stage::Normalizer(norm) => {
                 let mut x = input;
                 for row in x.chunks_exact_mut(width) {
-                    let d = match norm {
-                        Norm::Max => row.iter().copied().fold(f32::MIN, f32::max),
-                        Norm::L1 => row.iter().map(|v| v.abs()).sum(),
-                        Norm::L2 => row.iter().map(|v| v * v).sum::<f32>().sqrt(),
-                    };
-                    if d != 0.0 {
-                        row.iter_mut().for_each(|v| *v /= d);
+                    match norm {
+                        Norm::Max | Norm::L1 => {
+                            let d = match norm {
+                                Norm::Max => row.iter().copied().fold(f32::MIN, f32::max),
+                                _ => row.iter().map(|v| v.abs()).sum(),
+                            };
+                            if d != 0.0 {
+                                row.iter_mut().for_each(|v| *v /= d);
+                            }
+                        }
+                        Norm::L2 => {
+                            let sum: f32 = row.iter().map(|v| v * v).sum();
+                            if sum != 0.0 {
+                                for v in row.iter_mut() {
+                                    let r = (*v * *v / sum).sqrt();
+                                    *v = if *v < 0.0 { -r } else { r };
+                                }
+                            }
+                        }
                     }
                 }
                 Ok((x, width))
