@@ -76,6 +76,41 @@ impl Drop for Served {
     }
 }
 
+/// Decides `applicant` with `plumbline score` and with the service started from the binary;
+/// checks the service's bytes are the command line's plus the record; returns the decision.
+fn decide_both_ways(
+    dir: &TempDir,
+    artifact: &str,
+    id: &str,
+    applicant: &serde_json::Value,
+) -> serde_json::Value {
+    let request = serde_json::json!({"application_id": id, "applicant": applicant});
+    let request_path = dir.0.join(format!("{id}.json"));
+    std::fs::write(&request_path, request.to_string()).unwrap();
+    let cli = text(
+        &plumbline(&[
+            "score",
+            "--model",
+            artifact,
+            &request_path.display().to_string(),
+        ])
+        .stdout,
+    );
+    let store = format!("sqlite:{}", dir.0.join(format!("{id}.sqlite3")).display());
+    let served = Served::start(artifact, &store);
+    let (status, _, body) = send(
+        "POST",
+        &format!("{}/v1/decisions", served.1),
+        Some(SCORING),
+        Some("application/json"),
+        Some(&request.to_string()),
+    );
+    assert_eq!(status, 200, "{body}");
+    let decision = cli.trim_end().strip_suffix('}').unwrap();
+    assert!(body.starts_with(decision), "service {body}\ncli {cli}");
+    serde_json::from_str(&body).unwrap()
+}
+
 #[test]
 fn import_inspect_serve_decide() {
     let dir = TempDir::new();
@@ -115,32 +150,7 @@ fn import_inspect_serve_decide() {
         .find(|c| c["name"] == "lightgbm")
         .unwrap();
     let row = &case["rows"][3];
-    let request =
-        serde_json::json!({"application_id": "FX-IMPORT-1", "applicant": row["applicant"]});
-    let request_path = dir.0.join("request.json");
-    std::fs::write(&request_path, request.to_string()).unwrap();
-    let cli = text(
-        &plumbline(&[
-            "score",
-            "--model",
-            &artifact,
-            &request_path.display().to_string(),
-        ])
-        .stdout,
-    );
-    let store = format!("sqlite:{}", dir.0.join("records.sqlite3").display());
-    let served = Served::start(&artifact, &store);
-    let (status, _, body) = send(
-        "POST",
-        &format!("{}/v1/decisions", served.1),
-        Some(SCORING),
-        Some("application/json"),
-        Some(&request.to_string()),
-    );
-    assert_eq!(status, 200, "{body}");
-    let decision = cli.trim_end().strip_suffix('}').unwrap();
-    assert!(body.starts_with(decision), "service {body}\ncli {cli}");
-    let got: serde_json::Value = serde_json::from_str(&body).unwrap();
+    let got = decide_both_ways(&dir, &artifact, "FX-IMPORT-1", &row["applicant"]);
     let p = got["probability_of_default"].as_f64().unwrap();
     let want = row["onnxruntime"].as_f64().unwrap();
     assert!((p - want).abs() <= 2e-7, "{p} vs onnxruntime {want}");
@@ -253,33 +263,7 @@ fn a_neural_network_imports_serves_and_explains() {
         .find(|c| c["name"] == "mlp_relu")
         .unwrap();
     let row = &case["rows"][0];
-    let request = serde_json::json!({"application_id": "FX-MLP-1", "applicant": row["applicant"]});
-    let request_path = dir.0.join("request.json");
-    std::fs::write(&request_path, request.to_string()).unwrap();
-    let cli = text(
-        &plumbline(&[
-            "score",
-            "--model",
-            &artifact,
-            &request_path.display().to_string(),
-        ])
-        .stdout,
-    );
-    let store = format!("sqlite:{}", dir.0.join("records.sqlite3").display());
-    let served = Served::start(&artifact, &store);
-    let (status, _, body) = send(
-        "POST",
-        &format!("{}/v1/decisions", served.1),
-        Some(SCORING),
-        Some("application/json"),
-        Some(&request.to_string()),
-    );
-    assert_eq!(status, 200, "{body}");
-    assert!(
-        body.starts_with(cli.trim_end().strip_suffix('}').unwrap()),
-        "service {body}\ncli {cli}"
-    );
-    let got: serde_json::Value = serde_json::from_str(&body).unwrap();
+    let got = decide_both_ways(&dir, &artifact, "FX-MLP-1", &row["applicant"]);
     let c = &got["contributions"];
     assert_eq!(c["method"], "shapley_interventional");
     assert_eq!(c["space"], "probability");
