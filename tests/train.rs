@@ -242,3 +242,78 @@ fn evaluate_reports_discrimination_calibration_and_costs() {
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("one outcome class"));
 }
+
+/// `evaluate` reads the outcome column the model was trained with (recorded in provenance),
+/// so a model trained on another column name needs no `--target`.
+#[test]
+fn evaluate_reads_the_trained_target_column() {
+    let dir = std::env::temp_dir().join(format!("plumbline-target-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let (csv, _) = applications_csv(3_000, 5);
+    let csv = csv.replacen(",defaulted\n", ",went_bad\n", 1);
+    let mut spec: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string("models/fernhill-logistic.train.json").unwrap(),
+    )
+    .unwrap();
+    spec["target"] = "went_bad".into();
+    let (data, spec_path, model) = (
+        dir.join("data.csv"),
+        dir.join("spec.json"),
+        dir.join("m.json"),
+    );
+    std::fs::write(&data, &csv).unwrap();
+    std::fs::write(&spec_path, spec.to_string()).unwrap();
+    let bin = env!("CARGO_BIN_EXE_plumbline");
+    let p = |s: &std::path::Path| s.display().to_string();
+    let out = Command::new(bin)
+        .args([
+            "train",
+            "--data",
+            &p(&data),
+            "--spec",
+            &p(&spec_path),
+            "--out",
+            &p(&model),
+        ])
+        .output()
+        .unwrap();
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let out = Command::new(bin)
+        .args([
+            "evaluate",
+            "--model",
+            &p(&model),
+            "--data",
+            &p(&data),
+            "--json",
+        ])
+        .output()
+        .unwrap();
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    // Naming another column still wins, and is checked.
+    let out = Command::new(bin)
+        .args([
+            "evaluate",
+            "--model",
+            &p(&model),
+            "--data",
+            &p(&data),
+            "--target",
+            "defaulted",
+        ])
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("no target column \"defaulted\""));
+    let _ = std::fs::remove_dir_all(&dir);
+}

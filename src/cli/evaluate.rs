@@ -5,7 +5,7 @@ use crate::evaluate::stability;
 use std::fmt::Write;
 use std::path::Path;
 
-pub fn run(model: &Path, data: &Path, target: &str, costs: (f64, f64), json: bool) -> i32 {
+pub fn run(model: &Path, data: &Path, target: Option<&str>, costs: (f64, f64), json: bool) -> i32 {
     if !(costs.0.is_finite() && costs.1.is_finite() && costs.0 >= 0.0 && costs.1 >= 0.0) {
         eprintln!("error: costs must be finite and not negative");
         return EXIT_BAD_INPUT;
@@ -21,7 +21,16 @@ pub fn run(model: &Path, data: &Path, target: &str, costs: (f64, f64), json: boo
             return EXIT_BAD_INPUT;
         }
     };
-    let set = match crate::train::dataset::read_csv(&text, &model.schema, target) {
+    // The outcome column the model was built with, unless the caller names another.
+    let recorded = (model.provenance.as_ref())
+        .and_then(|p| p.get("target"))
+        .and_then(|t| t.as_str())
+        .map(str::to_string);
+    let target = target
+        .map(str::to_string)
+        .or(recorded)
+        .unwrap_or_else(|| "defaulted".to_string());
+    let set = match crate::train::dataset::read_csv(&text, &model.schema, &target) {
         Ok(s) => s,
         Err(e) => {
             eprintln!("error: {e}");

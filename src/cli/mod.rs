@@ -137,9 +137,10 @@ pub enum Command {
         /// CSV with the model's fields and the outcome column.
         #[arg(long)]
         data: PathBuf,
-        /// Outcome column (1 = defaulted, 0 = repaid).
-        #[arg(long, default_value = "defaulted")]
-        target: String,
+        /// Outcome column (1 = defaulted, 0 = repaid); by default the one the model was trained
+        /// or imported with (its provenance), else `defaulted`.
+        #[arg(long)]
+        target: Option<String>,
         /// Cost of approving an application that defaults.
         #[arg(long, default_value_t = 5.0)]
         cost_missed_default: f64,
@@ -201,7 +202,7 @@ pub fn run(cli: Cli) -> i32 {
         } => evaluate::run(
             &model,
             &data,
-            &target,
+            target.as_deref(),
             (cost_missed_default, cost_lost_good),
             json,
         ),

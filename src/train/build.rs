@@ -203,8 +203,10 @@ pub fn assemble(
     producer: &str,
     model: Value,
     explanation: Value,
-    provenance: Value,
+    mut provenance: Value,
 ) -> Result<String, TrainError> {
+    // The outcome column, so `evaluate` reads the same one by default.
+    provenance["target"] = json!(spec.target);
     let artifact = json!({
         "format": crate::artifact::spec::FORMAT_TAG,
         "format_version": crate::artifact::spec::FORMAT_VERSION,
