@@ -25,6 +25,7 @@ pub mod policy;
 pub mod reasons;
 pub mod records;
 pub mod replay;
+pub mod tabular;
 pub mod train;
 
 pub use artifact::{ArtifactError, LoadedModel};

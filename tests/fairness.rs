@@ -332,3 +332,18 @@ fn the_command_line_reads_an_export_and_an_upload() {
         .unwrap();
     assert_eq!(bad.status.code(), Some(2));
 }
+
+/// Uploads as spreadsheets save them: a byte-order mark, CRLF line ends, quoted group names
+/// holding commas and quotes, a blank line (RFC 4180, read with the csv crate).
+#[test]
+fn spreadsheet_csv_uploads_read_as_written() {
+    let text = "\u{feff}application_id,\"Group A, north\",\"Group \"\"B\"\"\"\r\n\
+                FH-1,0.25,0.75\r\n\r\n\"FH-2\",1,0\r\n";
+    let d = membership::from_csv(text, "region", 0.001).unwrap();
+    assert_eq!(d.groups, ["Group A, north", "Group \"B\""]);
+    assert_eq!(d.members["FH-1"], vec![(0, 250_000_000), (1, 750_000_000)]);
+    assert_eq!(d.members["FH-2"], vec![(0, 1_000_000_000)]);
+    let labels = "application_id,group\r\nFH-1,\"x, y\"\r\n";
+    let d = membership::from_csv(labels, "d", 0.001).unwrap();
+    assert_eq!(d.groups, ["x, y"]);
+}

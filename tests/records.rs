@@ -16,7 +16,7 @@ fn record(n: usize, key: Option<&str>, decided_at: &str, outcome: &str) -> Recor
         received_at: decided_at.to_string(),
         decided_at: decided_at.to_string(),
         model_id: "fernhill-personal-logistic".into(),
-        model_version: if n % 2 == 0 { "0.1.0" } else { "0.2.0" }.into(),
+        model_version: if n.is_multiple_of(2) { "0.1.0" } else { "0.2.0" }.into(),
         model_sha256: "ab".repeat(32),
         plumbline_version: plumbline::VERSION.into(),
         request_sha256: format!("{n:064x}"),

@@ -317,3 +317,23 @@ fn evaluate_reads_the_trained_target_column() {
     assert!(String::from_utf8_lossy(&out.stderr).contains("no target column \"defaulted\""));
     let _ = std::fs::remove_dir_all(&dir);
 }
+
+/// A training CSV saved by a spreadsheet (byte-order mark, CRLF, a quoted cell) reads like the
+/// plain one.
+#[test]
+fn spreadsheet_csv_trains_like_plain_csv() {
+    let (csv, _) = applications_csv(2_000, 3);
+    let mut lines: Vec<String> = csv.lines().map(String::from).collect();
+    lines[1] = lines[1]
+        .replacen("FH-DEMO-", "\"FH-DEMO-", 1)
+        .replacen(',', "\",", 1);
+    let saved = format!("\u{feff}{}\r\n", lines.join("\r\n"));
+    let (a, _) = train_logistic(&spec(), &csv, 3, 1).unwrap();
+    let (b, _) = train_logistic(&spec(), &saved, 3, 1).unwrap();
+    let strip = |t: &str| {
+        let mut v: serde_json::Value = serde_json::from_str(t).unwrap();
+        v["provenance"]["data_sha256"] = serde_json::Value::Null;
+        v
+    };
+    assert_eq!(strip(&a), strip(&b));
+}

@@ -98,12 +98,11 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
     let text = read(&args.decisions)?;
     let bad = |n: usize, what: &str| format!("{} line {}: {what}", args.decisions.display(), n + 1);
     if args.decisions.extension().is_some_and(|e| e == "csv") {
-        let mut lines = text.lines();
-        let header: Vec<&str> = lines.next().unwrap_or_default().split(',').collect();
+        let table = crate::tabular::read(&text)
+            .map_err(|e| format!("{}: {e}", args.decisions.display()))?;
         let col = |name: &str| {
-            header
-                .iter()
-                .position(|h| *h == name)
+            table
+                .column(name)
                 .ok_or_else(|| format!("{}: no column {name}", args.decisions.display()))
         };
         let (id, outcome, pd, score) = (
@@ -112,18 +111,18 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
             col("probability_of_default")?,
             col("score")?,
         );
-        for (n, line) in lines.enumerate() {
-            let owned = crate::records::export::csv_cells(line);
-            let cells: Vec<&str> = owned.iter().map(String::as_str).collect();
+        let bad = |n: usize, what: &str| format!("{} row {n}: {what}", args.decisions.display());
+        for record in table {
+            let (n, record) = record.map_err(|e| format!("{}: {e}", args.decisions.display()))?;
+            let cell = |i: usize| record.get(i).map(crate::records::export::unguard);
             let num = |i: usize| {
-                cells
-                    .get(i)
+                cell(i)
                     .and_then(|c| c.parse::<f64>().ok())
-                    .ok_or_else(|| bad(n + 1, "not a decision summary row"))
+                    .ok_or_else(|| bad(n, "not a decision summary row"))
             };
             agg.add(&DecisionRow {
-                application_id: cells.get(id).copied().unwrap_or_default(),
-                outcome: cells.get(outcome).copied().unwrap_or_default(),
+                application_id: cell(id).unwrap_or_default(),
+                outcome: cell(outcome).unwrap_or_default(),
                 probability: num(pd)?,
                 score: num(score)?,
             });

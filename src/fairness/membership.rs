@@ -188,13 +188,14 @@ impl Builder {
 /// A CSV upload for one dimension: `application_id,group` (labels) or `application_id,G1,G2,...`
 /// (probabilities per group, summing to 1 within `tolerance`).
 pub fn from_csv(text: &str, dimension: &str, tolerance: f64) -> Result<Dimension, UploadError> {
-    let mut lines = text.lines().filter(|l| !l.trim().is_empty());
-    let header: Vec<&str> = lines
-        .next()
-        .ok_or_else(|| err(None, "file", "not_empty", "the upload is empty"))?
-        .split(',')
-        .map(str::trim)
-        .collect();
+    let table = crate::tabular::read(text).map_err(|e| match e.row {
+        None if e.message == "the file is empty" => {
+            err(None, "file", "not_empty", "the upload is empty")
+        }
+        row => err(row, "file", "csv", e.message),
+    })?;
+    let owned_header = table.header.clone();
+    let header: Vec<&str> = owned_header.iter().map(String::as_str).collect();
     if header.first() != Some(&"application_id") || header.len() < 2 {
         return Err(err(
             None,
@@ -226,9 +227,9 @@ pub fn from_csv(text: &str, dimension: &str, tolerance: f64) -> Result<Dimension
             b.group(name, 0)?;
         }
     }
-    for (n, line) in lines.enumerate() {
-        let row = n + 1;
-        let cells: Vec<&str> = line.split(',').map(str::trim).collect();
+    for record in table {
+        let (row, record) = record.map_err(|e| err(e.row, "row", "csv", e.message))?;
+        let cells: Vec<&str> = record.iter().collect();
         if cells.len() != header.len() {
             return Err(err(
                 Some(row),

@@ -26,7 +26,7 @@ impl Cursor {
 
     /// `None` for anything this build did not encode.
     pub fn decode(token: &str) -> Option<Cursor> {
-        if token.len() % 2 != 0 || token.len() > 256 {
+        if !token.len().is_multiple_of(2) || token.len() > 256 {
             return None;
         }
         let bytes: Option<Vec<u8>> = (0..token.len())

@@ -94,12 +94,16 @@ pub fn csv_cells(line: &str) -> Vec<String> {
         }
     }
     cells.push(cell);
-    for c in &mut cells {
-        if c.starts_with('\'') && c[1..].starts_with(['=', '+', '-', '@']) {
-            c.remove(0);
-        }
+    cells.into_iter().map(|c| unguard(&c).to_string()).collect()
+}
+
+/// A cell as written before the formula guard: the `'` put before a leading `=`, `+`, `-` or
+/// `@` removed.
+pub fn unguard(cell: &str) -> &str {
+    match cell.strip_prefix('\'') {
+        Some(rest) if rest.starts_with(['=', '+', '-', '@']) => rest,
+        _ => cell,
     }
-    cells
 }
 
 /// The reason codes of a recorded response, in the order given.

@@ -28,8 +28,8 @@ fn problem(msg: String) -> DataError {
     }
 }
 
-/// Reads `text` (comma-separated, header first, no quoted commas), encodes each row, and stops
-/// after 20 problems.
+/// Reads `text` (CSV as spreadsheets write it, header first; see [`crate::tabular`]), encodes
+/// each row, and stops after 20 problems.
 pub fn read_csv(text: &str, schema: &Schema, target: &str) -> Result<Dataset, DataError> {
     read_rows(text, schema, Some(target))
 }
@@ -37,13 +37,8 @@ pub fn read_csv(text: &str, schema: &Schema, target: &str) -> Result<Dataset, Da
 /// As [`read_csv`]; without a target the outcome column may be absent (explanation background
 /// rows need no outcome) and `defaulted` stays empty.
 pub fn read_rows(text: &str, schema: &Schema, target: Option<&str>) -> Result<Dataset, DataError> {
-    let mut lines = text.lines();
-    let header: Vec<&str> = lines
-        .next()
-        .ok_or_else(|| problem("the file is empty".into()))?
-        .split(',')
-        .map(str::trim)
-        .collect();
+    let table = crate::tabular::read(text).map_err(|e| problem(e.to_string()))?;
+    let header = table.header.clone();
     let col = |name: &str| header.iter().position(|h| *h == name);
     let target_at = match target {
         Some(t) => {
@@ -66,12 +61,18 @@ pub fn read_rows(text: &str, schema: &Schema, target: Option<&str>) -> Result<Da
     }
     let mut problems = Vec::new();
     let (mut columns, mut defaulted, mut applicants) = (Vec::new(), Vec::new(), Vec::new());
-    for (n, line) in lines.enumerate() {
-        let row = n + 1;
-        if line.trim().is_empty() {
-            continue;
-        }
-        let cells: Vec<&str> = line.split(',').map(str::trim).collect();
+    for record in table {
+        let (row, record) = match record {
+            Ok(r) => r,
+            Err(e) => {
+                problems.push(e.to_string());
+                if problems.len() >= 20 {
+                    break;
+                }
+                continue;
+            }
+        };
+        let cells: Vec<&str> = record.iter().collect();
         if cells.len() != header.len() {
             problems.push(format!(
                 "row {row}: {} cells, the header has {}",

@@ -27,17 +27,18 @@ pub fn draft(
     model_id: &str,
     kind: &str,
 ) -> Result<(Value, Vec<String>), TrainError> {
-    let mut lines = csv.lines().filter(|l| !l.trim().is_empty());
-    let header: Vec<&str> = (lines.next())
-        .ok_or_else(|| TrainError::Data("the file is empty".into()))?
-        .split(',')
-        .map(str::trim)
-        .collect();
+    let table = crate::tabular::read(csv).map_err(|e| TrainError::Data(e.to_string()))?;
+    let owned_header = table.header.clone();
+    let header: Vec<&str> = owned_header.iter().map(String::as_str).collect();
     let target_at = (header.iter().position(|h| *h == target))
         .ok_or_else(|| TrainError::Data(format!("header: no target column \"{target}\"")))?;
-    let rows: Vec<Vec<&str>> = lines
-        .map(|l| l.split(',').map(str::trim).collect())
-        .collect();
+    let records: Vec<csv::StringRecord> = table
+        .map(|r| {
+            r.map(|(_, rec)| rec)
+                .map_err(|e| TrainError::Data(e.to_string()))
+        })
+        .collect::<Result<_, _>>()?;
+    let rows: Vec<Vec<&str>> = records.iter().map(|r| r.iter().collect()).collect();
     if rows.is_empty() {
         return Err(TrainError::Data("no data rows".into()));
     }
