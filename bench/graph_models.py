@@ -60,7 +60,7 @@ def main(out):
         for r in bg:
             f.write(",".join(repr(float(v)) for v in r) + "\n")
     spec = {
-        "model_id": "bench-graph", "version": "1.0.0", "created_at": "2026-12-02T00:00:00Z",
+        "model_id": "bench-graph", "version": "1.0.0", "created_at": "2026-12-02T00:00:00Z", "score_provider": "plumbline benchmark (generated data)",
         "description": "Benchmark model on generated data; not a credit model", "target": "defaulted",
         "features": [{"name": n, "kind": "number", "missing": {"policy": "reject"}, "reason": n.upper()} for n in em.NAMES],
         "reasons": [{"code": n.upper(), "text": f"Generated input {n} moved the estimate towards default"} for n in em.NAMES],

@@ -311,3 +311,78 @@ fn records_command_line_reads_the_embedded_store() {
         Some(2)
     );
 }
+
+/// The adverse-action content as FCRA 15 U.S.C. 1681g(f)(1) and Regulation B 12 CFR 1002.9 read
+/// (content as read; wording is the lender's): the recorded inquiry pair
+/// (demo-requests/12-decline-inquiry-extra.json) decided through the service. Principal reasons
+/// and score key factors are two lists: the inquiries factor added beyond the four-reason limit
+/// is a key factor (1681g(f)(9)), not a principal reason; the disclosure states the score (A),
+/// its range (B), the key factors (C), the date (D) and who provided it (E). A referral is not a
+/// final action.
+#[test]
+fn adverse_action_content_as_the_law_reads_it() {
+    let server = TestServer::demo();
+    let pair: Value = serde_json::from_str(
+        &std::fs::read_to_string("demo-requests/12-decline-inquiry-extra.json").unwrap(),
+    )
+    .unwrap();
+    let (status, body, _) = post(&server, &pair["request"]["body"].to_string());
+    assert_eq!(status, 200, "{body}");
+    let decision: Value = serde_json::from_str(&body).unwrap();
+    let sources: Vec<&str> = (decision["reasons"].as_array().unwrap().iter())
+        .map(|r| r["source"].as_str().unwrap())
+        .collect();
+    assert_eq!(
+        sources.last(),
+        Some(&"inquiry_extra"),
+        "the pair holds the extra factor"
+    );
+    let id = decision["record"]["decision_id"].as_str().unwrap();
+    let (status, _, text) = review(&server, &format!("/v1/decisions/{id}/adverse-action"));
+    assert_eq!(status, 200, "{text}");
+    let n: Value = serde_json::from_str(&text).unwrap();
+    let codes = |v: &Value| -> Vec<String> {
+        (v.as_array().unwrap().iter())
+            .map(|r| r["code"].as_str().unwrap().to_string())
+            .collect()
+    };
+    let given = codes(&decision["reasons"]);
+    // Principal reasons: every reason but the extra inquiries factor, in order.
+    assert_eq!(codes(&n["principal_reasons"]), given[..given.len() - 1]);
+    // Key factors: the model's factors in order, the inquiries factor included.
+    assert_eq!(codes(&n["credit_score"]["key_factors"]), given);
+    assert_eq!(
+        n["credit_score"]["key_factors"].as_array().unwrap().len(),
+        5
+    );
+    let cs = &n["credit_score"];
+    assert_eq!(cs["score"], decision["score"]);
+    assert_eq!(cs["range"], serde_json::json!({"min": 200, "max": 900}));
+    assert_eq!(
+        cs["date"].as_str().unwrap(),
+        &decision["record"]["decided_at"].as_str().unwrap()[..10]
+    );
+    assert!(cs["provided_by"].as_str().unwrap().contains("Fernhill"));
+    assert_eq!(n["final_action"], true);
+
+    // A referral (the amount rule): content is provisional, not a final action, and its rule
+    // reason is a principal reason but not a score factor.
+    let refer: Value = serde_json::from_str(
+        &std::fs::read_to_string("demo-requests/03-refer-amount-rule.json").unwrap(),
+    )
+    .unwrap();
+    let (_, body, _) = post(&server, &refer["request"]["body"].to_string());
+    let decision: Value = serde_json::from_str(&body).unwrap();
+    assert_eq!(decision["outcome"], "refer");
+    let id = decision["record"]["decision_id"].as_str().unwrap();
+    let (_, _, text) = review(&server, &format!("/v1/decisions/{id}/adverse-action"));
+    let n: Value = serde_json::from_str(&text).unwrap();
+    assert_eq!(n["final_action"], false);
+    assert!(n["action_note"]
+        .as_str()
+        .unwrap()
+        .contains("not a final action"));
+    let principal = codes(&n["principal_reasons"]);
+    assert_eq!(principal[0], "AMT_LIMIT");
+    assert!(!codes(&n["credit_score"]["key_factors"]).contains(&"AMT_LIMIT".to_string()));
+}

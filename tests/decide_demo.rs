@@ -73,8 +73,8 @@ fn contributions_are_exact_and_dummies_summed_to_fields() {
     let d = decide_request(&model, &request(typical())).unwrap();
     let c = &d.contributions;
     let total: f64 = c.base_value + c.fields.iter().map(|f| f.contribution).sum::<f64>();
-    assert!((total - c.model_output).abs() < 1e-12);
-    assert!((c.model_output - d.log_odds).abs() < 1e-15);
+    assert!((total - c.output).abs() < 1e-12);
+    assert!((c.output - d.log_odds).abs() < 1e-15);
     assert_eq!(
         c.fields.len(),
         10,

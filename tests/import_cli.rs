@@ -155,7 +155,7 @@ fn import_inspect_serve_decide() {
     let want = row["onnxruntime"].as_f64().unwrap();
     assert!((p - want).abs() <= 2e-7, "{p} vs onnxruntime {want}");
     assert_eq!(got["model"]["id"], "onnx-fixture");
-    assert_eq!(got["contributions"]["method"], "tree_path_dependent");
+    assert_eq!(got["contributions"]["method"], "tree_cover_weighted");
 }
 
 #[test]

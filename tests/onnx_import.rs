@@ -280,8 +280,8 @@ fn sampled_estimates_are_additive_and_close_to_exact() {
         let e = plumbline::decide_request(&exact, &request).unwrap();
         let c = &d.contributions;
         let sum: f64 = c.fields.iter().map(|f| f.contribution).sum();
-        assert!((c.base_value + sum - c.model_output).abs() <= 1e-9);
-        assert_eq!(c.model_output, e.contributions.model_output);
+        assert!((c.base_value + sum - c.output).abs() <= 1e-9);
+        assert_eq!(c.output, e.contributions.output);
         assert!(c.estimate.is_some() && e.contributions.estimate.is_none());
         for (s, x) in c.fields.iter().zip(&e.contributions.fields) {
             let se = s.standard_error.unwrap();

@@ -20,7 +20,7 @@ fn explainer_for(model: &LoadedModel, method: &str) -> Explainer {
         panic!("reference models are tree ensembles")
     };
     match method {
-        "tree_path_dependent" => Explainer::PathDependent(PathExplainer::new(ensemble)),
+        "tree_cover_weighted" => Explainer::PathDependent(PathExplainer::new(ensemble)),
         "tree_interventional" => {
             let background = &model.background;
             Explainer::Interventional(InterventionalExplainer::new(ensemble, background))

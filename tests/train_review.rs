@@ -225,12 +225,13 @@ fn a_draft_spec_is_inferred_and_refused_until_its_texts_are_written() {
     let as_spec: TrainingSpec = serde_json::from_value(draft.clone()).unwrap();
     let err = train(&as_spec, &csv, 3, 5).unwrap_err().to_string();
     assert!(
-        err.contains("DRAFT:") && err.contains("description"),
+        err.contains("DRAFT:") && err.contains("description") && err.contains("score_provider"),
         "{err}"
     );
 
     let mut edited = draft;
     edited["description"] = "Test model from an inferred draft".into();
+    edited["score_provider"] = "A test lender".into();
     for r in edited["reasons"].as_array_mut().unwrap() {
         let code = r["code"].as_str().unwrap().to_lowercase();
         r["text"] = format!("The applicant's {code} compared with approved applicants").into();

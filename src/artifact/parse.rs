@@ -35,13 +35,32 @@ struct ModelBody {
     intercept: Option<f64>,
     coefficients: Option<BTreeMap<String, f64>>,
     aggregation: Option<Aggregation>,
-    base_score: Option<f64>,
+    initial_value: Option<f64>,
     trees: Option<Vec<TreeSpec>>,
     onnx: Option<String>,
     sha256: Option<String>,
 }
 
+/// Just the version, read first so an older file is refused with what changed, not with the
+/// shape errors its old names would cause.
+#[derive(Deserialize)]
+struct Version {
+    format_version: Option<u32>,
+}
+
 pub fn parse(bytes: &[u8]) -> Result<ArtifactSpec, ArtifactError> {
+    if let Ok(Version {
+        format_version: Some(1),
+    }) = serde_json::from_slice::<Version>(bytes)
+    {
+        return Err(ArtifactError::new(
+            "$.format_version",
+            "format",
+            format!(
+                "version 1 artifacts are not read by this build (version {FORMAT_VERSION}): version 2 names the path-dependent method \"tree_cover_weighted\" (was \"tree_path_dependent\") and the ensemble's \"initial_value\" (was \"base_score\"), and requires identity.score_provider and policy.scaling.min_score / max_score; retrain or re-import, or edit those four and set format_version 2"
+            ),
+        ));
+    }
     let mut de = serde_json::Deserializer::from_slice(bytes);
     let e: Envelope = serde_path_to_error::deserialize(&mut de).map_err(|e| {
         let inner = e.path().to_string();
@@ -84,7 +103,7 @@ fn model_spec(m: ModelBody) -> Result<ModelSpec, ArtifactError> {
             stray(
                 &[
                     ("aggregation", m.aggregation.is_some()),
-                    ("base_score", m.base_score.is_some()),
+                    ("initial_value", m.initial_value.is_some()),
                     ("trees", m.trees.is_some()),
                     ("onnx", m.onnx.is_some()),
                     ("sha256", m.sha256.is_some()),
@@ -108,7 +127,7 @@ fn model_spec(m: ModelBody) -> Result<ModelSpec, ArtifactError> {
             )?;
             Ok(ModelSpec::TreeEnsemble(TreeEnsembleSpec {
                 aggregation: m.aggregation.ok_or_else(|| need("aggregation"))?,
-                base_score: m.base_score.unwrap_or(0.0),
+                initial_value: m.initial_value.unwrap_or(0.0),
                 trees: m.trees.ok_or_else(|| need("trees"))?,
             }))
         }
@@ -118,7 +137,7 @@ fn model_spec(m: ModelBody) -> Result<ModelSpec, ArtifactError> {
                     ("intercept", m.intercept.is_some()),
                     ("coefficients", m.coefficients.is_some()),
                     ("aggregation", m.aggregation.is_some()),
-                    ("base_score", m.base_score.is_some()),
+                    ("initial_value", m.initial_value.is_some()),
                     ("trees", m.trees.is_some()),
                 ],
                 "onnx_graph",

@@ -10,7 +10,7 @@ use std::collections::BTreeMap;
 /// Tag written in every artifact so that a stray JSON file is not mistaken for a model.
 pub const FORMAT_TAG: &str = "plumbline.model";
 /// The one format version this build reads.
-pub const FORMAT_VERSION: u32 = 1;
+pub const FORMAT_VERSION: u32 = 2;
 
 #[derive(Debug, Clone, Serialize)]
 pub struct ArtifactSpec {
@@ -40,6 +40,9 @@ pub struct IdentitySpec {
     pub created_at: String,
     /// Name and version of the program that wrote the file.
     pub producer: String,
+    /// Who provides the credit score, as a score disclosure names it (FCRA 15 U.S.C.
+    /// 1681g(f)(1)(E)): the lender, or the model's owner.
+    pub score_provider: String,
 }
 
 /// One applicant input field.
@@ -159,7 +162,7 @@ pub struct TreeEnsembleSpec {
     /// Added to the sum of tree outputs (`sum_log_odds`, `sum_probability`; must be 0 for
     /// `mean_probability`).
     #[serde(default)]
-    pub base_score: f64,
+    pub initial_value: f64,
     pub trees: Vec<TreeSpec>,
 }
 
@@ -168,10 +171,10 @@ pub struct TreeEnsembleSpec {
 pub enum Aggregation {
     /// Random forest: each leaf holds a probability of default; the model averages them.
     MeanProbability,
-    /// Boosted trees: leaves hold log-odds increments; the model sums them plus `base_score`.
+    /// Boosted trees: leaves hold log-odds increments; the model sums them plus `initial_value`.
     SumLogOdds,
     /// Forests as ONNX exporters write them: each leaf holds its tree's share of the probability
-    /// of default (already divided by the number of trees); the model sums them plus `base_score`.
+    /// of default (already divided by the number of trees); the model sums them plus `initial_value`.
     SumProbability,
 }
 
@@ -253,8 +256,8 @@ pub struct ExplanationSpec {
 pub enum ExplainMethod {
     /// beta_j * (x_j - reference_j), in log-odds.
     Linear,
-    /// TreeSHAP conditioning on the training population through node covers.
-    TreePathDependent,
+    /// Path-dependent TreeSHAP: conditioning on the training population through node covers.
+    TreeCoverWeighted,
     /// TreeSHAP against the background sample (Lundberg et al. 2020).
     TreeInterventional,
     /// Any model: exact interventional Shapley values over fields against the background, by

@@ -93,7 +93,7 @@ fn model_lines(model: &LoadedModel) -> Vec<String> {
                 format!(
                     "tree ensemble, {}, base score {}",
                     json_name(&e.aggregation),
-                    e.base_score
+                    e.initial_value
                 ),
                 format!(
                     "  trees {}, leaves {leaves}, depth max {} mean {mean_depth:.2}",

@@ -33,6 +33,9 @@ pub struct Decision {
     /// Natural log of the odds of default, p / (1 - p).
     pub log_odds: f64,
     pub score: i64,
+    /// The range of possible scores and who provides them, as a score disclosure states them
+    /// (FCRA 15 U.S.C. 1681g(f)(1)(B), (E)).
+    pub score_scale: ScoreScale,
     /// Principal reasons, most important first; empty when approved.
     pub reasons: Vec<PrincipalReason>,
     pub rules_fired: Vec<FiredRule>,
@@ -42,20 +45,28 @@ pub struct Decision {
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
+pub struct ScoreScale {
+    pub min: i64,
+    pub max: i64,
+    /// The lender, or the model's owner (the artifact's `identity.score_provider`).
+    pub provider: String,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct FiredRule {
     pub code: String,
     pub field: String,
     pub action: RuleAction,
 }
 
-/// Exact contributions: `base_value + sum(fields[].contribution) = model_output`, in `space`.
+/// Exact contributions: `base_value + sum(fields[].contribution) = output`, in `space`.
 #[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
 pub struct ContributionReport {
     pub space: Space,
     pub method: Method,
     pub reference: ReferenceRef,
     pub base_value: f64,
-    pub model_output: f64,
+    pub output: f64,
     /// One entry per scored field in schema order; category dummies are summed into their field.
     pub fields: Vec<FieldContribution>,
     /// Present when the contributions are estimated (sampled), not exact: how, from how much.
@@ -201,6 +212,12 @@ pub fn decide(
         probability_of_default: probability,
         log_odds,
         score: policy.scaling.score(log_odds),
+        score_scale: ScoreScale {
+            // Required whole numbers (checked at load).
+            min: policy.scaling.min_score.unwrap_or(f64::NAN) as i64,
+            max: policy.scaling.max_score.unwrap_or(f64::NAN) as i64,
+            provider: model.identity.score_provider.clone(),
+        },
         reasons,
         rules_fired: fired
             .iter()
@@ -221,7 +238,7 @@ pub fn decide(
                 label: model.reference.label.clone(),
             },
             base_value: base,
-            model_output: raw,
+            output: raw,
             fields,
             estimate: estimate(&model.explainer),
         },

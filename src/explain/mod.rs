@@ -25,7 +25,10 @@ use crate::model::Space;
 #[serde(rename_all = "snake_case")]
 pub enum Method {
     Linear,
-    TreePathDependent,
+    /// Path-dependent TreeSHAP (Lundberg, Erion, Lee 2018): conditional expectations weighted by
+    /// the training cover of each node.
+    TreeCoverWeighted,
+    /// Interventional TreeSHAP against a background sample.
     TreeInterventional,
     /// Exact interventional Shapley values of any model, by enumerating every coalition.
     ShapleyInterventional,
@@ -46,7 +49,7 @@ impl Explainer {
     pub fn method(&self) -> Method {
         match self {
             Explainer::Linear(_) => Method::Linear,
-            Explainer::PathDependent(_) => Method::TreePathDependent,
+            Explainer::PathDependent(_) => Method::TreeCoverWeighted,
             Explainer::Interventional(_) => Method::TreeInterventional,
             Explainer::Shapley(e) => match e.mode() {
                 shapley::Mode::Exact => Method::ShapleyInterventional,

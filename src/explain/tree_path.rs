@@ -158,7 +158,7 @@ impl PathExplainer {
         let limit = limit.min(QUADRATURE_MAX_DEPTH);
         let weight = ensemble.tree_weight();
         let mut base = match ensemble.aggregation {
-            Aggregation::SumLogOdds | Aggregation::SumProbability => ensemble.base_score,
+            Aggregation::SumLogOdds | Aggregation::SumProbability => ensemble.initial_value,
             Aggregation::MeanProbability => 0.0,
         };
         let paths = TreePaths::new(ensemble);

@@ -37,7 +37,7 @@ pub fn count(ensemble: &Ensemble, rows: &[Vec<f64>], weighting: Covers) -> Vec<V
         .map(|t| vec![0.0; t.nodes.len()])
         .collect();
     for x in rows {
-        let mut margin = ensemble.base_score;
+        let mut margin = ensemble.initial_value;
         for (tree, cover) in ensemble.trees.iter().zip(covers.iter_mut()) {
             let w = match weighting {
                 Covers::Rows => 1.0,
@@ -102,7 +102,7 @@ mod tests {
     fn rows_count_each_row_once_per_tree() {
         let e = Ensemble {
             aggregation: Aggregation::SumLogOdds,
-            base_score: 0.0,
+            initial_value: 0.0,
             trees: vec![stump(-1.0, 1.0)],
         };
         let rows = vec![vec![0.0], vec![1.0], vec![f64::NAN]];
@@ -115,7 +115,7 @@ mod tests {
     fn hessian_weights_follow_the_margin() {
         let e = Ensemble {
             aggregation: Aggregation::SumLogOdds,
-            base_score: 0.0,
+            initial_value: 0.0,
             trees: vec![stump(-2.0, 2.0), stump(0.0, 0.0)],
         };
         let c = count(&e, &[vec![1.0]], Covers::Hessian);

@@ -207,7 +207,7 @@ fn operators(
         }
         let spec = ModelSpec::TreeEnsemble(TreeEnsembleSpec {
             aggregation: t.aggregation,
-            base_score: t.base_score,
+            initial_value: t.initial_value,
             trees: t.trees,
         });
         (spec, t.notes)

@@ -18,7 +18,7 @@ use std::collections::HashMap;
 /// The trees, how they combine, and words on how they were read.
 pub struct Trees {
     pub aggregation: Aggregation,
-    pub base_score: f64,
+    pub initial_value: f64,
     pub trees: Vec<TreeSpec>,
     pub notes: Vec<String>,
 }
@@ -174,8 +174,8 @@ pub fn read(shape: &Shape, columns: &[String], link: Link) -> Result<Trees, Impo
             }
         }
     }
-    let base_score = base * scale;
-    if aggregation == Aggregation::SumProbability && !(0.0..=1.0).contains(&base_score) {
+    let initial_value = base * scale;
+    if aggregation == Aggregation::SumProbability && !(0.0..=1.0).contains(&initial_value) {
         return Err(a
             .err("base_values", "must be a probability in [0, 1]")
             .into());
@@ -192,7 +192,7 @@ pub fn read(shape: &Shape, columns: &[String], link: Link) -> Result<Trees, Impo
     ));
     Ok(Trees {
         aggregation,
-        base_score,
+        initial_value,
         trees,
         notes,
     })

@@ -78,7 +78,7 @@ impl Tree {
 #[derive(Debug, Clone, PartialEq)]
 pub struct Ensemble {
     pub aggregation: Aggregation,
-    pub base_score: f64,
+    pub initial_value: f64,
     pub trees: Vec<Tree>,
 }
 
@@ -94,7 +94,7 @@ impl Ensemble {
     pub fn finish(&self, sum: f64) -> f64 {
         match self.aggregation {
             Aggregation::MeanProbability => sum / self.trees.len() as f64,
-            Aggregation::SumLogOdds | Aggregation::SumProbability => self.base_score + sum,
+            Aggregation::SumLogOdds | Aggregation::SumProbability => self.initial_value + sum,
         }
     }
 

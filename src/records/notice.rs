@@ -17,11 +17,28 @@ pub struct Reason {
     pub text: String,
 }
 
+/// The credit score disclosure of FCRA 15 U.S.C. 1681g(f)(1), items (A) to (E).
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ScoreDisclosure {
+    /// (A) The score the decision used.
     pub score: i64,
-    /// Model reasons in the order given: the factors that adversely affected the score.
+    /// (B) The range of possible scores under the model (absent for a decision recorded before
+    /// decisions carried it).
+    pub range: Option<ScoreRange>,
+    /// (C) The key factors that adversely affected the score, in the order the decision gave
+    /// them: the model's factors, the inquiries factor included (1681g(f)(9)); policy rules are
+    /// not score factors.
     pub key_factors: Vec<Reason>,
+    /// (D) The date the score was created: the decision's date (UTC).
+    pub date: String,
+    /// (E) Who provided the score (absent as for `range`).
+    pub provided_by: Option<String>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ScoreRange {
+    pub min: i64,
+    pub max: i64,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -33,8 +50,15 @@ pub struct AdverseAction {
     pub decided_at: String,
     /// `decline`, or `refer` (referred for review: not yet a final action).
     pub outcome: String,
-    /// Every principal reason in the order given, rule reasons first.
+    /// Whether this is the action taken on the application (Regulation B, 12 CFR 1002.9(a)): a
+    /// decline is; a referral is not, the underwriter's decision will be.
+    pub final_action: bool,
+    pub action_note: &'static str,
+    /// Regulation B's statement of specific principal reasons (12 CFR 1002.9(b)(2)), in the
+    /// order given, rule reasons first; an inquiries factor added beyond the policy's limit is a
+    /// score key factor, not a principal reason.
     pub principal_reasons: Vec<Reason>,
+    /// FCRA's score disclosure, a separate list.
     pub credit_score: ScoreDisclosure,
     pub model: ModelIdentity,
     pub source: &'static str,
@@ -57,6 +81,17 @@ pub enum NoNotice {
 
 const CAUTION: &str = "Decision support, not legal advice: the notice's wording, delivery and timing must meet ECOA / Regulation B, FCRA and local law, as reviewed by the lender's compliance counsel.";
 
+const DECLINE_NOTE: &str = "The decline is the action taken on the application; a notice of action taken is due within 30 days of a completed application (12 CFR 1002.9(a)(1)).";
+const REFER_NOTE: &str = "A referral is not a final action: the application awaits an underwriter, and the notice follows the final decision (12 CFR 1002.9(a)); this content is provisional.";
+
+/// Where a reason came from in the decision.
+#[derive(Clone, Copy, PartialEq)]
+enum From {
+    Rule,
+    Model,
+    InquiryExtra,
+}
+
 /// The content for `record`, or why there is none.
 pub fn adverse_action(record: &Record) -> Result<AdverseAction, NoNotice> {
     if record.outcome == "approve" {
@@ -68,7 +103,7 @@ pub fn adverse_action(record: &Record) -> Result<AdverseAction, NoNotice> {
             record.decision_id
         )))
     })?;
-    let reasons: Vec<(Reason, bool)> = response["reasons"]
+    let reasons: Vec<(Reason, From)> = response["reasons"]
         .as_array()
         .map(Vec::as_slice)
         .unwrap_or_default()
@@ -79,22 +114,46 @@ pub fn adverse_action(record: &Record) -> Result<AdverseAction, NoNotice> {
                 code: r["code"].as_str().unwrap_or_default().to_string(),
                 text: r["text"].as_str().unwrap_or_default().to_string(),
             };
-            (reason, r["source"] == "model")
+            let from = match r["source"].as_str() {
+                Some("rule") => From::Rule,
+                Some("inquiry_extra") => From::InquiryExtra,
+                _ => From::Model,
+            };
+            (reason, from)
         })
         .collect();
+    let pick = |keep: &[From]| -> Vec<Reason> {
+        (reasons.iter())
+            .filter(|(_, f)| keep.contains(f))
+            .map(|(r, _)| r.clone())
+            .collect()
+    };
+    let scale = &response["score_scale"];
+    let range = match (scale["min"].as_i64(), scale["max"].as_i64()) {
+        (Some(min), Some(max)) => Some(ScoreRange { min, max }),
+        _ => None,
+    };
+    let decision_date: String = record.decided_at.chars().take(10).collect();
+    let final_action = record.outcome != "refer";
     Ok(AdverseAction {
         decision_id: record.decision_id.clone(),
         application_id: record.application_id.clone(),
-        decision_date: record.decided_at.chars().take(10).collect(),
+        decision_date: decision_date.clone(),
         decided_at: record.decided_at.clone(),
         outcome: record.outcome.clone(),
-        principal_reasons: reasons.iter().map(|(r, _)| r.clone()).collect(),
+        final_action,
+        action_note: if final_action {
+            DECLINE_NOTE
+        } else {
+            REFER_NOTE
+        },
+        principal_reasons: pick(&[From::Rule, From::Model]),
         credit_score: ScoreDisclosure {
             score: record.score,
-            key_factors: (reasons.iter())
-                .filter(|(_, model)| *model)
-                .map(|(r, _)| r.clone())
-                .collect(),
+            range,
+            key_factors: pick(&[From::Model, From::InquiryExtra]),
+            date: decision_date,
+            provided_by: scale["provider"].as_str().map(str::to_string),
         },
         model: ModelIdentity {
             id: record.model_id.clone(),

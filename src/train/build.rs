@@ -19,6 +19,8 @@ pub struct TrainingSpec {
     pub description: String,
     /// Written into the artifact as given (a fixed value keeps rebuilds byte-identical).
     pub created_at: String,
+    /// Who provides the score (the lender, or the model's owner), named in score disclosures.
+    pub score_provider: String,
     /// Outcome column: 1 = defaulted, 0 = repaid.
     pub target: String,
     pub features: Vec<FieldSpec>,
@@ -213,6 +215,7 @@ pub fn assemble(
         "identity": {
             "model_id": spec.model_id, "version": spec.version, "description": spec.description,
             "created_at": spec.created_at, "producer": producer,
+            "score_provider": spec.score_provider,
         },
         "features": spec.features,
         "model": model,

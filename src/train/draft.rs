@@ -95,6 +95,7 @@ pub fn draft(
         "model_id": model_id,
         "version": "0.1.0",
         "description": format!("{DRAFT_MARK} say what this model is for, and who may use it"),
+        "score_provider": format!("{DRAFT_MARK} who provides the score, as disclosures name it (the lender, or the model's owner)"),
         "created_at": humantime::format_rfc3339_seconds(std::time::SystemTime::now()).to_string(),
         "target": target,
         "kind": kind,
@@ -103,7 +104,7 @@ pub fn draft(
         "policy": {
             "approve_below": approve,
             "decline_at_or_above": (approve * 2.0).min(0.99),
-            "scaling": {"points": 600, "odds": 50, "pdo": 20},
+            "scaling": {"points": 600, "odds": 50, "pdo": 20, "min_score": 300, "max_score": 850},
             "max_reasons": 4,
         },
         "reference": {"population": "all_applicants", "label": "All training applicants"},
@@ -189,15 +190,19 @@ fn field(name: &str, kind: Kind, cells: &[&str], rows: usize, code: &str) -> Val
 
 /// Refuses a spec that still holds draft placeholders.
 pub fn check_no_placeholders(spec: &super::build::TrainingSpec) -> Result<(), TrainError> {
-    let left: Vec<String> = std::iter::once(("description".to_string(), &spec.description))
-        .chain(
-            spec.reasons
-                .iter()
-                .map(|r| (format!("reason {}", r.code), &r.text)),
-        )
-        .filter(|(_, t)| t.trim_start().starts_with(DRAFT_MARK))
-        .map(|(w, _)| w)
-        .collect();
+    let left: Vec<String> = [
+        ("description".to_string(), &spec.description),
+        ("score_provider".to_string(), &spec.score_provider),
+    ]
+    .into_iter()
+    .chain(
+        spec.reasons
+            .iter()
+            .map(|r| (format!("reason {}", r.code), &r.text)),
+    )
+    .filter(|(_, t)| t.trim_start().starts_with(DRAFT_MARK))
+    .map(|(w, _)| w)
+    .collect();
     if left.is_empty() {
         return Ok(());
     }

@@ -108,7 +108,7 @@ pub fn tree_section(
     let reference = json!({"population": population, "label": label});
     match population {
         Population::AllApplicants => {
-            json!({"method": "tree_path_dependent", "reference": reference})
+            json!({"method": "tree_cover_weighted", "reference": reference})
         }
         Population::NearApproveCutoff => {
             let step = rows.len().div_ceil(BACKGROUND_ROWS).max(1);

@@ -107,7 +107,7 @@ pub fn random_ensemble(
     let prob = aggregation == Aggregation::MeanProbability;
     Ensemble {
         aggregation,
-        base_score: if prob { 0.0 } else { rng.unit() - 0.5 },
+        initial_value: if prob { 0.0 } else { rng.unit() - 0.5 },
         trees: (0..trees)
             .map(|_| random_tree(rng, columns, max_depth, prob))
             .collect(),

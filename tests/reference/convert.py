@@ -17,7 +17,7 @@ LightGBM (Booster.dump_model()):
                   missing_type "Zero" and categorical splits are rejected.
   * cover = internal_count (split) / leaf_count (leaf): the training-row counts LightGBM's own
     TreeSHAP (pred_contrib) uses. A single-leaf tree gets cover = number of training rows.
-  * leaf value = leaf_value; aggregation sum_log_odds; base_score 0 (LightGBM folds the initial
+  * leaf value = leaf_value; aggregation sum_log_odds; initial_value 0 (LightGBM folds the initial
     score into the first tree's leaves; checked by the callers).
 
 scikit-learn (RandomForestClassifier, sklearn >= 1.4 stores tree_.value as class fractions):
@@ -40,7 +40,7 @@ from typing import Any, Iterable, Sequence
 import numpy as np
 
 FORMAT_TAG = "plumbline.model"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
 CREATED_AT = "2026-12-01T00:00:00Z"
 
 
@@ -218,16 +218,17 @@ def make_artifact(
             "description": description,
             "created_at": CREATED_AT,
             "producer": producer,
+            "score_provider": "plumbline reference fixtures (generated data)",
         },
         "features": features,
         "model": {
             "kind": "tree_ensemble",
             "aggregation": aggregation,
-            "base_score": 0.0,
+            "initial_value": 0.0,
             "trees": trees,
         },
         "explanation": {
-            "method": "tree_path_dependent",
+            "method": "tree_cover_weighted",
             "reference": {"population": "all_applicants", "label": reference_label},
             "background": [applicant(r, feature_names) for r in background],
         },
@@ -235,7 +236,7 @@ def make_artifact(
         "policy": {
             "approve_below": 0.1,
             "decline_at_or_above": 0.3,
-            "scaling": {"points": 600.0, "odds": 50.0, "pdo": 20.0},
+            "scaling": {"points": 600.0, "odds": 50.0, "pdo": 20.0, "min_score": 300.0, "max_score": 850.0},
             "max_reasons": 4,
         },
     }
@@ -258,7 +259,7 @@ class Compiled:
         model = artifact["model"]
         assert model["kind"] == "tree_ensemble"
         self.aggregation = model["aggregation"]
-        self.base_score = float(model.get("base_score", 0.0))
+        self.base_score = float(model.get("initial_value", 0.0))
         self.n_features = len(names)
         self.trees = []
         for t in model["trees"]:

@@ -12,7 +12,7 @@ Every number written is cross-checked before anything is written:
   * every contribution vector adds up (base_value + sum == output) to 1e-9;
   * every contribution vector equals, to 1e-9, the exact Shapley values computed here by
     enumerating all 2^6 coalitions over the artifact (cover-weighted conditional expectation for
-    tree_path_dependent, background average for tree_interventional).
+    tree_cover_weighted (path-dependent), background average for tree_interventional).
 Any failure raises and nothing is written.
 """
 
@@ -128,7 +128,7 @@ def enumerate_exact(comp, X, method, background=None):
     """Exact Shapley values of every row by enumerating all coalitions over the artifact."""
     phis, bases = [], []
     for i in range(X.shape[0]):
-        if method == "tree_path_dependent":
+        if method == "tree_cover_weighted":
             phi, v0 = comp.path_dependent_brute(X[i])
         else:
             phi, v0 = comp.interventional_brute(X[i], background)
@@ -267,7 +267,7 @@ def main(outdir):
 
     raw_c = booster.predict(Xc, raw_score=True, num_threads=1)
     bg_l = Xtr_l[bg_idx]
-    exact_pd = enumerate_exact(lgb_comp, Xc, "tree_path_dependent")
+    exact_pd = enumerate_exact(lgb_comp, Xc, "tree_cover_weighted")
     exact_iv = enumerate_exact(lgb_comp, Xc, "tree_interventional", bg_l)
     all_rows = list(range(N_CASE))
 
@@ -372,7 +372,7 @@ def main(outdir):
     Xfc = Xte[:N_CASE]
     bg_f = Xtr[bg_idx]
     prob_c = forest.predict_proba(Xfc)[:, 1]
-    exactf_pd = enumerate_exact(f_comp, Xfc, "tree_path_dependent")
+    exactf_pd = enumerate_exact(f_comp, Xfc, "tree_cover_weighted")
     exactf_iv = enumerate_exact(f_comp, Xfc, "tree_interventional", bg_f)
 
     exf_pd = shap.TreeExplainer(forest)
@@ -409,7 +409,7 @@ def main(outdir):
         {
             "name": "lightgbm_pred_contrib",
             "artifact": "lightgbm.json",
-            "method": "tree_path_dependent",
+            "method": "tree_cover_weighted",
             "space": "log_odds",
             "source": f"LightGBM {ver['lightgbm']} Booster.predict(X, pred_contrib=True)",
             "tolerance": TOL_EXACT,
@@ -419,7 +419,7 @@ def main(outdir):
         {
             "name": "lightgbm_shap_path_dependent",
             "artifact": "lightgbm.json",
-            "method": "tree_path_dependent",
+            "method": "tree_cover_weighted",
             "space": "log_odds",
             "source": f"shap {ver['shap']} TreeExplainer(booster).shap_values(X) (feature_perturbation tree_path_dependent)",
             "tolerance": TOL_EXACT,
@@ -465,7 +465,7 @@ def main(outdir):
         {
             "name": "forest_shap_path_dependent",
             "artifact": "forest.json",
-            "method": "tree_path_dependent",
+            "method": "tree_cover_weighted",
             "space": "probability",
             "source": f"shap {ver['shap']} TreeExplainer(forest).shap_values(X)[:, :, 1] (class 1)",
             "tolerance": TOL_EXACT,

@@ -113,6 +113,7 @@ def spec(missing_fields=()):
         "version": "1.0.0",
         "description": "Generated reference model for the ONNX import tests; not a credit model",
         "created_at": "2026-12-02T00:00:00Z",
+        "score_provider": "plumbline test fixtures (generated data)",
         "target": "defaulted",
         "kind": "forest",
         "features": [field(i, n) for i, n in enumerate(NAMES)],

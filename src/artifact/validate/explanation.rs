@@ -145,7 +145,7 @@ fn compile_one(
             };
             Ok(Explainer::Linear(LinearExplainer::new(m, reference)))
         }
-        (Scorer::Trees(e), ExplainMethod::TreePathDependent) => {
+        (Scorer::Trees(e), ExplainMethod::TreeCoverWeighted) => {
             Ok(Explainer::PathDependent(PathExplainer::new(e)))
         }
         (Scorer::Trees(e), ExplainMethod::TreeInterventional) => {
@@ -182,7 +182,7 @@ fn compile_one(
         (Scorer::Trees(_), _) => fail(
             format!("{at}.method"),
             "method",
-            "a tree ensemble is explained by tree_path_dependent or tree_interventional",
+            "a tree ensemble is explained by tree_cover_weighted or tree_interventional",
         ),
     };
     explainer.map(|e| (e, background))

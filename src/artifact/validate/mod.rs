@@ -76,6 +76,7 @@ fn check_identity(id: &IdentitySpec) -> Result<()> {
         ("version", &id.version),
         ("created_at", &id.created_at),
         ("producer", &id.producer),
+        ("score_provider", &id.score_provider),
     ] {
         if v.trim().is_empty() {
             return fail(
@@ -427,7 +428,7 @@ fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Re
         ModelSpec::OnnxGraph(g) => compile_graph(g, schema),
         ModelSpec::TreeEnsemble(TreeEnsembleSpec {
             aggregation,
-            base_score,
+            initial_value,
             trees,
         }) => {
             if trees.is_empty() {
@@ -437,24 +438,24 @@ fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Re
                     "an ensemble needs at least one tree",
                 );
             }
-            if !base_score.is_finite() {
-                return fail("$.model.base_score", "finite", "must be a finite number");
+            if !initial_value.is_finite() {
+                return fail("$.model.initial_value", "finite", "must be a finite number");
             }
-            if *aggregation == Aggregation::MeanProbability && *base_score != 0.0 {
+            if *aggregation == Aggregation::MeanProbability && *initial_value != 0.0 {
                 return fail(
-                    "$.model.base_score",
+                    "$.model.initial_value",
                     "aggregation",
                     "mean_probability forests have no base score; use 0",
                 );
             }
-            if *aggregation == Aggregation::SumProbability && !(0.0..=1.0).contains(base_score) {
+            if *aggregation == Aggregation::SumProbability && !(0.0..=1.0).contains(initial_value) {
                 return fail(
-                    "$.model.base_score",
+                    "$.model.initial_value",
                     "probability",
                     "a sum_probability forest's base score is a probability in [0, 1]",
                 );
             }
-            let need_cover = method == ExplainMethod::TreePathDependent;
+            let need_cover = method == ExplainMethod::TreeCoverWeighted;
             let trees = trees
                 .iter()
                 .enumerate()
@@ -462,7 +463,7 @@ fn compile_model(spec: &ModelSpec, schema: &Schema, method: ExplainMethod) -> Re
                 .collect::<Result<Vec<_>>>()?;
             Ok(Scorer::Trees(Ensemble {
                 aggregation: *aggregation,
-                base_score: *base_score,
+                initial_value: *initial_value,
                 trees,
             }))
         }
@@ -736,6 +737,25 @@ fn compile_policy(spec: &PolicySpec, schema: &Schema, reasons: &ReasonTable) -> 
             "finite",
             "must be a finite number",
         );
+    }
+    // A score disclosure states the range of possible scores (FCRA 15 U.S.C. 1681g(f)(1)(B)).
+    for (name, v) in [("min_score", s.min_score), ("max_score", s.max_score)] {
+        if v.is_none() {
+            return fail(
+                format!("$.policy.scaling.{name}"),
+                "required",
+                "a score disclosure states the range of possible scores (FCRA 1681g(f)(1)(B)): give min_score and max_score",
+            );
+        }
+    }
+    for (name, v) in [("min_score", s.min_score), ("max_score", s.max_score)] {
+        if v.is_some_and(|v| v.fract() != 0.0 || v.abs() > 1e9) {
+            return fail(
+                format!("$.policy.scaling.{name}"),
+                "integer",
+                "scores are whole numbers: give the range's ends as whole numbers",
+            );
+        }
     }
     if let (Some(lo), Some(hi)) = (s.min_score, s.max_score) {
         if !(lo.is_finite() && hi.is_finite()) || lo > hi {
