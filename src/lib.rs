@@ -22,6 +22,7 @@ pub mod import;
 pub mod model;
 pub mod onnx;
 pub mod policy;
+pub mod progress;
 pub mod reasons;
 pub mod records;
 pub mod replay;

@@ -222,3 +222,46 @@ fn demo_requests_decide_with_the_trained_model() {
     assert!(scored.status.success(), "{}", text(&scored.stderr));
     assert_eq!(text(&scored.stdout).lines().count(), 300);
 }
+
+/// Long work shows progress on a terminal and nothing of it in a pipe or a log. The terminal is
+/// a pseudo-terminal from util-linux `script` (skipped, said so, where it is missing).
+#[test]
+fn progress_shows_on_a_terminal_only() {
+    let dir = std::env::temp_dir().join(format!("plumbline-progress-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let out_csv = dir.join("apps.csv").display().to_string();
+    let bin = env!("CARGO_BIN_EXE_plumbline");
+    let piped = plumbline(
+        &[
+            "demo-data",
+            "--rows",
+            "50000",
+            "--seed",
+            "1",
+            "--out",
+            &out_csv,
+        ],
+        "",
+    );
+    assert_eq!(piped.status.code(), Some(0));
+    let err = text(&piped.stderr);
+    assert!(
+        !err.contains('\u{1b}') && !err.contains('\r'),
+        "no progress in a pipe: {err:?}"
+    );
+    if Command::new("script").arg("--version").output().is_err() {
+        eprintln!("skipped the terminal half: util-linux `script` is not installed");
+        return;
+    }
+    let cmd = format!("{bin} demo-data --rows 50000 --seed 1 --out {out_csv}");
+    let tty = Command::new("script")
+        .args(["-qec", &cmd, "/dev/null"])
+        .output()
+        .unwrap();
+    assert!(
+        text(&tty.stdout).contains("generating applications"),
+        "{}",
+        text(&tty.stdout)
+    );
+    let _ = std::fs::remove_dir_all(&dir);
+}

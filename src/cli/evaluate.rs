@@ -39,17 +39,14 @@ pub fn run(model: &Path, data: &Path, target: Option<&str>, costs: (f64, f64), j
     };
     let n = set.columns.len();
     let (mut p, mut scores) = (Vec::with_capacity(n), Vec::with_capacity(n));
-    for (i, x) in set.columns.iter().enumerate() {
+    let bar = super::progress::Bar::counting("scoring", n as u64);
+    for x in &set.columns {
         let (pd, log_odds) = model.scorer.probability_and_log_odds(model.scorer.raw(x));
         p.push(pd);
         scores.push(model.policy.scaling.score(log_odds) as f64);
-        if n >= 100_000 && i % (n / 10) == 0 {
-            eprint!("\rscoring {:>3}%", i * 100 / n);
-        }
+        bar.inc(1);
     }
-    if n >= 100_000 {
-        eprintln!("\rscoring 100%");
-    }
+    drop(bar);
     let Some(r) = crate::evaluate::report(
         &p,
         &set.defaulted,

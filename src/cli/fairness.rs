@@ -96,6 +96,8 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
     };
     let mut agg = Aggregator::new(&dims, settings);
     let text = read(&args.decisions)?;
+    let bar = super::progress::Bar::new();
+    crate::progress::Progress::stage(&bar, "reading decisions", None);
     let bad = |n: usize, what: &str| format!("{} line {}: {what}", args.decisions.display(), n + 1);
     if args.decisions.extension().is_some_and(|e| e == "csv") {
         let table = crate::tabular::read(&text)
@@ -120,6 +122,7 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
                     .and_then(|c| c.parse::<f64>().ok())
                     .ok_or_else(|| bad(n, "not a decision summary row"))
             };
+            bar.inc(1);
             agg.add(&DecisionRow {
                 application_id: cell(id).unwrap_or_default(),
                 outcome: cell(outcome).unwrap_or_default(),
@@ -143,6 +146,7 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
             ) else {
                 return Err(bad(n, "not a decision record (application_id, outcome, probability_of_default, score)"));
             };
+            bar.inc(1);
             agg.add(&DecisionRow {
                 application_id: id,
                 outcome,

@@ -2,7 +2,7 @@
 //! reference CSV into a validated artifact.
 
 use super::{EXIT_BAD_INPUT, EXIT_FAILURE};
-use crate::import::{import, Covers, ImportOptions};
+use crate::import::{import_with, Covers, ImportOptions};
 use std::path::Path;
 
 /// Where the import reads from and writes to, and how.
@@ -51,7 +51,10 @@ pub fn run(args: Args) -> i32 {
         background,
         approximate,
     };
-    match import(&onnx, &spec_text, &csv, &options) {
+    let bar = super::progress::Bar::new();
+    let imported = import_with(&onnx, &spec_text, &csv, &options, &bar);
+    drop(bar);
+    match imported {
         Ok((artifact, report)) => {
             if let Err(e) = std::fs::write(out, artifact) {
                 eprintln!("error: cannot write {}: {e}", out.display());

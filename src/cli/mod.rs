@@ -5,6 +5,7 @@ mod evaluate;
 mod fairness;
 mod import;
 mod inspect;
+mod progress;
 mod records;
 mod replay;
 mod score;

@@ -161,11 +161,16 @@ fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, Strin
             let q = query(filters).map_err(bad)?;
             write(format.header().unwrap_or_default())?;
             let mut problem = None;
+            let bar = super::progress::Bar::new();
+            crate::progress::Progress::stage(&bar, "exporting decisions", None);
             store
                 .export(
                     &q,
                     &mut |r| match format.line(r).map_err(failed).and_then(|l| write(&l)) {
-                        Ok(()) => true,
+                        Ok(()) => {
+                            bar.inc(1);
+                            true
+                        }
                         Err(e) => {
                             problem = Some(e);
                             false

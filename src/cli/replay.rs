@@ -162,10 +162,15 @@ pub fn run(args: ReplayArgs) -> i32 {
             Err(code) => return code,
         }
     };
+    let bar = super::progress::Bar::counting("deciding again", cases.len() as u64);
     let results: Vec<_> = cases
         .iter()
-        .map(|c| compare(c, against.decide(&c.request), args.tolerance))
+        .map(|c| {
+            bar.inc(1);
+            compare(c, against.decide(&c.request), args.tolerance)
+        })
         .collect();
+    drop(bar);
     let names: Vec<(String, String)> = results
         .iter()
         .map(|r| (r.name.clone(), r.application_id.clone()))

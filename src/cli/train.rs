@@ -27,7 +27,10 @@ pub fn train(
             return EXIT_BAD_INPUT;
         }
     };
-    match crate::train::build::train(&spec, &csv, folds, seed) {
+    let bar = super::progress::Bar::new();
+    let trained = crate::train::build::train_with(&spec, &csv, folds, seed, &bar);
+    drop(bar);
+    match trained {
         Ok((artifact, report)) => {
             if let Err(e) = std::fs::write(out, artifact) {
                 eprintln!("error: cannot write {}: {e}", out.display());
@@ -81,7 +84,9 @@ pub fn demo_data(
         eprintln!("error: --rows must be 1 to 10000000");
         return EXIT_BAD_INPUT;
     }
-    let (apps, group_csv) = crate::train::demo_data::applications_csv(rows, seed);
+    let bar = super::progress::Bar::new();
+    let (apps, group_csv) = crate::train::demo_data::applications_csv_with(rows, seed, &bar);
+    drop(bar);
     let request_lines = requests.map(|_| crate::train::demo_data::requests_jsonl(&apps));
     let mut writes = vec![(out, apps)];
     if let (Some(r), Some(lines)) = (requests, request_lines) {

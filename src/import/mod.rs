@@ -251,6 +251,18 @@ pub fn import(
     csv: &str,
     options: &ImportOptions,
 ) -> Result<(String, ImportReport), ImportError> {
+    import_with(onnx_bytes, spec_text, csv, options, &crate::progress::Quiet)
+}
+
+/// As [`import`], naming each stage to `progress`.
+pub fn import_with(
+    onnx_bytes: &[u8],
+    spec_text: &str,
+    csv: &str,
+    options: &ImportOptions,
+    progress: &dyn crate::progress::Progress,
+) -> Result<(String, ImportReport), ImportError> {
+    progress.stage("reading the model", None);
     let raw: Value =
         serde_json::from_str(spec_text).map_err(|e| ImportError::Spec(e.to_string()))?;
     let ignored: Vec<&str> = TRAINING_ONLY
@@ -314,9 +326,11 @@ pub fn import(
     let invalid = |e: crate::ArtifactError| ImportError::Artifact(e.to_string());
     let scorer = crate::artifact::scorer_from_spec(&body.spec, &schema).map_err(invalid)?;
 
+    progress.stage("checking the reference rows", None);
     let data = dataset::read_csv(csv, &schema, &spec.target)
         .map_err(|e| ImportError::Data(e.to_string()))?;
     let (x, y) = (&data.columns, &data.defaulted);
+    progress.stage("scoring the reference rows and counting covers", None);
     if let (crate::model::Scorer::Trees(ensemble), ModelSpec::TreeEnsemble(tree_body)) =
         (&scorer, &mut body.spec)
     {
@@ -379,6 +393,7 @@ pub fn import(
     } else {
         (None, 0)
     };
+    progress.stage("reference populations, notes and checks", None);
     let mut primary_done = false;
     let (explanation, reference_notes) = reference::explanation(
         &spec.reference,

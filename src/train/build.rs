@@ -7,6 +7,7 @@ use super::{reference, Rng};
 use crate::artifact::spec::{FieldSpec, PolicySpec, Population, ReasonSpec};
 use crate::evaluate::stability;
 use crate::features::Schema;
+use crate::progress::Progress;
 use serde::Deserialize;
 use serde_json::{json, Value};
 
@@ -266,7 +267,19 @@ pub fn train_logistic(
     folds: usize,
     seed: u64,
 ) -> Result<(String, TrainReport), TrainError> {
+    logistic_with(spec, csv, folds, seed, &crate::progress::Quiet)
+}
+
+fn logistic_with(
+    spec: &TrainingSpec,
+    csv: &str,
+    folds: usize,
+    seed: u64,
+    progress: &dyn Progress,
+) -> Result<(String, TrainReport), TrainError> {
+    progress.stage("reading the training rows", None);
     let (data, names) = prepare(spec, csv, folds, false)?;
+    progress.stage("fitting (each fold, then all rows)", Some(folds as u64 + 1));
     let (x, y) = (&data.columns, &data.defaulted);
     let fit_err = |e: logistic::FitError| match e {
         logistic::FitError::Constant(j) => TrainError::Fit(format!(
@@ -276,13 +289,16 @@ pub fn train_logistic(
         other => TrainError::Fit(other.to_string()),
     };
     let model = logistic::fit(x, y, spec.l2).map_err(fit_err)?;
+    progress.advance(1);
 
     let cv_auc = cross_validate(y, folds, seed, |train, test| {
         let xs: Vec<Vec<f64>> = train.iter().map(|&i| x[i].clone()).collect();
         let ys: Vec<bool> = train.iter().map(|&i| y[i]).collect();
         let m = logistic::fit(&xs, &ys, spec.l2).map_err(fit_err)?;
+        progress.advance(1);
         Ok(test.iter().map(|&i| m.log_odds(&x[i])).collect())
     })?;
+    progress.stage("reference populations, stability bins, checks", None);
 
     let p: Vec<f64> = (x.iter())
         .map(|r| crate::model::sigmoid(model.log_odds(r)))
@@ -344,10 +360,21 @@ pub fn train(
     folds: usize,
     seed: u64,
 ) -> Result<(String, TrainReport), TrainError> {
+    train_with(spec, csv, folds, seed, &crate::progress::Quiet)
+}
+
+/// As [`train`], reporting each fit (one per fold, then on all rows) to `progress`.
+pub fn train_with(
+    spec: &TrainingSpec,
+    csv: &str,
+    folds: usize,
+    seed: u64,
+    progress: &dyn Progress,
+) -> Result<(String, TrainReport), TrainError> {
     super::draft::check_no_placeholders(spec)?;
     match spec.kind {
-        ModelKind::Logistic => train_logistic(spec, csv, folds, seed),
-        ModelKind::Forest => train_forest(spec, csv, folds, seed),
+        ModelKind::Logistic => logistic_with(spec, csv, folds, seed, progress),
+        ModelKind::Forest => forest_with(spec, csv, folds, seed, progress),
     }
 }
 
@@ -358,6 +385,16 @@ pub fn train_forest(
     csv: &str,
     folds: usize,
     seed: u64,
+) -> Result<(String, TrainReport), TrainError> {
+    forest_with(spec, csv, folds, seed, &crate::progress::Quiet)
+}
+
+fn forest_with(
+    spec: &TrainingSpec,
+    csv: &str,
+    folds: usize,
+    seed: u64,
+    progress: &dyn Progress,
 ) -> Result<(String, TrainReport), TrainError> {
     let params = spec.forest.ok_or_else(|| {
         TrainError::Spec(
@@ -372,6 +409,7 @@ pub fn train_forest(
             "forest: trees 1-1000, max_depth 1-40, min_samples_leaf at least 1".into(),
         ));
     }
+    progress.stage("reading the training rows", None);
     let (data, names) = prepare(spec, csv, folds, true)?;
     let (x, y) = (&data.columns, &data.defaulted);
     let positives = y.iter().filter(|&&d| d).count();
@@ -381,16 +419,26 @@ pub fn train_forest(
             y.len()
         )));
     }
+    progress.stage(
+        "fitting forests (all rows, then each fold)",
+        Some(folds as u64 + 1),
+    );
     let trees = super::forest::fit(x, y, &names, params, seed).map_err(TrainError::Fit)?;
+    progress.advance(1);
 
     let cv_auc = cross_validate(y, folds, seed, |train, test| {
         let xs: Vec<Vec<f64>> = train.iter().map(|&i| x[i].clone()).collect();
         let ys: Vec<bool> = train.iter().map(|&i| y[i]).collect();
         let m = super::forest::fit(&xs, &ys, &names, params, seed).map_err(TrainError::Fit)?;
+        progress.advance(1);
         let rows: Vec<&[f64]> = test.iter().map(|&i| x[i].as_slice()).collect();
         Ok(forest_scores(&m, &names, &rows))
     })?;
 
+    progress.stage(
+        "reference populations, partial dependence, stability bins, checks",
+        None,
+    );
     let all: Vec<&[f64]> = x.iter().map(Vec::as_slice).collect();
     let p = forest_scores(&trees, &names, &all);
     let (explanation, mut notes) = reference::explanation(

@@ -158,6 +158,16 @@ fn tenth(v: f64) -> String {
 
 /// The applications CSV (header + one line per application).
 pub fn applications_csv(rows: usize, seed: u64) -> (String, String) {
+    applications_csv_with(rows, seed, &crate::progress::Quiet)
+}
+
+/// As [`applications_csv`], counting rows to `progress`.
+pub fn applications_csv_with(
+    rows: usize,
+    seed: u64,
+    progress: &dyn crate::progress::Progress,
+) -> (String, String) {
+    progress.stage("generating applications", Some(rows as u64));
     let mut rng = Rng::new(seed);
     let mut apps = String::with_capacity(rows * 96);
     let mut groups = String::with_capacity(rows * 48);
@@ -183,6 +193,9 @@ pub fn applications_csv(rows: usize, seed: u64) -> (String, String) {
         );
         let g: Vec<String> = a.groups.iter().map(|p| format!("{p:.4}")).collect();
         let _ = writeln!(groups, "{},{}", a.id, g.join(","));
+        if i % 10_000 == 9_999 {
+            progress.advance(10_000);
+        }
     }
     (apps, groups)
 }
