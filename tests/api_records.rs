@@ -386,3 +386,199 @@ fn adverse_action_content_as_the_law_reads_it() {
     assert_eq!(principal[0], "AMT_LIMIT");
     assert!(!codes(&n["credit_score"]["key_factors"]).contains(&"AMT_LIMIT".to_string()));
 }
+
+/// Final actions on referrals (12 CFR 1002.9(a): the underwriter's decision is the action taken),
+/// recorded append-only beside the decision, on both stores.
+fn final_actions(store: Option<String>) {
+    use common::server::UNDERWRITING;
+    let server = match store {
+        Some(s) => TestServer::start_with(
+            vec![PathBuf::from("models/fernhill-logistic.json")],
+            demo_auth(),
+            Limits::default(),
+            Some(s),
+        ),
+        None => TestServer::demo(),
+    };
+    let refer: Value = serde_json::from_str(
+        &std::fs::read_to_string("demo-requests/03-refer-amount-rule.json").unwrap(),
+    )
+    .unwrap();
+    let mut body = refer["request"]["body"].clone();
+    body["application_id"] = "FH-FINAL-1".into();
+    let (status, text, _) = post(&server, &body.to_string());
+    assert_eq!(status, 200, "{text}");
+    let referral: Value = serde_json::from_str(&text).unwrap();
+    assert_eq!(referral["outcome"], "refer");
+    let id = referral["record"]["decision_id"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    let path = format!("/v1/decisions/{id}/final-action");
+    let act = |key: &str, body: &Value| {
+        send(
+            "POST",
+            &server.url(&path),
+            Some(key),
+            JSON,
+            Some(&body.to_string()),
+        )
+    };
+
+    // Pending before: the search finds the referral as awaiting a final action.
+    let (_, _, page) = review(
+        &server,
+        "/v1/decisions?final_action=pending&application_id=FH-FINAL-1",
+    );
+    let page: Value = serde_json::from_str(&page).unwrap();
+    assert_eq!(page["decisions"].as_array().unwrap().len(), 1);
+
+    // Who may record it, and what a final action must hold.
+    let decline =
+        json!({"action": "decline", "reasons": ["MR_DOCS", "AMT"], "note": "pay slips missing"});
+    assert_eq!(act(SCORING, &decline).0, 403);
+    assert_eq!(act(REVIEW, &decline).0, 403);
+    let (s, _, e) = act(UNDERWRITING, &json!({"action": "decline", "reasons": []}));
+    assert!(
+        s == 422 && e.contains("\"field\":\"reasons\"") && e.contains("required"),
+        "{e}"
+    );
+    let (s, _, e) = act(
+        UNDERWRITING,
+        &json!({"action": "decline", "reasons": ["NOPE"]}),
+    );
+    assert!(
+        s == 422 && e.contains("reasons[0]") && e.contains("reason_table"),
+        "{e}"
+    );
+    let (s, _, e) = act(
+        UNDERWRITING,
+        &json!({"action": "approve", "reasons": ["AMT"]}),
+    );
+    assert!(
+        s == 422 && e.contains("only a decline gives reasons"),
+        "{e}"
+    );
+    let (s, _, e) = act(UNDERWRITING, &json!({"action": "maybe"}));
+    assert!(s == 422 && e.contains("\"field\":\"action\""), "{e}");
+
+    // Recorded once, by the key's name, with the reasons' texts; a repeat is the stored answer.
+    let (s, _, text) = act(UNDERWRITING, &decline);
+    assert_eq!(s, 201, "{text}");
+    let given: Value = serde_json::from_str(&text).unwrap();
+    assert_eq!(given["final_action"]["decided_by"], "demo-underwriting");
+    assert_eq!(given["final_action"]["reasons"][0]["source"], "review");
+    assert!(given["final_action"]["reasons"][0]["text"]
+        .as_str()
+        .unwrap()
+        .contains("verified"));
+    let (s, _, again) = act(UNDERWRITING, &decline);
+    assert_eq!((s, again.as_str()), (200, text.as_str()));
+    let (s, _, e) = act(UNDERWRITING, &json!({"action": "approve"}));
+    assert!(s == 409 && e.contains("final-action-recorded"), "{e}");
+
+    // The record shows it; the original decision is untouched.
+    let (_, _, rec) = review(&server, &format!("/v1/decisions/{id}"));
+    let rec: Value = serde_json::from_str(&rec).unwrap();
+    assert_eq!(rec["final_action"]["action"], "decline");
+    assert_eq!(rec["response"], referral);
+    assert_eq!(
+        send(
+            "GET",
+            &server.url(&format!("/v1/decisions/{id}")),
+            Some(UNDERWRITING),
+            None,
+            None
+        )
+        .0,
+        200
+    );
+
+    // The notice follows the final action: its reasons and date, a final action.
+    let (_, _, n) = review(&server, &format!("/v1/decisions/{id}/adverse-action"));
+    let n: Value = serde_json::from_str(&n).unwrap();
+    assert_eq!(n["final_action"], true);
+    assert_eq!(n["outcome"], "decline");
+    let codes: Vec<&str> = (n["principal_reasons"].as_array().unwrap().iter())
+        .map(|r| r["code"].as_str().unwrap())
+        .collect();
+    assert_eq!(codes, ["MR_DOCS", "AMT"]);
+    assert_eq!(n["decided_at"], given["final_action"]["decided_at"]);
+    assert_eq!(
+        n["credit_score"]["score"], referral["score"],
+        "the score disclosure is the decision's"
+    );
+
+    // Search and export see it.
+    let (_, _, page) = review(&server, "/v1/decisions?final_action=decline");
+    let page: Value = serde_json::from_str(&page).unwrap();
+    assert!(page["decisions"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|d| d["decision_id"] == id.as_str()));
+    let (_, _, page) = review(
+        &server,
+        "/v1/decisions?final_action=pending&application_id=FH-FINAL-1",
+    );
+    assert_eq!(
+        serde_json::from_str::<Value>(&page).unwrap()["decisions"]
+            .as_array()
+            .unwrap()
+            .len(),
+        0
+    );
+    let (_, _, csv) = review(
+        &server,
+        "/v1/decisions/export?format=csv&final_action=recorded",
+    );
+    assert!(csv
+        .lines()
+        .next()
+        .unwrap()
+        .ends_with(",final_action,final_action_at,final_action_by,final_reason_codes"));
+    assert!(
+        csv.contains(",decline,") && csv.contains(",demo-underwriting,MR_DOCS;AMT"),
+        "{csv}"
+    );
+    assert_eq!(review(&server, "/v1/decisions?final_action=soon").0, 400);
+
+    // Only referrals take one; unknown decisions are 404.
+    let (_, text, _) = post(&server, &approvable("FH-FINAL-2"));
+    let approved: Value = serde_json::from_str(&text).unwrap();
+    let other = format!(
+        "/v1/decisions/{}/final-action",
+        approved["record"]["decision_id"].as_str().unwrap()
+    );
+    let (s, _, e) = send(
+        "POST",
+        &server.url(&other),
+        Some(UNDERWRITING),
+        JSON,
+        Some(&json!({"action": "approve"}).to_string()),
+    );
+    assert!(s == 409 && e.contains("not-a-referral"), "{e}");
+    let missing = "/v1/decisions/00000000-0000-7000-8000-000000000000/final-action";
+    assert_eq!(
+        send(
+            "POST",
+            &server.url(missing),
+            Some(UNDERWRITING),
+            JSON,
+            Some("{\"action\":\"approve\"}")
+        )
+        .0,
+        404
+    );
+}
+
+#[test]
+fn final_actions_on_sqlite() {
+    final_actions(None);
+}
+
+#[test]
+fn final_actions_on_postgres() {
+    let Some(db) = stores::postgres() else { return };
+    final_actions(Some(db.url.clone()));
+}

@@ -33,6 +33,7 @@ fn labelled(groups: &[(&str, usize, usize)], settings: Settings) -> Report {
         agg.add(&DecisionRow {
             application_id: id,
             outcome,
+            final_action: None,
             probability: *p,
             score: 600.0 - 1000.0 * p,
         });
@@ -118,6 +119,7 @@ fn weighted_rates_follow_the_hand_worked_example() {
         agg.add(&DecisionRow {
             application_id: id,
             outcome,
+            final_action: None,
             probability: 0.05,
             score: 600.0,
         });
@@ -159,12 +161,14 @@ fn refer_counting_is_a_stated_choice() {
             agg.add(&DecisionRow {
                 application_id: &format!("a{i}"),
                 outcome: if i < 20 { "approve" } else { "refer" },
+                final_action: None,
                 probability: 0.1,
                 score: 600.0,
             });
             agg.add(&DecisionRow {
                 application_id: &format!("b{i}"),
                 outcome: if i < 20 { "approve" } else { "decline" },
+                final_action: None,
                 probability: 0.1,
                 score: 600.0,
             });
@@ -188,6 +192,7 @@ fn unmatched_data_small_groups_and_single_groups_are_reported() {
         agg.add(&DecisionRow {
             application_id: id,
             outcome: "approve",
+            final_action: None,
             probability: 0.05,
             score: 600.0,
         });

@@ -26,6 +26,7 @@ fn record(n: usize, key: Option<&str>, decided_at: &str, outcome: &str) -> Recor
         // Unicode, escapes and key order must survive byte for byte.
         request: format!("{{\"application_id\":\"FH-TEST-{n}\",\"applicant\":{{\"z\":1,\"a\":\"caf\\u00e9 ✓\"}}}}"),
         response: format!("{{\"outcome\":\"{outcome}\",\"probability_of_default\":0.1000000000000000055511151231257827,\"n\":{n}}}"),
+        final_action: None,
     }
 }
 

@@ -78,6 +78,7 @@ fn approvals_to_remove_significance_match_scipy() {
             agg.add(&DecisionRow {
                 application_id: id,
                 outcome,
+                final_action: None,
                 probability: 0.1,
                 score: 600.0,
             });

@@ -11,8 +11,10 @@ use sha2::{Digest, Sha256};
 pub enum Role {
     /// Loan-origination systems: decide, list models.
     Scoring,
-    /// Compliance staff: records and fairness reports (later), list models.
+    /// Compliance staff: records and fairness reports, list models.
     Review,
+    /// Underwriters: record the final action on a referred decision, read that decision.
+    Underwriting,
     /// Operators: everything, including model reload.
     Admin,
 }
@@ -22,6 +24,7 @@ impl Role {
         match self {
             Role::Scoring => "scoring",
             Role::Review => "review",
+            Role::Underwriting => "underwriting",
             Role::Admin => "admin",
         }
     }
@@ -121,6 +124,15 @@ impl Auth {
         authorization: Option<&str>,
         allowed: &[Role],
     ) -> Result<Option<Role>, Problem> {
+        Ok(self.caller(authorization, allowed)?.map(|k| k.role))
+    }
+
+    /// As [`Self::check`], the caller's key (its name and role); `None` when auth is off.
+    pub fn caller(
+        &self,
+        authorization: Option<&str>,
+        allowed: &[Role],
+    ) -> Result<Option<Key>, Problem> {
         let Some(keys) = &self.0 else {
             return Ok(None);
         };
@@ -134,7 +146,7 @@ impl Auth {
             .and_then(|k| keys.find(k))
             .ok_or_else(Problem::unauthorized)?;
         if key.role == Role::Admin || allowed.contains(&key.role) {
-            Ok(Some(key.role))
+            Ok(Some(key.clone()))
         } else {
             let needed = allowed
                 .iter()

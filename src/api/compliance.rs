@@ -14,14 +14,20 @@ use std::sync::Arc;
 use utoipa::ToSchema;
 
 const REVIEWERS: &[Role] = &[Role::Review];
+/// One decision may also be read by an underwriter settling it.
+const READERS_OF_ONE: &[Role] = &[Role::Review, Role::Underwriting];
 /// Page size when `limit` is not given.
 pub const DEFAULT_PAGE: usize = 100;
 /// Export chunks are flushed at about this size.
 const CHUNK_BYTES: usize = 64 * 1024;
 
 fn store(state: &State, req: &HttpRequest) -> Result<Arc<dyn Store>, Problem> {
+    store_for(state, req, REVIEWERS)
+}
+
+fn store_for(state: &State, req: &HttpRequest, roles: &[Role]) -> Result<Arc<dyn Store>, Problem> {
     let header = (req.headers().get("authorization")).and_then(|v| v.to_str().ok());
-    state.auth.check(header, REVIEWERS)?;
+    state.auth.check(header, roles)?;
     let recorder = state.recorder.as_ref().ok_or_else(Problem::records_off)?;
     Ok(recorder.store().clone())
 }
@@ -36,8 +42,13 @@ async fn blocking<T: Send + 'static>(
 }
 
 /// The record of decision `id` for a reviewer (404 when none is recorded).
-async fn recorded(state: &State, req: &HttpRequest, id: &str) -> Result<Record, Problem> {
-    let store = store(state, req)?;
+async fn recorded(
+    state: &State,
+    req: &HttpRequest,
+    id: &str,
+    roles: &[Role],
+) -> Result<Record, Problem> {
+    let store = store_for(state, req, roles)?;
     let key = id.to_string();
     blocking(move || store.get(&key))
         .await?
@@ -50,7 +61,7 @@ async fn recorded(state: &State, req: &HttpRequest, id: &str) -> Result<Record, 
     responses(
         (status = 200, description = "The record; `request` and `response` are the stored JSON, byte for byte", content_type = "application/json"),
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
-        (status = 403, description = "Only review keys may read records", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "Only review (or underwriting) keys may read a record", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such decision, or records are off", body = Problem, content_type = "application/problem+json"),
     ),
     security(("api_key" = [])))]
@@ -60,7 +71,7 @@ pub async fn get_decision(
     id: web::Path<String>,
 ) -> Result<HttpResponse, Problem> {
     let id = id.into_inner();
-    let record = recorded(&state, &req, &id).await?;
+    let record = recorded(&state, &req, &id, READERS_OF_ONE).await?;
     let body = record.view().map_err(|e| Problem::store_failed(&e))?;
     Ok(HttpResponse::Ok()
         .content_type("application/json")
@@ -84,10 +95,18 @@ pub async fn adverse_action(
     id: web::Path<String>,
 ) -> Result<HttpResponse, Problem> {
     let id = id.into_inner();
-    let record = recorded(&state, &req, &id).await?;
+    let record = recorded(&state, &req, &id, REVIEWERS).await?;
     match notice::adverse_action(&record) {
         Ok(n) => Ok(HttpResponse::Ok().json(n)),
         Err(notice::NoNotice::Approved) => Err(Problem::no_adverse_action(&id)),
+        Err(notice::NoNotice::ApprovedOnReview) => Err(Problem::no_adverse_action_because(
+            &id,
+            "the referral was approved by an underwriter",
+        )),
+        Err(notice::NoNotice::Withdrawn) => Err(Problem::no_adverse_action_because(
+            &id,
+            "the applicant withdrew (12 CFR 1002.9(e): no notice of action taken is owed)",
+        )),
         Err(notice::NoNotice::Damaged(e)) => Err(Problem::store_failed(&e)),
     }
 }
@@ -146,6 +165,7 @@ pub struct SearchPage {
         ("outcome" = Option<String>, Query, description = "approve, refer or decline"),
         ("model_id" = Option<String>, Query, description = "model id"),
         ("model_version" = Option<String>, Query, description = "model version"),
+        ("final_action" = Option<String>, Query, description = "pending (referred, none recorded), recorded, approve, decline or withdrawn"),
         ("cursor" = Option<String>, Query, description = "next_cursor of the previous page"),
         ("limit" = Option<usize>, Query, description = "page size, 1-500 (default 100)"),
     ),
@@ -205,6 +225,7 @@ pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
         ("outcome" = Option<String>, Query, description = "approve, refer or decline"),
         ("model_id" = Option<String>, Query, description = "model id"),
         ("model_version" = Option<String>, Query, description = "model version"),
+        ("final_action" = Option<String>, Query, description = "pending (referred, none recorded), recorded, approve, decline or withdrawn"),
     ),
     responses(
         (status = 200, description = "Records oldest first, streamed", content_type = "application/x-ndjson"),

@@ -39,9 +39,14 @@ pub struct ReportRequest {
     pub model_version: Option<String>,
     /// Control group; default the largest-rate group of at least the minimum size.
     pub control: Option<String>,
-    /// `not_approved` (default) or `excluded`.
+    /// `not_approved` (default), `excluded`, or `final` (the underwriter's final action where
+    /// one is recorded).
     #[schema(value_type = Option<String>)]
     pub refer: Option<Refer>,
+    /// With `refer: final`, how a referral without a final action counts: `not_approved`
+    /// (default) or `excluded`.
+    #[schema(value_type = Option<String>)]
+    pub refer_without_final_action: Option<Refer>,
     pub min_group_size: Option<f64>,
     pub sum_tolerance: Option<f64>,
     /// Approve cutoffs (probability of default) for the sweep; default 0.02 to 0.30.
@@ -56,8 +61,26 @@ fn settings(r: &ReportRequest) -> Result<Settings, Problem> {
     let mut s = Settings {
         control: r.control.clone(),
         refer: r.refer.unwrap_or(Refer::NotApproved),
+        refer_without_final: r.refer_without_final_action.unwrap_or(Refer::NotApproved),
         ..Settings::default()
     };
+    match (s.refer, r.refer_without_final_action) {
+        (_, Some(Refer::Final)) => {
+            return Err(invalid(
+                "refer_without_final_action",
+                "one_of",
+                "not_approved or excluded",
+            ))
+        }
+        (Refer::NotApproved | Refer::Excluded, Some(_)) => {
+            return Err(invalid(
+                "refer_without_final_action",
+                "refer_final",
+                "only with refer: final",
+            ))
+        }
+        _ => {}
+    }
     if let Some(m) = r.min_group_size {
         if !(m.is_finite() && m >= 1.0) {
             return Err(invalid("min_group_size", "range", "must be at least 1"));
@@ -185,6 +208,7 @@ pub async fn create_report(
             agg.add(&DecisionRow {
                 application_id: &r.application_id,
                 outcome: &r.outcome,
+                final_action: r.final_action.as_ref().map(|f| f.action.as_str()),
                 probability: r.probability,
                 score: r.score as f64,
             });

@@ -14,6 +14,7 @@ pub mod problem;
 mod recording;
 pub mod registry;
 mod routes;
+mod underwriting;
 
 use actix_web::dev::{ServerHandle, Service};
 use actix_web::{web, App, HttpServer};
@@ -175,6 +176,10 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
             .service(resource("/v1/decisions/batch", web::post().to(batch::post_batch)))
             .service(resource("/v1/decisions/export", web::get().to(compliance::export)))
             .service(resource("/v1/decisions/{id}", web::get().to(compliance::get_decision)))
+            .service(resource(
+                "/v1/decisions/{id}/final-action",
+                web::post().to(underwriting::post_final_action),
+            ))
             .service(resource(
                 "/v1/decisions/{id}/adverse-action",
                 web::get().to(compliance::adverse_action),

@@ -246,6 +246,51 @@ impl Problem {
         )
     }
 
+    pub fn no_adverse_action_because(id: &str, why: &str) -> Self {
+        Problem::new(
+            StatusCode::CONFLICT,
+            "/problems/no-adverse-action",
+            "No adverse action was taken on this application",
+            format!("decision {id}: {why}"),
+        )
+    }
+
+    pub fn not_a_referral(id: &str, outcome: &str) -> Self {
+        Problem::new(
+            StatusCode::CONFLICT,
+            "/problems/not-a-referral",
+            "Only a referred decision takes a final action",
+            format!("decision {id} was a(n) {outcome}, which is itself the action taken"),
+        )
+        .with(
+            "decision_id",
+            "referral",
+            "must be the id of a referred decision",
+        )
+    }
+
+    pub fn model_not_loaded(id: &str, version: &str) -> Self {
+        Problem::new(
+            StatusCode::CONFLICT,
+            "/problems/model-not-loaded",
+            "The decision's model is not loaded",
+            format!("the decision was made by {id} version {version}, whose reason lists check a final action's reasons; load that artifact (it may run beside the champion)"),
+        )
+    }
+
+    pub fn final_action_recorded(id: &str, earlier: &crate::records::FinalAction) -> Self {
+        Problem::new(
+            StatusCode::CONFLICT,
+            "/problems/final-action-recorded",
+            "A final action is already recorded for this decision",
+            format!(
+                "decision {id} has a final action ({}) recorded at {} by {}; final actions are append-only, and only the same request repeats",
+                earlier.action, earlier.decided_at, earlier.decided_by
+            ),
+        )
+        .with("decision_id", "one_final_action", "a decision takes one final action")
+    }
+
     /// A bad query-string parameter: which one and the rule.
     pub fn bad_query(param: &str, rule: &'static str, message: impl Into<String>) -> Self {
         let message = message.into();

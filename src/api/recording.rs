@@ -58,6 +58,7 @@ pub fn record_for(
         score: decision.score,
         request: String::from_utf8(canonical).unwrap_or_default(),
         response,
+        final_action: None,
     }
 }
 

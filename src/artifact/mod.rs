@@ -58,6 +58,8 @@ pub struct LoadedModel {
     pub explainer: Explainer,
     pub reference: ReferenceSpec,
     pub reasons: ReasonTable,
+    /// The lender's manual-review reasons (for final actions on referrals).
+    pub review_reasons: Vec<crate::reasons::Reason>,
     pub policy: Policy,
     /// Encoded rows of the artifact's background sample (empty when it has none).
     pub background: Vec<Vec<f64>>,

@@ -21,6 +21,8 @@ struct Envelope {
     model: ModelBody,
     explanation: ExplanationSpec,
     reasons: Vec<ReasonSpec>,
+    #[serde(default)]
+    review_reasons: Vec<ReasonSpec>,
     policy: PolicySpec,
     #[serde(default)]
     stability: Option<StabilitySpec>,
@@ -80,6 +82,7 @@ pub fn parse(bytes: &[u8]) -> Result<ArtifactSpec, ArtifactError> {
         model,
         explanation: e.explanation,
         reasons: e.reasons,
+        review_reasons: e.review_reasons,
         policy: e.policy,
         stability: e.stability,
         provenance: e.provenance,

@@ -21,6 +21,10 @@ pub struct ArtifactSpec {
     pub model: ModelSpec,
     pub explanation: ExplanationSpec,
     pub reasons: Vec<ReasonSpec>,
+    /// The lender's reasons for an underwriter's decision on a referral (manual review), beside
+    /// the model's reason table; a final action's reasons come from either list.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub review_reasons: Vec<ReasonSpec>,
     pub policy: PolicySpec,
     /// Distributions of the inputs and the score on the development data, for stability checks.
     #[serde(default, skip_serializing_if = "Option::is_none")]

@@ -23,9 +23,14 @@ pub struct FairnessArgs {
     /// Control group (default: the largest-rate group of at least the minimum size).
     #[arg(long)]
     control: Option<String>,
-    /// How refer outcomes count: not-approved (default) or excluded.
+    /// How refer outcomes count: not-approved (default), excluded, or final (the underwriter's
+    /// final action where one is recorded).
     #[arg(long, default_value = "not-approved")]
     refer: String,
+    /// With --refer final: how a referral without a final action counts (not-approved or
+    /// excluded).
+    #[arg(long, default_value = "not-approved")]
+    refer_without_final: String,
     /// Groups with fewer (effective) applications get no ratio.
     #[arg(long, default_value_t = crate::fairness::report::MIN_GROUP_SIZE)]
     min_group_size: f64,
@@ -68,7 +73,13 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
     let refer = match args.refer.as_str() {
         "not-approved" => Refer::NotApproved,
         "excluded" => Refer::Excluded,
-        _ => return Err("--refer must be not-approved or excluded".into()),
+        "final" => Refer::Final,
+        _ => return Err("--refer must be not-approved, excluded or final".into()),
+    };
+    let refer_without_final = match args.refer_without_final.as_str() {
+        "not-approved" => Refer::NotApproved,
+        "excluded" => Refer::Excluded,
+        _ => return Err("--refer-without-final must be not-approved or excluded".into()),
     };
     if !(args.min_group_size.is_finite() && args.min_group_size >= 1.0) {
         return Err("--min-group-size must be at least 1".into());
@@ -91,6 +102,7 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
     let settings = Settings {
         control: args.control.clone(),
         refer,
+        refer_without_final,
         min_group_size: args.min_group_size,
         ..Settings::default()
     };
@@ -113,6 +125,8 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
             col("probability_of_default")?,
             col("score")?,
         );
+        // Exports written before final actions existed have no such column.
+        let final_at = table.column("final_action");
         let bad = |n: usize, what: &str| format!("{} row {n}: {what}", args.decisions.display());
         for record in table {
             let (n, record) = record.map_err(|e| format!("{}: {e}", args.decisions.display()))?;
@@ -126,6 +140,7 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
             agg.add(&DecisionRow {
                 application_id: cell(id).unwrap_or_default(),
                 outcome: cell(outcome).unwrap_or_default(),
+                final_action: final_at.and_then(cell).filter(|a| !a.is_empty()),
                 probability: num(pd)?,
                 score: num(score)?,
             });
@@ -150,6 +165,7 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
             agg.add(&DecisionRow {
                 application_id: id,
                 outcome,
+                final_action: r["final_action"]["action"].as_str(),
                 probability: pd,
                 score,
             });
@@ -176,6 +192,11 @@ pub fn text(r: &Report) -> String {
         match r.refer {
             Refer::NotApproved => "counted as not approved".to_string(),
             Refer::Excluded => format!("excluded: {}", r.referrals_excluded),
+            Refer::Final => format!(
+                "as final actions; {} without one, {} left out",
+                r.referrals_without_final_action.unwrap_or(0),
+                r.referrals_excluded
+            ),
         }
     );
     for d in &r.dimensions {

@@ -330,6 +330,15 @@ fn text(model: &LoadedModel) -> String {
             if r.inquiry { "  [inquiry]" } else { "" }
         );
     }
+    if !model.review_reasons.is_empty() {
+        let _ = writeln!(
+            s,
+            "\nreview reasons (an underwriter's final action on a referral)"
+        );
+        for r in &model.review_reasons {
+            let _ = writeln!(s, "  {:<8} {}", r.code, r.text);
+        }
+    }
     let _ = writeln!(s, "\nModel output is decision support; the lender remains responsible for ECOA/Regulation B, FCRA and local law.");
     s
 }

@@ -168,7 +168,7 @@ pub enum Command {
         /// Name of the key's holder, e.g. `los-production`.
         #[arg(long)]
         name: String,
-        /// scoring, review or admin.
+        /// scoring, review, underwriting or admin.
         #[arg(long)]
         role: String,
     },

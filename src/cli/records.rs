@@ -38,6 +38,9 @@ pub struct Filters {
     model_id: Option<String>,
     #[arg(long)]
     model_version: Option<String>,
+    /// pending (referred, none recorded), recorded, approve, decline or withdrawn.
+    #[arg(long)]
+    final_action: Option<String>,
     /// Continue after this cursor (a search's next_cursor).
     #[arg(long)]
     cursor: Option<String>,
@@ -75,6 +78,7 @@ fn query(f: &Filters) -> Result<crate::records::Query, String> {
             "outcome" => f.outcome.as_deref(),
             "model_id" => f.model_id.as_deref(),
             "model_version" => f.model_version.as_deref(),
+            "final_action" => f.final_action.as_deref(),
             "cursor" => f.cursor.as_deref(),
             _ => None,
         }
@@ -131,6 +135,12 @@ fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, Strin
                 Ok(n) => write(&(serde_json::to_string_pretty(&n).unwrap_or_default() + "\n")),
                 Err(notice::NoNotice::Approved) => Err(bad(format!(
                     "decision {decision_id} was an approval; no adverse action was taken"
+                ))),
+                Err(notice::NoNotice::ApprovedOnReview) => Err(bad(format!(
+                    "decision {decision_id} was referred and approved by an underwriter; no adverse action was taken"
+                ))),
+                Err(notice::NoNotice::Withdrawn) => Err(bad(format!(
+                    "decision {decision_id} was referred and the applicant withdrew; no notice of action taken is owed"
                 ))),
                 Err(notice::NoNotice::Damaged(e)) => Err(failed(e)),
             }

@@ -166,8 +166,8 @@ pub fn run(args: ServeArgs) -> i32 {
 }
 
 pub fn hash_key(name: &str, role: &str) -> i32 {
-    if !matches!(role, "scoring" | "review" | "admin") {
-        eprintln!("error: --role must be scoring, review or admin");
+    if !matches!(role, "scoring" | "review" | "underwriting" | "admin") {
+        eprintln!("error: --role must be scoring, review, underwriting or admin");
         return EXIT_BAD_INPUT;
     }
     let mut key = String::new();

@@ -153,6 +153,11 @@ pub fn page(r: &Report, title: &str) -> String {
     let refer = match r.refer {
         super::Refer::NotApproved => "referrals count as not approved".to_string(),
         super::Refer::Excluded => format!("referrals excluded ({})", r.referrals_excluded),
+        super::Refer::Final => format!(
+            "referrals count as their underwriters' final actions ({} had none; {} left out)",
+            r.referrals_without_final_action.unwrap_or(0),
+            r.referrals_excluded
+        ),
     };
     let _ = write!(s, "<p>{} decisions; {refer}; groups smaller than {} (effective) applications get no ratio; tests at the {} level.</p>", r.decisions, r.min_group_size, r.significance_level);
     for d in &r.dimensions {

@@ -29,6 +29,10 @@ pub enum Refer {
     NotApproved,
     /// Referrals are left out of every count.
     Excluded,
+    /// A referral counts as its underwriter's final action where one is recorded (approve,
+    /// decline; a withdrawn application is left out); one without counts as
+    /// `Settings::refer_without_final` says.
+    Final,
 }
 
 #[derive(Debug, Clone)]
@@ -36,6 +40,9 @@ pub struct Settings {
     /// A named control group; `None`: the sufficiently large group with the highest rate.
     pub control: Option<String>,
     pub refer: Refer,
+    /// With `Refer::Final`, how a referral with no final action counts (`NotApproved` or
+    /// `Excluded`).
+    pub refer_without_final: Refer,
     pub min_group_size: f64,
     /// Approve cutoffs (probability of default below the cutoff) for the sweep.
     pub cutoffs: Vec<f64>,
@@ -46,6 +53,7 @@ impl Default for Settings {
         Settings {
             control: None,
             refer: Refer::NotApproved,
+            refer_without_final: Refer::NotApproved,
             min_group_size: MIN_GROUP_SIZE,
             cutoffs: (2..=30).map(|c| c as f64 / 100.0).collect(),
         }
@@ -56,6 +64,8 @@ impl Default for Settings {
 pub struct DecisionRow<'a> {
     pub application_id: &'a str,
     pub outcome: &'a str,
+    /// The final action recorded on a referral (`approve`, `decline`, `withdrawn`), if any.
+    pub final_action: Option<&'a str>,
     pub probability: f64,
     pub score: f64,
 }
@@ -84,6 +94,7 @@ pub struct Aggregator<'d> {
     dims: Vec<DimensionSums<'d>>,
     decisions: u64,
     referrals_excluded: u64,
+    referrals_without_final: u64,
     /// Overall, per cutoff: (approvals, summed probability of default of the approved).
     sweep_all: Vec<(u64, f64)>,
 }
@@ -111,16 +122,28 @@ impl<'d> Aggregator<'d> {
             settings,
             decisions: 0,
             referrals_excluded: 0,
+            referrals_without_final: 0,
         }
     }
 
     pub fn add(&mut self, d: &DecisionRow) {
-        if d.outcome == "refer" && self.settings.refer == Refer::Excluded {
+        // What the application's outcome counts as, by the refer setting.
+        let outcome = match (d.outcome, self.settings.refer, d.final_action) {
+            ("refer", Refer::Excluded, _) => None,
+            ("refer", Refer::Final, Some("approve")) => Some(true),
+            ("refer", Refer::Final, Some("decline")) => Some(false),
+            ("refer", Refer::Final, Some(_)) => None,
+            ("refer", Refer::Final, None) => {
+                self.referrals_without_final += 1;
+                (self.settings.refer_without_final != Refer::Excluded).then_some(false)
+            }
+            (o, _, _) => Some(o == "approve"),
+        };
+        let Some(approved) = outcome else {
             self.referrals_excluded += 1;
             return;
-        }
+        };
         self.decisions += 1;
-        let approved = d.outcome == "approve";
         for (c, cutoff) in self.settings.cutoffs.iter().enumerate() {
             if d.probability < *cutoff {
                 self.sweep_all[c].0 += 1;
@@ -162,7 +185,11 @@ impl<'d> Aggregator<'d> {
             caution: CAUTION,
             decisions: self.decisions,
             referrals_excluded: self.referrals_excluded,
+            referrals_without_final_action: (settings.refer == Refer::Final)
+                .then_some(self.referrals_without_final),
             refer: settings.refer,
+            refer_without_final_action: (settings.refer == Refer::Final)
+                .then_some(settings.refer_without_final),
             min_group_size: settings.min_group_size,
             significance_level: ALPHA,
             sweep_rule: "approve when the recorded probability of default is below the cutoff; policy rules and the refer band are not applied",
@@ -191,8 +218,15 @@ pub struct Report {
     pub caution: &'static str,
     /// Decisions counted (referrals left out when excluded).
     pub decisions: u64,
+    /// Referrals left out (all with `excluded`; withdrawn ones, and with the setting those
+    /// without a final action, with `final`).
     pub referrals_excluded: u64,
+    /// With `final`: referrals no final action was recorded for.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub referrals_without_final_action: Option<u64>,
     pub refer: Refer,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub refer_without_final_action: Option<Refer>,
     pub min_group_size: f64,
     pub significance_level: f64,
     pub sweep_rule: &'static str,

@@ -30,7 +30,7 @@ impl Format {
         match self {
             Format::JsonLines => None,
             Format::Csv => Some(
-                "decision_id,application_id,idempotency_key,received_at,decided_at,model_id,model_version,model_sha256,outcome,probability_of_default,score,reason_codes\n",
+                "decision_id,application_id,idempotency_key,received_at,decided_at,model_id,model_version,model_sha256,outcome,probability_of_default,score,reason_codes,final_action,final_action_at,final_action_by,final_reason_codes\n",
             ),
         }
     }
@@ -53,6 +53,10 @@ impl Format {
                     format!("{}", r.probability),
                     r.score.to_string(),
                     reason_codes(r).join(";"),
+                    (r.final_action.as_ref()).map_or(String::new(), |f| f.action.clone()),
+                    (r.final_action.as_ref()).map_or(String::new(), |f| f.decided_at.clone()),
+                    (r.final_action.as_ref()).map_or(String::new(), |f| f.decided_by.clone()),
+                    (r.final_action.as_ref()).map_or(String::new(), |f| f.codes().join(";")),
                 ];
                 let cells: Vec<String> = cells.iter().map(|c| csv_cell(c)).collect();
                 Ok(cells.join(",") + "\n")

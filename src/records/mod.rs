@@ -43,6 +43,46 @@ pub struct Record {
     pub score: i64,
     pub request: String,
     pub response: String,
+    /// The underwriter's final action on a referral, recorded later beside the decision.
+    pub final_action: Option<FinalAction>,
+}
+
+/// The final action on a referred decision (Regulation B, 12 CFR 1002.9(a): the action taken),
+/// recorded append-only beside the decision, never editing it.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FinalAction {
+    pub decision_id: String,
+    /// `approve`, `decline` or `withdrawn`.
+    pub action: String,
+    /// JSON array of `{"code", "text", "source"}` as given: the reasons' texts are kept, so the
+    /// notice reads them from the record.
+    pub reasons: String,
+    pub note: String,
+    /// The name of the key that recorded it.
+    pub decided_by: String,
+    pub decided_at: String,
+    pub idempotency_key: Option<String>,
+    /// SHA-256 of the request body's canonical JSON: what a repeated request must match.
+    pub body_sha256: String,
+}
+
+/// What writing a final action did.
+#[derive(Debug, Clone, PartialEq)]
+pub enum FinalInsert {
+    Inserted,
+    /// The decision already has one: here it is (nothing new written).
+    Existing(FinalAction),
+}
+
+/// A search filter on final actions.
+#[derive(Debug, Clone, PartialEq)]
+pub enum FinalFilter {
+    /// Referred, no final action yet.
+    Pending,
+    /// Any final action recorded.
+    Recorded,
+    /// This action (`approve`, `decline`, `withdrawn`).
+    Action(String),
 }
 
 /// What writing a record did.
@@ -71,6 +111,7 @@ pub struct Query {
     pub outcome: Option<String>,
     pub model_id: Option<String>,
     pub model_version: Option<String>,
+    pub final_action: Option<FinalFilter>,
     /// Continue after this record (in decided_at, decision_id order).
     pub after: Option<Cursor>,
 }
@@ -100,6 +141,7 @@ pub const QUERY_PARAMETERS: &[&str] = &[
     "outcome",
     "model_id",
     "model_version",
+    "final_action",
     "cursor",
 ];
 
@@ -134,6 +176,19 @@ pub fn parse_query<'a>(get: impl Fn(&str) -> Option<&'a str>) -> Result<Query, Q
             ));
         }
     }
+    let final_action = match get("final_action") {
+        None => None,
+        Some("pending") => Some(FinalFilter::Pending),
+        Some("recorded") => Some(FinalFilter::Recorded),
+        Some(a @ ("approve" | "decline" | "withdrawn")) => Some(FinalFilter::Action(a.into())),
+        Some(_) => {
+            return Err(query_error(
+                "final_action",
+                "one_of",
+                "pending (referred, none recorded), recorded, approve, decline or withdrawn",
+            ))
+        }
+    };
     let after = get("cursor")
         .map(|c| {
             Cursor::decode(c).ok_or_else(|| {
@@ -153,6 +208,7 @@ pub fn parse_query<'a>(get: impl Fn(&str) -> Option<&'a str>) -> Result<Query, Q
         outcome: text("outcome"),
         model_id: text("model_id"),
         model_version: text("model_version"),
+        final_action,
         after,
     })
 }
@@ -188,6 +244,8 @@ pub trait Store: Send + Sync {
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError>;
     /// The record holding this idempotency key, if any.
     fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError>;
+    /// Records a final action beside its decision, unless the decision has one already.
+    fn insert_final_action(&self, action: &FinalAction) -> Result<FinalInsert, StoreError>;
     fn search(&self, query: &Query, limit: usize) -> Result<Page, StoreError>;
     /// Every record matching `query`, oldest first, handed to `sink` one at a time as read
     /// (never all in memory). Stops early when `sink` returns false. Returns how many were sent.
@@ -254,6 +312,45 @@ pub struct RecordView<'a> {
     pub score: i64,
     pub request: &'a serde_json::value::RawValue,
     pub response: &'a serde_json::value::RawValue,
+    /// The final action on a referral, when one is recorded.
+    pub final_action: Option<FinalActionView<'a>>,
+}
+
+/// A final action as the compliance endpoints show it (`reasons` as stored JSON).
+#[derive(Serialize)]
+pub struct FinalActionView<'a> {
+    pub action: &'a str,
+    pub reasons: &'a serde_json::value::RawValue,
+    pub note: &'a str,
+    pub decided_by: &'a str,
+    pub decided_at: &'a str,
+    pub idempotency_key: Option<&'a str>,
+}
+
+impl FinalAction {
+    pub fn view(&self) -> Result<FinalActionView<'_>, StoreError> {
+        Ok(FinalActionView {
+            action: &self.action,
+            reasons: serde_json::from_str(&self.reasons).map_err(|e| {
+                StoreError::Failed(format!(
+                    "final action of {} holds invalid JSON: {e}",
+                    self.decision_id
+                ))
+            })?,
+            note: &self.note,
+            decided_by: &self.decided_by,
+            decided_at: &self.decided_at,
+            idempotency_key: self.idempotency_key.as_deref(),
+        })
+    }
+
+    /// The reason codes given, in order.
+    pub fn codes(&self) -> Vec<String> {
+        let v: serde_json::Value = serde_json::from_str(&self.reasons).unwrap_or_default();
+        (v.as_array().into_iter().flatten())
+            .filter_map(|r| r["code"].as_str().map(str::to_string))
+            .collect()
+    }
 }
 
 #[derive(Serialize)]
@@ -288,6 +385,11 @@ impl Record {
             score: self.score,
             request: raw(&self.request, &self.decision_id)?,
             response: raw(&self.response, &self.decision_id)?,
+            final_action: self
+                .final_action
+                .as_ref()
+                .map(FinalAction::view)
+                .transpose()?,
         };
         serde_json::to_string(&view).map_err(|e| StoreError::Failed(e.to_string()))
     }

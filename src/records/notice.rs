@@ -76,6 +76,10 @@ pub struct ModelIdentity {
 #[derive(Debug, Clone, PartialEq)]
 pub enum NoNotice {
     Approved,
+    /// A referral the underwriter approved.
+    ApprovedOnReview,
+    /// The applicant withdrew (no notice is owed: 12 CFR 1002.9(e)).
+    Withdrawn,
     Damaged(StoreError),
 }
 
@@ -83,6 +87,7 @@ const CAUTION: &str = "Decision support, not legal advice: the notice's wording,
 
 const DECLINE_NOTE: &str = "The decline is the action taken on the application; a notice of action taken is due within 30 days of a completed application (12 CFR 1002.9(a)(1)).";
 const REFER_NOTE: &str = "A referral is not a final action: the application awaits an underwriter, and the notice follows the final decision (12 CFR 1002.9(a)); this content is provisional.";
+const REVIEW_DECLINE_NOTE: &str = "The underwriter's decline of the referral is the action taken on the application: the principal reasons and the date are the underwriter's; the score disclosure is the decision's, whose score was used.";
 
 /// Where a reason came from in the decision.
 #[derive(Clone, Copy, PartialEq)]
@@ -133,26 +138,59 @@ pub fn adverse_action(record: &Record) -> Result<AdverseAction, NoNotice> {
         (Some(min), Some(max)) => Some(ScoreRange { min, max }),
         _ => None,
     };
-    let decision_date: String = record.decided_at.chars().take(10).collect();
-    let final_action = record.outcome != "refer";
+    let score_date: String = record.decided_at.chars().take(10).collect();
+    // A referral settled by an underwriter: the final action decides what the notice says.
+    let (outcome, decided_at, final_action, note, principal) = match &record.final_action {
+        Some(f) if f.action == "approve" => return Err(NoNotice::ApprovedOnReview),
+        Some(f) if f.action == "withdrawn" => return Err(NoNotice::Withdrawn),
+        Some(f) => {
+            let given: Value = serde_json::from_str(&f.reasons).unwrap_or_default();
+            let reasons = (given.as_array().into_iter().flatten().enumerate())
+                .map(|(i, r)| Reason {
+                    rank: i as u64 + 1,
+                    code: r["code"].as_str().unwrap_or_default().to_string(),
+                    text: r["text"].as_str().unwrap_or_default().to_string(),
+                })
+                .collect();
+            (
+                f.action.clone(),
+                f.decided_at.clone(),
+                true,
+                REVIEW_DECLINE_NOTE,
+                reasons,
+            )
+        }
+        None => {
+            let final_action = record.outcome != "refer";
+            let note = if final_action {
+                DECLINE_NOTE
+            } else {
+                REFER_NOTE
+            };
+            let principal = pick(&[From::Rule, From::Model]);
+            (
+                record.outcome.clone(),
+                record.decided_at.clone(),
+                final_action,
+                note,
+                principal,
+            )
+        }
+    };
     Ok(AdverseAction {
         decision_id: record.decision_id.clone(),
         application_id: record.application_id.clone(),
-        decision_date: decision_date.clone(),
-        decided_at: record.decided_at.clone(),
-        outcome: record.outcome.clone(),
+        decision_date: decided_at.chars().take(10).collect(),
+        decided_at,
+        outcome,
         final_action,
-        action_note: if final_action {
-            DECLINE_NOTE
-        } else {
-            REFER_NOTE
-        },
-        principal_reasons: pick(&[From::Rule, From::Model]),
+        action_note: note,
+        principal_reasons: principal,
         credit_score: ScoreDisclosure {
             score: record.score,
             range,
             key_factors: pick(&[From::Model, From::InquiryExtra]),
-            date: decision_date,
+            date: score_date,
             provided_by: scale["provider"].as_str().map(str::to_string),
         },
         model: ModelIdentity {

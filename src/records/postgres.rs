@@ -7,7 +7,7 @@
 //! the blocking pool, never from an async worker.
 
 use super::sql::{self, MIGRATIONS, MIGRATIONS_TABLE};
-use super::{Insert, Page, Query, Record, Store, StoreError};
+use super::{FinalAction, FinalInsert, Insert, Page, Query, Record, Store, StoreError};
 use postgres::fallible_iterator::FallibleIterator;
 use postgres::types::ToSql;
 use postgres::{Client, NoTls, Row};
@@ -59,6 +59,19 @@ fn row_to_record(r: &Row) -> Result<Record, StoreError> {
         score: r.try_get(12).map_err(failed)?,
         request: get(13)?,
         response: get(14)?,
+        final_action: match r.try_get::<_, Option<String>>(15).map_err(failed)? {
+            None => None,
+            Some(action) => Some(super::FinalAction {
+                decision_id: get(0)?,
+                action,
+                reasons: get(16)?,
+                note: get(17)?,
+                decided_by: get(18)?,
+                decided_at: get(19)?,
+                idempotency_key: r.try_get(20).map_err(failed)?,
+                body_sha256: get(21)?,
+            }),
+        },
     })
 }
 
@@ -198,6 +211,45 @@ impl Store for PostgresStore {
 
     fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError> {
         self.with_reader(|c| one(c, sql::Key::IdempotencyKey, key))
+    }
+
+    fn insert_final_action(&self, a: &FinalAction) -> Result<FinalInsert, StoreError> {
+        let mut guard = self
+            .writer
+            .lock()
+            .map_err(|_| StoreError::Failed("writer lock poisoned".into()))?;
+        if guard.as_ref().is_none_or(Client::is_closed) {
+            *guard = Some(connect(&self.url)?);
+        }
+        let Some(client) = guard.as_mut() else {
+            return Err(StoreError::Unavailable("no connection".into()));
+        };
+        let mut tx = client.transaction().map_err(failed)?;
+        let written = tx
+            .execute(
+                sql::INSERT_FINAL,
+                &[
+                    &a.decision_id,
+                    &a.action,
+                    &a.reasons,
+                    &a.note,
+                    &a.decided_by,
+                    &a.decided_at,
+                    &a.idempotency_key,
+                    &a.body_sha256,
+                ],
+            )
+            .map_err(failed)?;
+        let out = if written == 1 {
+            FinalInsert::Inserted
+        } else {
+            let existing = one(&mut tx, sql::Key::DecisionId, &a.decision_id)?
+                .and_then(|r| r.final_action)
+                .ok_or_else(|| StoreError::Failed("conflict without a final action".into()))?;
+            FinalInsert::Existing(existing)
+        };
+        tx.commit().map_err(failed)?;
+        Ok(out)
     }
 
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError> {

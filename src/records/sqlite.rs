@@ -3,7 +3,7 @@
 //! of read connections.
 
 use super::sql::{self, MIGRATIONS, MIGRATIONS_TABLE};
-use super::{Insert, Page, Query, Record, Store, StoreError};
+use super::{FinalAction, FinalInsert, Insert, Page, Query, Record, Store, StoreError};
 use rusqlite::{params, Connection, OptionalExtension};
 use std::path::{Path, PathBuf};
 use std::sync::Mutex;
@@ -50,6 +50,19 @@ fn row_to_record(r: &rusqlite::Row) -> rusqlite::Result<Record> {
         score: r.get(12)?,
         request: r.get(13)?,
         response: r.get(14)?,
+        final_action: match r.get::<_, Option<String>>(15)? {
+            None => None,
+            Some(action) => Some(super::FinalAction {
+                decision_id: r.get(0)?,
+                action,
+                reasons: r.get(16)?,
+                note: r.get(17)?,
+                decided_by: r.get(18)?,
+                decided_at: r.get(19)?,
+                idempotency_key: r.get(20)?,
+                body_sha256: r.get(21)?,
+            }),
+        },
     })
 }
 
@@ -174,6 +187,41 @@ impl Store for SqliteStore {
 
     fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError> {
         self.with_reader(|c| one(c, sql::Key::IdempotencyKey, key))
+    }
+
+    fn insert_final_action(&self, a: &FinalAction) -> Result<FinalInsert, StoreError> {
+        let mut c = self
+            .writer
+            .lock()
+            .map_err(|_| StoreError::Failed("writer lock poisoned".into()))?;
+        let tx = c
+            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)
+            .map_err(failed)?;
+        let written = tx
+            .execute(
+                &sql::for_sqlite(sql::INSERT_FINAL),
+                params![
+                    a.decision_id,
+                    a.action,
+                    a.reasons,
+                    a.note,
+                    a.decided_by,
+                    a.decided_at,
+                    a.idempotency_key,
+                    a.body_sha256
+                ],
+            )
+            .map_err(failed)?;
+        let out = if written == 1 {
+            FinalInsert::Inserted
+        } else {
+            let existing = one(&tx, sql::Key::DecisionId, &a.decision_id)?
+                .and_then(|r| r.final_action)
+                .ok_or_else(|| StoreError::Failed("conflict without a final action".into()))?;
+            FinalInsert::Existing(existing)
+        };
+        tx.commit().map_err(failed)?;
+        Ok(out)
     }
 
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError> {

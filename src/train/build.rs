@@ -26,6 +26,9 @@ pub struct TrainingSpec {
     pub target: String,
     pub features: Vec<FieldSpec>,
     pub reasons: Vec<ReasonSpec>,
+    /// The lender's manual-review reasons for final actions on referrals (optional).
+    #[serde(default)]
+    pub review_reasons: Vec<ReasonSpec>,
     pub policy: PolicySpec,
     pub reference: ReferenceChoice,
     /// L2 penalty on standardised slopes (logistic); 0 = maximum likelihood.
@@ -210,7 +213,7 @@ pub fn assemble(
 ) -> Result<String, TrainError> {
     // The outcome column, so `evaluate` reads the same one by default.
     provenance["target"] = json!(spec.target);
-    let artifact = json!({
+    let mut artifact = json!({
         "format": crate::artifact::spec::FORMAT_TAG,
         "format_version": crate::artifact::spec::FORMAT_VERSION,
         "identity": {
@@ -225,6 +228,9 @@ pub fn assemble(
         "policy": spec.policy,
         "provenance": provenance,
     });
+    if !spec.review_reasons.is_empty() {
+        artifact["review_reasons"] = json!(spec.review_reasons);
+    }
     let invalid = |e: crate::ArtifactError| TrainError::Artifact(e.to_string());
     let loaded = crate::LoadedModel::from_value(&artifact).map_err(invalid)?;
     let scores: Vec<f64> = (data.columns.iter())
@@ -234,7 +240,6 @@ pub fn assemble(
         })
         .collect();
     let bins = stability::develop(bins_label, &spec.features, &data.applicants, &scores);
-    let mut artifact = artifact;
     artifact["stability"] =
         serde_json::to_value(bins).map_err(|e| TrainError::Artifact(e.to_string()))?;
     crate::LoadedModel::from_value(&artifact).map_err(invalid)?;

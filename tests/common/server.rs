@@ -6,6 +6,7 @@ use std::path::PathBuf;
 pub const SCORING: &str = "fernhill-demo-scoring-key";
 pub const REVIEW: &str = "fernhill-demo-review-key";
 pub const ADMIN: &str = "fernhill-demo-admin-key";
+pub const UNDERWRITING: &str = "fernhill-demo-underwriting-key";
 
 pub struct TestServer {
     pub base: String,
@@ -104,6 +105,7 @@ pub fn key_for(role: Option<&str>) -> Option<&'static str> {
         Some("scoring") => Some(SCORING),
         Some("review") => Some(REVIEW),
         Some("admin") => Some(ADMIN),
+        Some("underwriting") => Some(UNDERWRITING),
         _ => None,
     }
 }

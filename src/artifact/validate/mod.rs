@@ -42,6 +42,7 @@ pub fn compile(spec: ArtifactSpec, sha256: String) -> Result<LoadedModel> {
     }
     check_identity(&spec.identity)?;
     let reasons = compile_reasons(&spec.reasons)?;
+    let review_reasons = compile_review_reasons(&spec.review_reasons, &reasons)?;
     let is_trees = matches!(spec.model, ModelSpec::TreeEnsemble(_));
     let schema = compile_schema(&spec.features, &reasons, is_trees)?;
     let scorer = compile_model(&spec.model, &schema, spec.explanation.method)?;
@@ -62,6 +63,7 @@ pub fn compile(spec: ArtifactSpec, sha256: String) -> Result<LoadedModel> {
         explainer,
         reference: spec.explanation.reference.clone(),
         reasons,
+        review_reasons,
         policy,
         background,
         alternate,
@@ -145,6 +147,47 @@ fn compile_reasons(specs: &[ReasonSpec]) -> Result<ReasonTable> {
         );
     }
     Ok(ReasonTable { reasons })
+}
+
+/// The manual-review reasons: codes and texts as specific as the model's, no code in both lists.
+fn compile_review_reasons(specs: &[ReasonSpec], model: &ReasonTable) -> Result<Vec<Reason>> {
+    let mut out: Vec<Reason> = Vec::new();
+    for (i, r) in specs.iter().enumerate() {
+        let at = format!("$.review_reasons[{i}]");
+        if !is_token(&r.code, 16) {
+            return fail(
+                format!("{at}.code"),
+                "token",
+                "use 1-16 of a-z, A-Z, 0-9, '-', '_', '.'",
+            );
+        }
+        if model.index(&r.code).is_some() || out.iter().any(|x| x.code == r.code) {
+            return fail(
+                format!("{at}.code"),
+                "unique",
+                format!(
+                    "code {} is defined twice (codes are shared with $.reasons)",
+                    r.code
+                ),
+            );
+        }
+        if let Some(why) = vague_text(&r.text) {
+            return fail(format!("{at}.text"), "specific", why);
+        }
+        if r.inquiry {
+            return fail(
+                format!("{at}.inquiry"),
+                "inquiry",
+                "the inquiries factor is a model reason",
+            );
+        }
+        out.push(Reason {
+            code: r.code.clone(),
+            text: r.text.trim().to_string(),
+            inquiry: false,
+        });
+    }
+    Ok(out)
 }
 
 /// The schema alone (for tools that read data against a model's fields before a model exists).
