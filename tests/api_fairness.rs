@@ -248,3 +248,109 @@ fn bad_report_requests_are_named() {
     assert_eq!(status, 200);
     assert!(text.contains("nothing to compare"), "{text}");
 }
+
+/// `refer: final` over the service: referrals counted as the underwriter's final actions
+/// recorded through `POST /v1/decisions/{id}/final-action`, the pending ones as the fallback
+/// says, and their count in the report.
+#[test]
+fn referrals_count_as_the_final_actions_recorded() {
+    use common::server::UNDERWRITING;
+    let server = TestServer::demo();
+    let refer: Value = serde_json::from_str(
+        &std::fs::read_to_string("demo-requests/03-refer-amount-rule.json").unwrap(),
+    )
+    .unwrap();
+    let mut rows = Vec::new();
+    // Four approvals and four referrals: approved on review, declined, withdrawn, pending.
+    let finals = [Some("approve"), Some("decline"), Some("withdrawn"), None];
+    for i in 0..4 {
+        let id = format!("FH-AP-{i}");
+        let body = json!({"application_id": id, "applicant": applicant(true)});
+        let (s, _, text) = send(
+            "POST",
+            &server.url("/v1/decisions"),
+            Some(SCORING),
+            Some("application/json"),
+            Some(&body.to_string()),
+        );
+        assert_eq!(s, 200, "{text}");
+        rows.push(json!({"application_id": id, "group": "a"}));
+    }
+    for (i, action) in finals.iter().enumerate() {
+        let id = format!("FH-RF-{i}");
+        let mut body = refer["request"]["body"].clone();
+        body["application_id"] = id.clone().into();
+        let (s, _, text) = send(
+            "POST",
+            &server.url("/v1/decisions"),
+            Some(SCORING),
+            Some("application/json"),
+            Some(&body.to_string()),
+        );
+        assert_eq!(s, 200, "{text}");
+        let d: Value = serde_json::from_str(&text).unwrap();
+        assert_eq!(d["outcome"], "refer");
+        if let Some(action) = action {
+            let mut fa = json!({"action": action});
+            if *action == "decline" {
+                fa["reasons"] = json!(["MR_CAPACITY"]);
+            }
+            let path = format!(
+                "/v1/decisions/{}/final-action",
+                d["record"]["decision_id"].as_str().unwrap()
+            );
+            let (s, _, text) = send(
+                "POST",
+                &server.url(&path),
+                Some(UNDERWRITING),
+                Some("application/json"),
+                Some(&fa.to_string()),
+            );
+            assert_eq!(s, 201, "{text}");
+        }
+        rows.push(json!({"application_id": id, "group": "a"}));
+    }
+    let groups = json!({"dimensions": [{"name": "synthetic_group", "rows": rows}]});
+    let run = |extra: Value| {
+        let mut body = json!({"groups": groups, "min_group_size": 1});
+        for (k, v) in extra.as_object().unwrap() {
+            body[k] = v.clone();
+        }
+        let (s, _, text) = report(&server, &body, "", REVIEW);
+        (s, text)
+    };
+    let counts = |text: &str| {
+        let r: Value = serde_json::from_str(text).unwrap();
+        let g = &r["dimensions"][0]["groups"][0];
+        (
+            g["approvals"].as_f64().unwrap(),
+            g["applications"].as_f64().unwrap(),
+            r["referrals_without_final_action"].as_u64(),
+            r["referrals_excluded"].as_u64().unwrap(),
+        )
+    };
+    let (s, text) = run(json!({"refer": "final"}));
+    assert_eq!(s, 200, "{text}");
+    assert_eq!(counts(&text), (5.0, 7.0, Some(1), 1));
+    let (s, text) = run(json!({"refer": "final", "refer_without_final_action": "excluded"}));
+    assert_eq!(s, 200, "{text}");
+    assert_eq!(counts(&text), (5.0, 6.0, Some(1), 2));
+    let (s, text) = run(json!({}));
+    assert_eq!(s, 200, "{text}");
+    assert_eq!(counts(&text), (4.0, 8.0, None, 0));
+    let (s, text) = run(json!({"refer_without_final_action": "excluded"}));
+    assert!(
+        s == 422 && text.contains("refer_without_final_action") && text.contains("refer_final"),
+        "{text}"
+    );
+    // The page says how many referrals had no final action.
+    let body = json!({"groups": groups, "min_group_size": 1, "refer": "final"});
+    let (s, _, page) = report(&server, &body, "?format=html", REVIEW);
+    assert_eq!(s, 200);
+    assert!(page.contains("1 had none; 1 left out"), "{page}");
+    let r: Value = serde_json::from_str(&run(json!({"refer": "excluded"})).1).unwrap();
+    assert_eq!(
+        r["dimensions"][0]["unknown_application_ids"], 0,
+        "left-out referrals still match their upload rows"
+    );
+}

@@ -183,6 +183,66 @@ fn refer_counting_is_a_stated_choice() {
     assert_eq!(group(&excluded, "a").applications, 20.0);
 }
 
+/// With `refer: final` a referral counts as the underwriter's final action: an approval on
+/// review is an approval, a decline a denial, a withdrawn application neither (left out, as
+/// Regulation C keeps "withdrawn" apart from approval and denial in the action taken, 12 CFR
+/// 1003.4(a)(8), section cited from memory);
+/// one with no final action yet counts as the fallback says, and the report says how many.
+#[test]
+fn referrals_count_as_their_final_actions() {
+    let mut members = HashMap::new();
+    for i in 0..40 {
+        members.insert(format!("a{i}"), vec![(0u16, WHOLE)]);
+    }
+    let dims = [Dimension {
+        name: "d".into(),
+        kind: Kind::Labels,
+        groups: vec!["a".into()],
+        members,
+    }];
+    // 20 approvals; 20 referrals: 8 approved on review, 6 declined, 2 withdrawn, 4 pending.
+    let final_of = |i: usize| match i {
+        20..=27 => Some("approve"),
+        28..=33 => Some("decline"),
+        34..=35 => Some("withdrawn"),
+        _ => None,
+    };
+    let run = |refer, refer_without_final| {
+        let mut agg = Aggregator::new(
+            &dims,
+            Settings {
+                refer,
+                refer_without_final,
+                ..Settings::default()
+            },
+        );
+        for i in 0..40 {
+            agg.add(&DecisionRow {
+                application_id: &format!("a{i}"),
+                outcome: if i < 20 { "approve" } else { "refer" },
+                final_action: final_of(i),
+                probability: 0.1,
+                score: 600.0,
+            });
+        }
+        agg.finish()
+    };
+    let r = run(Refer::Final, Refer::NotApproved);
+    let a = group(&r, "a");
+    assert_eq!((a.approvals, a.applications), (28.0, 38.0));
+    assert_eq!(r.referrals_without_final_action, Some(4));
+    assert_eq!(r.referrals_excluded, 2, "the withdrawn ones");
+    let r = run(Refer::Final, Refer::Excluded);
+    let a = group(&r, "a");
+    assert_eq!((a.approvals, a.applications), (28.0, 34.0));
+    assert_eq!(r.referrals_without_final_action, Some(4));
+    assert_eq!(r.referrals_excluded, 6);
+    // The other settings ignore final actions, and say nothing of them.
+    let r = run(Refer::NotApproved, Refer::NotApproved);
+    assert_eq!(group(&r, "a").approvals, 20.0);
+    assert_eq!(r.referrals_without_final_action, None);
+}
+
 #[test]
 fn unmatched_data_small_groups_and_single_groups_are_reported() {
     let csv = "application_id,group\nFH-1,x\nFH-2,x\nFH-GONE,y\n";

@@ -140,7 +140,13 @@ impl<'d> Aggregator<'d> {
             (o, _, _) => Some(o == "approve"),
         };
         let Some(approved) = outcome else {
+            // Left out of the counts, yet its upload rows did match a decision.
             self.referrals_excluded += 1;
+            for ds in &mut self.dims {
+                if let Some((id, _)) = ds.dim.members.get_key_value(d.application_id) {
+                    ds.matched.insert(id.as_str());
+                }
+            }
             return;
         };
         self.decisions += 1;
