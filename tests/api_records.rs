@@ -385,6 +385,13 @@ fn adverse_action_content_as_the_law_reads_it() {
     let principal = codes(&n["principal_reasons"]);
     assert_eq!(principal[0], "AMT_LIMIT");
     assert!(!codes(&n["credit_score"]["key_factors"]).contains(&"AMT_LIMIT".to_string()));
+    // Each list is ranked within itself, as a notice numbers it.
+    for list in [&n["principal_reasons"], &n["credit_score"]["key_factors"]] {
+        let ranks: Vec<u64> = (list.as_array().unwrap().iter())
+            .map(|r| r["rank"].as_u64().unwrap())
+            .collect();
+        assert_eq!(ranks, (1..=ranks.len() as u64).collect::<Vec<_>>());
+    }
 }
 
 /// Final actions on referrals (12 CFR 1002.9(a): the underwriter's decision is the action taken),

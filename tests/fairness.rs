@@ -412,3 +412,60 @@ fn spreadsheet_csv_uploads_read_as_written() {
     let d = membership::from_csv(labels, "d", 0.001).unwrap();
     assert_eq!(d.groups, ["x, y"]);
 }
+
+/// `plumbline fairness --refer final` over the CSV export's final-action columns; the fallback
+/// option alone is refused, as the service refuses it.
+#[test]
+fn the_command_line_counts_final_actions_from_a_csv_export() {
+    let dir = std::env::temp_dir().join(format!("plumbline-final-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    // The header `plumbline records export --format csv` writes.
+    let mut csv = String::from("decision_id,application_id,idempotency_key,received_at,decided_at,model_id,model_version,model_sha256,outcome,probability_of_default,score,reason_codes,final_action,final_action_at,final_action_by,final_reason_codes\n");
+    let mut groups = String::from("application_id,group\n");
+    // 10 approvals, 10 referrals: 6 approved on review, 2 declined, 2 pending.
+    for i in 0..20 {
+        let (outcome, fin) = match i {
+            0..=9 => ("approve", ""),
+            10..=15 => ("refer", "approve"),
+            16..=17 => ("refer", "decline"),
+            _ => ("refer", ""),
+        };
+        csv.push_str(&format!(
+            "d{i},FH-{i},,2026-01-05T10:00:00Z,2026-01-05T10:00:00Z,m,1,abc,{outcome},0.05,600,,{fin},,,\n"
+        ));
+        groups.push_str(&format!("FH-{i},a\n"));
+    }
+    std::fs::write(dir.join("export.csv"), csv).unwrap();
+    std::fs::write(dir.join("groups.csv"), groups).unwrap();
+    let run = |extra: &[&str]| {
+        std::process::Command::new(env!("CARGO_BIN_EXE_plumbline"))
+            .args(["fairness", "--json", "--min-group-size", "1"])
+            .args(extra)
+            .arg("--decisions")
+            .arg(dir.join("export.csv"))
+            .arg("--groups")
+            .arg(dir.join("groups.csv"))
+            .output()
+            .unwrap()
+    };
+    let out = run(&["--refer", "final", "--refer-without-final", "excluded"]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let r: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let g = &r["dimensions"][0]["groups"][0];
+    assert_eq!(
+        (g["approvals"].as_f64(), g["applications"].as_f64()),
+        (Some(16.0), Some(18.0))
+    );
+    assert_eq!(r["referrals_without_final_action"], 2);
+    let bad = run(&["--refer-without-final", "excluded"]);
+    assert!(
+        !bad.status.success()
+            && String::from_utf8_lossy(&bad.stderr).contains("only for --refer final"),
+        "{}",
+        String::from_utf8_lossy(&bad.stderr)
+    );
+}

@@ -27,10 +27,10 @@ pub struct FairnessArgs {
     /// final action where one is recorded).
     #[arg(long, default_value = "not-approved")]
     refer: String,
-    /// With --refer final: how a referral without a final action counts (not-approved or
-    /// excluded).
-    #[arg(long, default_value = "not-approved")]
-    refer_without_final: String,
+    /// With --refer final: how a referral without a final action counts (not-approved, the
+    /// default, or excluded).
+    #[arg(long)]
+    refer_without_final: Option<String>,
     /// Groups with fewer (effective) applications get no ratio.
     #[arg(long, default_value_t = crate::fairness::report::MIN_GROUP_SIZE)]
     min_group_size: f64,
@@ -76,10 +76,14 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
         "final" => Refer::Final,
         _ => return Err("--refer must be not-approved, excluded or final".into()),
     };
-    let refer_without_final = match args.refer_without_final.as_str() {
-        "not-approved" => Refer::NotApproved,
-        "excluded" => Refer::Excluded,
-        _ => return Err("--refer-without-final must be not-approved or excluded".into()),
+    let refer_without_final = match (refer, args.refer_without_final.as_deref()) {
+        (Refer::Final, None | Some("not-approved")) => Refer::NotApproved,
+        (Refer::Final, Some("excluded")) => Refer::Excluded,
+        (Refer::Final, Some(_)) => {
+            return Err("--refer-without-final must be not-approved or excluded".into())
+        }
+        (_, Some(_)) => return Err("--refer-without-final is only for --refer final".into()),
+        (_, None) => Refer::NotApproved,
     };
     if !(args.min_group_size.is_finite() && args.min_group_size >= 1.0) {
         return Err("--min-group-size must be at least 1".into());

@@ -12,6 +12,8 @@ use serde_json::Value;
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Reason {
+    /// Place within its own list (principal reasons or key factors), from 1, in the order the
+    /// decision (or the underwriter) gave them.
     pub rank: u64,
     pub code: String,
     pub text: String,
@@ -127,10 +129,15 @@ pub fn adverse_action(record: &Record) -> Result<AdverseAction, NoNotice> {
             (reason, from)
         })
         .collect();
+    // Each list in the decision's order, ranked within itself: a notice prints them 1, 2, ...
     let pick = |keep: &[From]| -> Vec<Reason> {
         (reasons.iter())
             .filter(|(_, f)| keep.contains(f))
-            .map(|(r, _)| r.clone())
+            .enumerate()
+            .map(|(i, (r, _))| Reason {
+                rank: i as u64 + 1,
+                ..r.clone()
+            })
             .collect()
     };
     let scale = &response["score_scale"];
