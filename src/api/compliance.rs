@@ -105,7 +105,7 @@ pub async fn adverse_action(
         )),
         Err(notice::NoNotice::Withdrawn) => Err(Problem::no_adverse_action_because(
             &id,
-            "the applicant withdrew (12 CFR 1002.9(e): no notice of action taken is owed)",
+            "the applicant withdrew: the lender refused nothing, so there is no adverse action to give notice of (12 CFR 1002.2(c)(1))",
         )),
         Err(notice::NoNotice::Damaged(e)) => Err(Problem::store_failed(&e)),
     }

@@ -23,7 +23,8 @@ pub const MAX_NOTE: usize = 2000;
 pub enum Action {
     Approve,
     Decline,
-    /// The applicant withdrew before a decision (no adverse-action notice: 12 CFR 1002.9(e)).
+    /// The applicant withdrew before a decision: no adverse action, as the lender refused
+    /// nothing (12 CFR 1002.2(c)(1), cited from memory).
     Withdrawn,
 }
 

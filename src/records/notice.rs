@@ -80,7 +80,8 @@ pub enum NoNotice {
     Approved,
     /// A referral the underwriter approved.
     ApprovedOnReview,
-    /// The applicant withdrew (no notice is owed: 12 CFR 1002.9(e)).
+    /// The applicant withdrew: the lender refused nothing, so there is no adverse action (12 CFR
+    /// 1002.2(c)(1), cited from memory).
     Withdrawn,
     Damaged(StoreError),
 }
