@@ -1,6 +1,7 @@
 //! The store suite, run against both back ends: byte-identical round trips, idempotency by
 //! unique key (also within one group), search filters and cursors, streamed export, and
-//! migrations that apply once (also when several replicas open the database together).
+//! migrations that apply once (also when several replicas open the database together), and a
+//! store from before final actions upgraded in place.
 
 mod common;
 
@@ -198,4 +199,75 @@ fn postgres_replicas_migrate_once_and_share_keys() {
         .unwrap()
         .get(0);
     assert_eq!(rows, 25, "one record per key across replicas");
+}
+
+/// The decisions table as the first release created it (migration 1), with one record in it.
+const VERSION_1: &str = "CREATE TABLE plumbline_migrations (
+    version BIGINT PRIMARY KEY, about TEXT NOT NULL, applied_at TEXT NOT NULL);
+INSERT INTO plumbline_migrations VALUES (1, 'decision records', '2026-11-01T00:00:00.000000Z');
+CREATE TABLE decisions (
+    decision_id TEXT PRIMARY KEY, application_id TEXT NOT NULL, idempotency_key TEXT UNIQUE,
+    received_at TEXT NOT NULL, decided_at TEXT NOT NULL, model_id TEXT NOT NULL,
+    model_version TEXT NOT NULL, model_sha256 TEXT NOT NULL, plumbline_version TEXT NOT NULL,
+    request_sha256 TEXT NOT NULL, outcome TEXT NOT NULL, probability DOUBLE PRECISION NOT NULL,
+    score BIGINT NOT NULL, request TEXT NOT NULL, response TEXT NOT NULL);
+INSERT INTO decisions VALUES ('01a00000-0000-7000-8000-000000000001', 'FH-OLD-1', NULL,
+    '2026-11-01T09:00:00.000000Z', '2026-11-01T09:00:00.000000Z', 'fernhill-personal-logistic',
+    '0.1.0', 'abab', '0.1.0', 'cdcd', 'refer', 0.1, 600, '{\"a\":1}', '{\"outcome\":\"refer\"}');";
+
+/// A store written before final actions existed opens, gains the final-actions table (migration
+/// 2) and keeps its records; a final action can then be recorded on an old referral.
+fn upgrades_in_place(location: &str) {
+    let store = records::open(location).unwrap();
+    let old = store
+        .get("01a00000-0000-7000-8000-000000000001")
+        .unwrap()
+        .expect("the old record is kept");
+    assert_eq!(
+        (old.outcome.as_str(), old.final_action.as_ref()),
+        ("refer", None)
+    );
+    let action = records::FinalAction {
+        decision_id: old.decision_id.clone(),
+        action: "approve".into(),
+        reasons: "[]".into(),
+        note: String::new(),
+        decided_by: "demo-underwriting".into(),
+        decided_at: "2026-11-02T10:00:00.000000Z".into(),
+        idempotency_key: None,
+        body_sha256: "ef".repeat(32),
+    };
+    assert_eq!(
+        store.insert_final_action(&action).unwrap(),
+        records::FinalInsert::Inserted
+    );
+    let again = records::open(location).unwrap();
+    assert_eq!(
+        again.get(&old.decision_id).unwrap().unwrap().final_action,
+        Some(action)
+    );
+}
+
+#[test]
+fn sqlite_store_from_version_1_upgrades_in_place() {
+    let (location, _dir) = stores::sqlite();
+    let path = location.strip_prefix("sqlite:").unwrap();
+    rusqlite::Connection::open(path)
+        .unwrap()
+        .execute_batch(VERSION_1)
+        .unwrap();
+    upgrades_in_place(&location);
+}
+
+#[test]
+fn postgres_store_from_version_1_upgrades_in_place() {
+    let Some(db) = stores::postgres() else { return };
+    let mut c = postgres::Client::connect(&db.url, postgres::NoTls).unwrap();
+    c.batch_execute(VERSION_1).unwrap();
+    upgrades_in_place(&db.url);
+    let applied: i64 = c
+        .query_one("SELECT COUNT(*) FROM plumbline_migrations", &[])
+        .unwrap()
+        .get(0);
+    assert_eq!(applied as usize, records::sql_migrations_count());
 }
