@@ -8,44 +8,14 @@ mod common;
 use common::server::SCORING;
 use common::stores;
 use plumbline::records::{self, Query};
-use std::io::{BufRead, BufReader};
-use std::process::{Child, Command, Stdio};
+use std::process::Child;
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Mutex;
 use std::time::{Duration, Instant};
 
 /// The service binary on a free port, recording into `store`; returns it and its base URL.
 fn spawn(store: &str) -> (Child, String) {
-    let mut child = Command::new(env!("CARGO_BIN_EXE_plumbline"))
-        .args([
-            "serve",
-            "--keys",
-            "models/demo-keys.json",
-            "--addr",
-            "127.0.0.1:0",
-            "--workers",
-            "2",
-            "--store",
-            store,
-        ])
-        .env("PLUMBLINE_LOG", "warn")
-        .stdout(Stdio::null())
-        .stderr(Stdio::piped())
-        .spawn()
-        .unwrap();
-    let mut lines = BufReader::new(child.stderr.take().unwrap()).lines();
-    let base = loop {
-        let line = lines
-            .next()
-            .expect("the server announces its address")
-            .unwrap();
-        if let Some(url) = line.strip_prefix("plumbline listening on ") {
-            break url.trim().to_string();
-        }
-    };
-    // Keep draining stderr so the server never blocks on a full pipe.
-    std::thread::spawn(move || for _ in lines {});
-    (child, base)
+    common::server::spawn_binary(&["--workers", "2", "--store", store])
 }
 
 fn request(id: &str, key: Option<&str>) -> String {

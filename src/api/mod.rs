@@ -27,8 +27,8 @@ pub use auth::{Auth, Keys, Role};
 pub use registry::Registry;
 
 /// Request limits. Defaults: 64 KiB per decision, 8 MiB and 1,000 items per batch, 64 MiB per
-/// group-membership upload (60 s to arrive), 5 s for a
-/// body to arrive, 5 s for a client to send its request head, 30 s to finish in-flight work on
+/// group-membership upload (60 s to arrive), 5 s for a body to arrive, 5 s for a client to send
+/// its request head, 10 s for a decision to be committed, 30 s to finish in-flight work on
 /// shutdown.
 #[derive(Debug, Clone)]
 pub struct Limits {
@@ -38,6 +38,8 @@ pub struct Limits {
     /// Largest group-membership upload (POST /v1/fairness/reports).
     pub max_upload_bytes: usize,
     pub body_timeout: Duration,
+    /// A decision not committed by then is not given and not recorded.
+    pub commit_timeout: Duration,
     pub head_timeout: Duration,
     pub shutdown_timeout: Duration,
 }
@@ -50,6 +52,7 @@ impl Default for Limits {
             max_batch_items: 1_000,
             max_upload_bytes: 64 * 1024 * 1024,
             body_timeout: Duration::from_secs(5),
+            commit_timeout: crate::records::recorder::COMMIT_TIMEOUT,
             head_timeout: Duration::from_secs(5),
             shutdown_timeout: Duration::from_secs(30),
         }
@@ -131,7 +134,10 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
                 .map_err(|_| format!("decision store {location}: opening it panicked"))?
                 .map_err(|e| format!("decision store {location}: {e}"))?;
             tracing::info!(store = %store.describe(), "recording decisions");
-            Some(crate::records::Recorder::start(store))
+            Some(crate::records::Recorder::start(
+                store,
+                config.limits.commit_timeout,
+            ))
         }
         None => None,
     };

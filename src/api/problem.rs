@@ -196,21 +196,54 @@ impl Problem {
     }
 
     /// The decision could not be committed, so it is not given (nothing unrecorded leaves).
+    /// A decision whose record was not committed, so it is not given. The store's own words go
+    /// to the log (with the request id), never to the caller.
     pub fn not_recorded(e: &crate::records::StoreError) -> Self {
+        use crate::records::StoreError as E;
+        tracing::error!(error = %e, "a decision was not recorded, so it was not given");
+        let why = match e {
+            E::Timeout(_) => "the decision store did not commit it in time",
+            E::Unavailable(_) => "the decision store cannot be reached",
+            E::Failed(_) => "the decision store refused the record",
+            E::Unknown(_) => return Problem::record_outcome_unknown(),
+        };
         Problem::new(
             StatusCode::SERVICE_UNAVAILABLE,
             "/problems/not-recorded",
             "The decision could not be recorded, so it was not given",
-            format!("{e}; retry (with the same idempotency_key, if one was sent)"),
+            format!("{why}; nothing of it is in the store; retry (with the same idempotency_key, if one was sent)"),
         )
     }
 
+    /// The one answer that cannot say whether a decision was recorded: the database connection
+    /// broke during the commit and the database stayed out of reach afterwards.
+    pub fn record_outcome_unknown() -> Self {
+        Problem::new(
+            StatusCode::INTERNAL_SERVER_ERROR,
+            "/problems/record-outcome-unknown",
+            "Whether the decision was recorded is not known",
+            "the decision store's connection broke during the commit and its outcome could not be established; retry with the same idempotency_key (a recorded decision is then returned as stored), or look the application up before deciding it again",
+        )
+    }
+
+    /// Readiness (or liveness) fails: decisions cannot be recorded now.
+    pub fn not_ready(why: &str) -> Self {
+        Problem::new(
+            StatusCode::SERVICE_UNAVAILABLE,
+            "/problems/not-ready",
+            "This replica cannot record decisions now",
+            why.to_string(),
+        )
+    }
+
+    /// The store failed a read or a final action. Its own words go to the log only.
     pub fn store_failed(e: &crate::records::StoreError) -> Self {
+        tracing::error!(error = %e, "the decision store failed");
         Problem::new(
             StatusCode::SERVICE_UNAVAILABLE,
             "/problems/store-unavailable",
-            "The decision records cannot be read just now",
-            e.to_string(),
+            "The decision records cannot be read or written just now",
+            "the decision store did not answer as expected; the service log holds the cause under this request's id",
         )
     }
 

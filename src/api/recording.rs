@@ -99,8 +99,11 @@ pub struct Given {
 }
 
 /// The response for `record` once the store has answered.
-pub fn settle(record: Record, outcome: Insert) -> Result<Given, Problem> {
-    match outcome {
+pub fn settle(
+    record: Record,
+    outcome: Result<Insert, crate::records::StoreError>,
+) -> Result<Given, Problem> {
+    match outcome.map_err(|e| Problem::not_recorded(&e))? {
         Insert::Inserted => Ok(Given {
             body: record.response,
             outcome: record.outcome,

@@ -311,25 +311,36 @@ pub struct Health {
     pub models: usize,
 }
 
-/// Liveness: the process answers.
-#[utoipa::path(get, path = "/health/live", tag = "operations", responses((status = 200, body = Health)))]
-pub async fn live(state: web::Data<State>) -> HttpResponse {
-    json(&Health {
+/// Liveness: the process answers, and its decision recorder runs (one that has stopped can
+/// never record again: the process is to be restarted).
+#[utoipa::path(get, path = "/health/live", tag = "operations", responses((status = 200, body = Health), (status = 503, description = "The decision recorder has stopped; restart the process", body = Problem, content_type = "application/problem+json")))]
+pub async fn live(state: web::Data<State>) -> Result<HttpResponse, Problem> {
+    if let Some(why) = (state.recorder.as_ref()).and_then(|r| r.health().stopped()) {
+        return Err(Problem::not_ready(&why));
+    }
+    Ok(json(&Health {
         status: "live",
         models: state.registry.current().models.len(),
-    })
+    }))
 }
 
-/// Readiness: models are loaded and validated, and the decision store answers (a replica whose
-/// store is down must not take decisions it cannot record).
-#[utoipa::path(get, path = "/health/ready", tag = "operations", responses((status = 200, body = Health), (status = 503, description = "The decision store does not answer", body = Problem, content_type = "application/problem+json")))]
+/// Readiness: models are loaded and validated, and the write path works: the recorder runs,
+/// recent commits succeed, and the store takes writes (not a read-only standby, not locked by
+/// another writer). A replica that cannot record must not take decisions.
+#[utoipa::path(get, path = "/health/ready", tag = "operations", responses((status = 200, body = Health), (status = 503, description = "Decisions cannot be recorded now", body = Problem, content_type = "application/problem+json")))]
 pub async fn ready(state: web::Data<State>) -> Result<HttpResponse, Problem> {
     if let Some(recorder) = &state.recorder {
+        if let Some(why) = recorder.health().problem() {
+            return Err(Problem::not_ready(&why));
+        }
         let store = recorder.store().clone();
-        web::block(move || store.get(crate::records::ids::PROBE_ID))
+        web::block(move || store.probe_write())
             .await
             .map_err(|_| Problem::internal("the store worker stopped"))?
-            .map_err(|e| Problem::store_failed(&e))?;
+            .map_err(|e| {
+                tracing::warn!(error = %e, "readiness: the store cannot take writes");
+                Problem::not_ready("the decision store cannot take writes")
+            })?;
     }
     Ok(json(&Health {
         status: "ready",

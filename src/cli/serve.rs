@@ -20,7 +20,7 @@ pub struct ServeArgs {
         default_value = "models/fernhill-logistic.json"
     )]
     models: Vec<PathBuf>,
-    /// API key file: `[{"name": ..., "role": "scoring|review|admin", "sha256": ...}]`
+    /// API key file: `[{"name": ..., "role": "scoring|review|underwriting|admin", "sha256": ...}]`
     /// (see `plumbline hash-key`). PLUMBLINE_KEYS may hold the same JSON instead.
     #[arg(long, env = "PLUMBLINE_KEYS_FILE")]
     keys: Option<PathBuf>,
@@ -42,6 +42,10 @@ pub struct ServeArgs {
     /// Time for a request body to arrive, in milliseconds.
     #[arg(long, default_value_t = 5_000)]
     body_timeout_ms: u64,
+    /// Time for a decision to be committed to the store, in milliseconds; after it the decision
+    /// is not given (503) and nothing of it is recorded.
+    #[arg(long, default_value_t = 10_000)]
+    commit_timeout_ms: u64,
     /// Worker threads (default: one per core).
     #[arg(long)]
     workers: Option<usize>,
@@ -100,6 +104,10 @@ fn check_limits(args: &ServeArgs) -> Result<(), String> {
             "--body-timeout-ms must be 10 to 600000",
         ),
         (
+            (100..=600_000).contains(&args.commit_timeout_ms),
+            "--commit-timeout-ms must be 100 to 600000",
+        ),
+        (
             args.workers.is_none_or(|w| (1..=256).contains(&w)),
             "--workers must be 1 to 256",
         ),
@@ -145,6 +153,7 @@ pub fn run(args: ServeArgs) -> i32 {
             max_upload_bytes: args.max_upload_bytes,
             max_batch_items: args.max_batch_items,
             body_timeout: Duration::from_millis(args.body_timeout_ms),
+            commit_timeout: Duration::from_millis(args.commit_timeout_ms),
             ..Limits::default()
         },
         workers: args

@@ -12,7 +12,7 @@ pub mod export;
 pub mod ids;
 pub mod notice;
 pub mod postgres;
-mod recorder;
+pub mod recorder;
 mod sql;
 pub mod sqlite;
 
@@ -95,10 +95,20 @@ pub enum Insert {
 
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum StoreError {
+    /// The store cannot be reached (connection refused or lost before a commit was asked for).
     #[error("store unavailable: {0}")]
     Unavailable(String),
+    /// The deadline passed before the commit (a lock held elsewhere, a stalled server); the
+    /// transaction was rolled back.
+    #[error("store timeout: {0}")]
+    Timeout(String),
+    /// A statement failed; the transaction was rolled back.
     #[error("store error: {0}")]
     Failed(String),
+    /// The connection broke after the commit was asked for and the outcome could not be
+    /// established afterwards: the records may or may not be in the store.
+    #[error("store outcome unknown: {0}")]
+    Unknown(String),
 }
 
 /// Search filters; every present filter must hold. Times are normalised RFC 3339 (see
@@ -240,7 +250,17 @@ pub trait Store: Send + Sync {
     /// Writes the records in one transaction, committed before this returns. A record whose
     /// idempotency key is already recorded (earlier, or earlier in the same group) is not written;
     /// its outcome carries the recorded one.
-    fn insert_group(&self, records: &[Record]) -> Result<Vec<Insert>, StoreError>;
+    fn insert_group(&self, records: &[Record]) -> Result<Vec<Insert>, StoreError> {
+        self.write_group(records, None)
+    }
+    /// As [`Store::insert_group`], given up (and rolled back) if the commit cannot begin by
+    /// `deadline`: waits for locks and for a stalled server end there. A commit that has begun
+    /// is waited for, so `Ok` always means committed and `Timeout` never does.
+    fn write_group(
+        &self,
+        records: &[Record],
+        deadline: Option<std::time::Instant>,
+    ) -> Result<Vec<Insert>, StoreError>;
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError>;
     /// The record holding this idempotency key, if any.
     fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError>;
@@ -254,6 +274,9 @@ pub trait Store: Send + Sync {
         query: &Query,
         sink: &mut dyn FnMut(&Record) -> bool,
     ) -> Result<u64, StoreError>;
+    /// Whether the store can take writes now (readiness): it answers, is not read-only (a
+    /// PostgreSQL standby after a failover; a read-only file) and no writer holds it locked.
+    fn probe_write(&self) -> Result<(), StoreError>;
     /// A short name for logs and errors: `sqlite:PATH` or `postgres:HOST/DB`.
     fn describe(&self) -> String;
 }

@@ -3,42 +3,120 @@
 //! replica find the first record. Migrations run under an advisory lock, so replicas starting
 //! together apply each exactly once.
 //!
-//! The client is the synchronous `postgres` crate; it is called only from the recorder thread and
-//! the blocking pool, never from an async worker.
+//! Every wait on the server is bounded on our side, since a server that stops answering (a
+//! paused process, a network partition) keeps TCP alive and would block forever: connections
+//! get connect, keepalive and TCP user timeouts (unless the URL sets its own), reads a time
+//! limit per step, and a group write its deadline up to the commit. A commit asked for is then
+//! waited for; if its connection breaks, the writer reconnects, makes sure the old server
+//! process is gone, and looks for the records, so an answer is "committed" or "not committed"
+//! as the database holds it, and "unknown" only when the database stays out of reach.
+//!
+//! Built on `tokio-postgres` with a runtime of the store's own: callers (the recorder thread,
+//! the blocking pool, the command line) block on it, never an async worker.
 
 use super::sql::{self, MIGRATIONS, MIGRATIONS_TABLE};
 use super::{FinalAction, FinalInsert, Insert, Page, Query, Record, Store, StoreError};
-use postgres::fallible_iterator::FallibleIterator;
-use postgres::types::ToSql;
-use postgres::{Client, NoTls, Row};
+use futures_util::{pin_mut, TryStreamExt};
+use std::future::Future;
 use std::sync::Mutex;
+use std::time::{Duration, Instant};
+use tokio::task::AbortHandle;
+use tokio_postgres::types::ToSql;
+use tokio_postgres::{Client, Config, NoTls, Row};
 
 /// Read connections kept open for reuse.
 const IDLE_READERS: usize = 8;
 /// Key of the advisory lock held while migrating (any constant shared by all replicas).
 const MIGRATION_LOCK: i64 = 0x706c_756d_626c;
+/// Longest wait for one read step (a look-up, a page, the next rows of an export).
+const READ_STEP: Duration = Duration::from_secs(30);
+/// Longest wait for a new connection, the startup exchange included (the driver's own connect
+/// timeout covers the TCP connect only).
+const CONNECT_WAIT: Duration = Duration::from_secs(10);
+/// Longest wait for a write with no deadline of its own (final actions, migrations).
+const WRITE_WAIT: Duration = Duration::from_secs(30);
+/// How long a commit asked for is waited for before its outcome is looked up instead.
+const COMMIT_WAIT: Duration = Duration::from_secs(30);
+/// How long the writer keeps trying to establish a broken commit's outcome.
+const SETTLE_WAIT: Duration = Duration::from_secs(60);
 
-pub struct PostgresStore {
-    url: String,
-    writer: Mutex<Option<Client>>,
-    readers: Mutex<Vec<Client>>,
-}
-
-fn failed(e: postgres::Error) -> StoreError {
-    if e.is_closed() {
-        StoreError::Unavailable(e.to_string())
-    } else {
-        StoreError::Failed(format!(
-            "{e}{}",
-            e.as_db_error()
-                .map(|d| format!(" ({})", d.message()))
-                .unwrap_or_default()
-        ))
+/// Connection settings applied unless the URL gives its own: a partition is noticed in tens of
+/// seconds, not the operating system's two hours.
+fn apply_defaults(url: &str, c: &mut Config) {
+    let unset = |name: &str| !url.contains(name);
+    if unset("connect_timeout") {
+        c.connect_timeout(Duration::from_secs(5));
+    }
+    if unset("keepalives_idle") {
+        c.keepalives_idle(Duration::from_secs(10));
+    }
+    if unset("keepalives_interval") {
+        c.keepalives_interval(Duration::from_secs(5));
+    }
+    if unset("keepalives_retries") {
+        c.keepalives_retries(3);
+    }
+    if unset("tcp_user_timeout") {
+        c.tcp_user_timeout(Duration::from_secs(20));
     }
 }
 
-fn connect(url: &str) -> Result<Client, StoreError> {
-    Client::connect(url, NoTls).map_err(|e| StoreError::Unavailable(format!("cannot connect: {e}")))
+/// One connection: the client, its server process (for settling a broken commit) and the task
+/// that drives it (aborted to drop a connection that stopped answering).
+struct Conn {
+    client: Client,
+    pid: i32,
+    task: AbortHandle,
+}
+
+impl Conn {
+    fn usable(&self) -> bool {
+        !self.client.is_closed() && !self.task.is_finished()
+    }
+}
+
+impl Drop for Conn {
+    fn drop(&mut self) {
+        self.task.abort();
+    }
+}
+
+pub struct PostgresStore {
+    config: Config,
+    described: String,
+    /// `Some` until dropped (on a thread of its own: a runtime cannot be dropped in an async
+    /// context, and the last reference to a store may be dropped in one).
+    rt: Option<tokio::runtime::Runtime>,
+    writer: Mutex<Option<Conn>>,
+    readers: Mutex<Vec<Conn>>,
+}
+
+fn failed(e: tokio_postgres::Error) -> StoreError {
+    match e.as_db_error() {
+        // The server answered: the statement (and its transaction) failed.
+        Some(d) => StoreError::Failed(format!("{} ({})", d.message(), d.code().code())),
+        None if e.is_closed() => StoreError::Unavailable(format!("connection closed: {e}")),
+        None => StoreError::Unavailable(e.to_string()),
+    }
+}
+
+fn stalled(what: &str, after: Duration) -> StoreError {
+    StoreError::Timeout(format!(
+        "{what}: no answer from the server within {} ms",
+        after.as_millis()
+    ))
+}
+
+/// Runs `f` against the deadline; a late one is a timeout (the caller drops the connection).
+async fn within<T>(
+    deadline: Instant,
+    what: &str,
+    f: impl Future<Output = Result<T, StoreError>>,
+) -> Result<T, StoreError> {
+    let allowed = deadline.saturating_duration_since(Instant::now());
+    tokio::time::timeout_at(deadline.into(), f)
+        .await
+        .unwrap_or_else(|_| Err(stalled(what, allowed)))
 }
 
 fn row_to_record(r: &Row) -> Result<Record, StoreError> {
@@ -61,7 +139,7 @@ fn row_to_record(r: &Row) -> Result<Record, StoreError> {
         response: get(14)?,
         final_action: match r.try_get::<_, Option<String>>(15).map_err(failed)? {
             None => None,
-            Some(action) => Some(super::FinalAction {
+            Some(action) => Some(FinalAction {
                 decision_id: get(0)?,
                 action,
                 reasons: get(16)?,
@@ -75,198 +153,434 @@ fn row_to_record(r: &Row) -> Result<Record, StoreError> {
     })
 }
 
-fn migrate(c: &mut Client) -> Result<(), StoreError> {
-    let mut tx = c.transaction().map_err(failed)?;
-    tx.execute("SELECT pg_advisory_xact_lock($1)", &[&MIGRATION_LOCK])
+fn text_params(params: &[String]) -> Vec<&(dyn ToSql + Sync)> {
+    params.iter().map(|p| p as &(dyn ToSql + Sync)).collect()
+}
+
+fn record_params(r: &Record) -> [&(dyn ToSql + Sync); 15] {
+    [
+        &r.decision_id,
+        &r.application_id,
+        &r.idempotency_key,
+        &r.received_at,
+        &r.decided_at,
+        &r.model_id,
+        &r.model_version,
+        &r.model_sha256,
+        &r.plumbline_version,
+        &r.request_sha256,
+        &r.outcome,
+        &r.probability,
+        &r.score,
+        &r.request,
+        &r.response,
+    ]
+}
+
+/// The record whose `key` column equals `value`, if any (on a client or in a transaction).
+async fn one(
+    c: &impl tokio_postgres::GenericClient,
+    key: sql::Key,
+    value: &str,
+) -> Result<Option<Record>, StoreError> {
+    let rows = c
+        .query(&sql::select_one(key), &[&value])
+        .await
         .map_err(failed)?;
-    tx.batch_execute(MIGRATIONS_TABLE).map_err(failed)?;
+    rows.first().map(row_to_record).transpose()
+}
+
+async fn migrate(c: &mut Client) -> Result<(), StoreError> {
+    let tx = c.transaction().await.map_err(failed)?;
+    tx.execute("SELECT pg_advisory_xact_lock($1)", &[&MIGRATION_LOCK])
+        .await
+        .map_err(failed)?;
+    tx.batch_execute(MIGRATIONS_TABLE).await.map_err(failed)?;
     let done: i64 = tx
         .query_one(
             "SELECT COALESCE(MAX(version), 0)::BIGINT FROM plumbline_migrations",
             &[],
         )
+        .await
         .map_err(failed)?
         .get(0);
     for m in MIGRATIONS.iter().filter(|m| m.version > done) {
-        tx.batch_execute(m.sql).map_err(failed)?;
+        tx.batch_execute(m.sql).await.map_err(failed)?;
         tx.execute(
             "INSERT INTO plumbline_migrations (version, about, applied_at) VALUES ($1, $2, $3)",
             &[&m.version, &m.about, &super::now()],
         )
+        .await
         .map_err(failed)?;
     }
-    tx.commit().map_err(failed)
+    tx.commit().await.map_err(failed)
 }
 
-fn text_params(params: &[String]) -> Vec<&(dyn ToSql + Sync)> {
-    params.iter().map(|p| p as &(dyn ToSql + Sync)).collect()
+/// What a group write got to: the inserts' outcomes, the ids it inserted (to look for if the
+/// commit's answer is lost), and whether the commit was asked for.
+enum Attempt {
+    Committed(Vec<Insert>),
+    Refused(StoreError),
+    /// The commit was sent and its answer did not come back.
+    Broken(Vec<Insert>, Vec<String>, StoreError),
 }
 
 impl PostgresStore {
     /// Connects, and applies pending migrations.
     pub fn open(url: &str) -> Result<Self, StoreError> {
-        let mut writer = connect(url)?;
-        migrate(&mut writer)?;
-        Ok(PostgresStore {
-            url: url.to_string(),
-            writer: Mutex::new(Some(writer)),
+        let mut config: Config = url
+            .parse()
+            .map_err(|e| StoreError::Unavailable(format!("not a PostgreSQL URL: {e}")))?;
+        apply_defaults(url, &mut config);
+        let rt = tokio::runtime::Builder::new_multi_thread()
+            .worker_threads(1)
+            .thread_name("plumbline-postgres")
+            .enable_all()
+            .build()
+            .map_err(|e| {
+                StoreError::Unavailable(format!("cannot start the client runtime: {e}"))
+            })?;
+        let store = PostgresStore {
+            described: describe(&config),
+            config,
+            rt: Some(rt),
+            writer: Mutex::new(None),
             readers: Mutex::new(Vec::new()),
-        })
+        };
+        let mut conn = store.connect()?;
+        store.block_on(within(
+            Instant::now() + WRITE_WAIT,
+            "migrating",
+            migrate(&mut conn.client),
+        ))?;
+        *store.writer.lock().map_err(|_| poisoned())? = Some(conn);
+        Ok(store)
     }
 
-    fn with_reader<T>(
-        &self,
-        f: impl FnOnce(&mut Client) -> Result<T, StoreError>,
-    ) -> Result<T, StoreError> {
-        let idle = self.readers.lock().ok().and_then(|mut v| v.pop());
-        let mut conn = match idle {
-            Some(c) if !c.is_closed() => c,
-            _ => connect(&self.url)?,
+    fn block_on<F: Future>(&self, f: F) -> F::Output {
+        self.rt.as_ref().expect("runtime until drop").block_on(f)
+    }
+
+    fn connect(&self) -> Result<Conn, StoreError> {
+        self.connect_by(Instant::now() + CONNECT_WAIT)
+    }
+
+    /// A new connection, given up at `deadline`.
+    fn connect_by(&self, deadline: Instant) -> Result<Conn, StoreError> {
+        let config = self.config.clone();
+        let rt = self.rt.as_ref().expect("runtime until drop");
+        let (client, connection) = self.block_on(within(deadline, "connecting", async {
+            (config.connect(NoTls).await)
+                .map_err(|e| StoreError::Unavailable(format!("cannot connect: {e}")))
+        }))?;
+        let task = rt
+            .spawn(async move {
+                if let Err(e) = connection.await {
+                    tracing::debug!(error = %e, "a PostgreSQL connection ended");
+                }
+            })
+            .abort_handle();
+        let pid = self.block_on(within(deadline, "connecting", async {
+            let row = (client.query_one("SELECT pg_backend_pid()", &[]).await).map_err(failed)?;
+            Ok(row.get::<_, i32>(0))
+        }));
+        // Built first so that a failed query still aborts the connection's task.
+        let mut conn = Conn {
+            client,
+            pid: 0,
+            task,
         };
-        let out = f(&mut conn);
-        if let Ok(mut v) = self.readers.lock() {
-            if v.len() < IDLE_READERS && !conn.is_closed() {
-                v.push(conn);
+        conn.pid = pid?;
+        Ok(conn)
+    }
+
+    /// An idle read connection, or a new one.
+    fn reader(&self) -> Result<Conn, StoreError> {
+        let idle = self.readers.lock().ok().and_then(|mut v| v.pop());
+        match idle {
+            Some(c) if c.usable() => Ok(c),
+            _ => self.connect(),
+        }
+    }
+
+    /// Keeps a read connection for reuse, unless its work erred or stalled.
+    fn give_back<T>(&self, conn: Conn, out: Result<T, StoreError>) -> Result<T, StoreError> {
+        if out.is_ok() && conn.usable() {
+            if let Ok(mut v) = self.readers.lock() {
+                if v.len() < IDLE_READERS {
+                    v.push(conn);
+                }
             }
         }
         out
     }
-}
 
-/// The synchronous client closes its connection by blocking on its own runtime, which panics
-/// inside an async context; the last reference to a store may well be dropped in one (a server
-/// worker shutting down), so the clients are closed on a thread of their own.
-impl Drop for PostgresStore {
-    fn drop(&mut self) {
-        let writer = self.writer.get_mut().ok().and_then(Option::take);
-        let readers = self
-            .readers
-            .get_mut()
-            .map(std::mem::take)
-            .unwrap_or_default();
-        let _ = std::thread::spawn(move || drop((writer, readers))).join();
+    /// The writer connection, reconnected (by `deadline`) if it was lost or dropped after an
+    /// error.
+    fn writer(
+        &self,
+        deadline: Instant,
+    ) -> Result<std::sync::MutexGuard<'_, Option<Conn>>, StoreError> {
+        let mut guard = self.writer.lock().map_err(|_| poisoned())?;
+        if !guard.as_ref().is_some_and(Conn::usable) {
+            *guard = None;
+            *guard = Some(self.connect_by(deadline)?);
+        }
+        Ok(guard)
+    }
+
+    /// Once a commit's answer was lost: waits until the old server process is gone (asking it
+    /// to end), then looks for the inserted records. All or none of them are there.
+    fn settle(&self, old_pid: i32, inserted: &[String]) -> Result<bool, StoreError> {
+        let until = Instant::now() + SETTLE_WAIT;
+        let mut last = String::new();
+        while Instant::now() < until {
+            let attempt = self.connect().and_then(|conn| {
+                self.block_on(within(
+                    Instant::now() + READ_STEP,
+                    "settling a commit",
+                    async {
+                        let c = &conn.client;
+                        c.execute("SELECT pg_terminate_backend($1)", &[&old_pid])
+                            .await
+                            .map_err(failed)?;
+                        let alive: i64 = c
+                            .query_one(
+                                "SELECT COUNT(*) FROM pg_stat_activity WHERE pid = $1",
+                                &[&old_pid],
+                            )
+                            .await
+                            .map_err(failed)?
+                            .get(0);
+                        if alive > 0 {
+                            return Ok(None);
+                        }
+                        let found: i64 = c
+                            .query_one(
+                                "SELECT COUNT(*) FROM decisions WHERE decision_id = ANY($1)",
+                                &[&inserted],
+                            )
+                            .await
+                            .map_err(failed)?
+                            .get(0);
+                        Ok(Some(found as usize == inserted.len()))
+                    },
+                ))
+            });
+            match attempt {
+                Ok(Some(committed)) => return Ok(committed),
+                Ok(None) => last = format!("server process {old_pid} is still running"),
+                Err(e) => last = e.to_string(),
+            }
+            std::thread::sleep(Duration::from_millis(200));
+        }
+        Err(StoreError::Unknown(format!(
+            "the commit's answer was lost and its outcome could not be established within {} s ({last})",
+            SETTLE_WAIT.as_secs()
+        )))
     }
 }
 
-/// The record whose `key` column equals `value`, if any (on a client or in a transaction).
-fn one(
-    c: &mut impl postgres::GenericClient,
-    key: sql::Key,
-    value: &str,
-) -> Result<Option<Record>, StoreError> {
-    let rows = c.query(&sql::select_one(key), &[&value]).map_err(failed)?;
-    rows.first().map(row_to_record).transpose()
+fn poisoned() -> StoreError {
+    StoreError::Failed("writer lock poisoned".into())
 }
 
-impl Store for PostgresStore {
-    fn insert_group(&self, records: &[Record]) -> Result<Vec<Insert>, StoreError> {
-        let mut guard = self
-            .writer
-            .lock()
-            .map_err(|_| StoreError::Failed("writer lock poisoned".into()))?;
-        if guard.as_ref().is_none_or(Client::is_closed) {
-            *guard = Some(connect(&self.url)?);
-        }
-        let Some(client) = guard.as_mut() else {
-            return Err(StoreError::Unavailable("no connection".into()));
-        };
-        let mut tx = client.transaction().map_err(failed)?;
-        let insert = tx.prepare(sql::INSERT).map_err(failed)?;
+/// Host, port and database: never the user or password.
+fn describe(c: &Config) -> String {
+    let host = match c.get_hosts().first() {
+        Some(tokio_postgres::config::Host::Tcp(h)) => h.clone(),
+        Some(tokio_postgres::config::Host::Unix(p)) => p.display().to_string(),
+        None => "localhost".into(),
+    };
+    let port = c.get_ports().first().copied().unwrap_or(5432);
+    format!("postgres:{host}:{port}/{}", c.get_dbname().unwrap_or(""))
+}
+
+impl Drop for PostgresStore {
+    fn drop(&mut self) {
+        let writer = self.writer.get_mut().ok().and_then(Option::take);
+        let readers = (self.readers.get_mut())
+            .map(std::mem::take)
+            .unwrap_or_default();
+        let rt = self.rt.take();
+        let _ = std::thread::spawn(move || drop((writer, readers, rt))).join();
+    }
+}
+
+/// Inserts the group up to the commit within `deadline`, then asks for the commit.
+async fn attempt_group(c: &mut Client, records: &[Record], deadline: Instant) -> Attempt {
+    let before = within(deadline, "writing decision records", async {
+        let tx = c.transaction().await.map_err(failed)?;
+        // The server gives up too, should our side not notice first.
+        let ms = deadline
+            .saturating_duration_since(Instant::now())
+            .as_millis()
+            .max(1);
+        tx.batch_execute(&format!(
+            "SET LOCAL statement_timeout = {ms}; SET LOCAL lock_timeout = {ms}"
+        ))
+        .await
+        .map_err(failed)?;
+        let insert = tx.prepare(sql::INSERT).await.map_err(failed)?;
         let mut out = Vec::with_capacity(records.len());
+        let mut inserted = Vec::new();
         for r in records {
             let written = tx
-                .execute(
-                    &insert,
-                    &[
-                        &r.decision_id,
-                        &r.application_id,
-                        &r.idempotency_key,
-                        &r.received_at,
-                        &r.decided_at,
-                        &r.model_id,
-                        &r.model_version,
-                        &r.model_sha256,
-                        &r.plumbline_version,
-                        &r.request_sha256,
-                        &r.outcome,
-                        &r.probability,
-                        &r.score,
-                        &r.request,
-                        &r.response,
-                    ],
-                )
+                .execute(&insert, &record_params(r))
+                .await
                 .map_err(failed)?;
             out.push(match (written, &r.idempotency_key) {
-                (1, _) => Insert::Inserted,
-                (_, Some(key)) => match one(&mut tx, sql::Key::IdempotencyKey, key)? {
+                (1, _) => {
+                    inserted.push(r.decision_id.clone());
+                    Insert::Inserted
+                }
+                (_, Some(key)) => match one(&tx, sql::Key::IdempotencyKey, key).await? {
                     Some(existing) => Insert::Existing(Box::new(existing)),
                     None => return Err(StoreError::Failed("conflict without a record".into())),
                 },
                 (_, None) => return Err(StoreError::Failed("record not written".into())),
             });
         }
-        tx.commit().map_err(failed)?;
-        Ok(out)
+        if Instant::now() >= deadline {
+            return Err(stalled("writing decision records", Duration::ZERO));
+        }
+        Ok((tx, out, inserted))
+    })
+    .await;
+    let (tx, out, inserted) = match before {
+        Ok(parts) => parts,
+        Err(e) => return Attempt::Refused(e),
+    };
+    match tokio::time::timeout(COMMIT_WAIT, tx.commit()).await {
+        Ok(Ok(())) => Attempt::Committed(out),
+        // The server answered no: nothing was committed.
+        Ok(Err(e)) if e.as_db_error().is_some() => Attempt::Refused(failed(e)),
+        Ok(Err(e)) => Attempt::Broken(out, inserted, failed(e)),
+        Err(_) => Attempt::Broken(out, inserted, stalled("committing", COMMIT_WAIT)),
+    }
+}
+
+impl Store for PostgresStore {
+    fn write_group(
+        &self,
+        records: &[Record],
+        deadline: Option<Instant>,
+    ) -> Result<Vec<Insert>, StoreError> {
+        let deadline = deadline.unwrap_or_else(|| Instant::now() + WRITE_WAIT);
+        if Instant::now() >= deadline {
+            return Err(stalled("writing decision records", Duration::ZERO));
+        }
+        let mut guard = self.writer(deadline)?;
+        let conn = guard
+            .as_mut()
+            .ok_or_else(|| StoreError::Unavailable("no connection".into()))?;
+        let pid = conn.pid;
+        match self.block_on(attempt_group(&mut conn.client, records, deadline)) {
+            Attempt::Committed(out) => Ok(out),
+            Attempt::Refused(e) => {
+                // A connection that stalled or broke is not trusted again.
+                if !matches!(e, StoreError::Failed(_)) {
+                    *guard = None;
+                }
+                Err(e)
+            }
+            Attempt::Broken(out, inserted, e) => {
+                *guard = None;
+                tracing::warn!(error = %e, "a commit's answer was lost; establishing its outcome");
+                if inserted.is_empty() || self.settle(pid, &inserted)? {
+                    Ok(out)
+                } else {
+                    Err(StoreError::Unavailable(format!(
+                        "the commit did not happen: {e}"
+                    )))
+                }
+            }
+        }
     }
 
     fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError> {
-        self.with_reader(|c| one(c, sql::Key::IdempotencyKey, key))
+        let conn = self.reader()?;
+        let out = self.block_on(within(
+            Instant::now() + READ_STEP,
+            "looking up a key",
+            async { one(&conn.client, sql::Key::IdempotencyKey, key).await },
+        ));
+        self.give_back(conn, out)
     }
 
     fn insert_final_action(&self, a: &FinalAction) -> Result<FinalInsert, StoreError> {
-        let mut guard = self
-            .writer
-            .lock()
-            .map_err(|_| StoreError::Failed("writer lock poisoned".into()))?;
-        if guard.as_ref().is_none_or(Client::is_closed) {
-            *guard = Some(connect(&self.url)?);
+        let mut guard = self.writer(Instant::now() + CONNECT_WAIT)?;
+        let conn = guard
+            .as_mut()
+            .ok_or_else(|| StoreError::Unavailable("no connection".into()))?;
+        let out = self.block_on(within(
+            Instant::now() + WRITE_WAIT,
+            "recording a final action",
+            async {
+                let tx = conn.client.transaction().await.map_err(failed)?;
+                let written = tx
+                    .execute(
+                        sql::INSERT_FINAL,
+                        &[
+                            &a.decision_id,
+                            &a.action,
+                            &a.reasons,
+                            &a.note,
+                            &a.decided_by,
+                            &a.decided_at,
+                            &a.idempotency_key,
+                            &a.body_sha256,
+                        ],
+                    )
+                    .await
+                    .map_err(failed)?;
+                let out = if written == 1 {
+                    FinalInsert::Inserted
+                } else {
+                    let existing = one(&tx, sql::Key::DecisionId, &a.decision_id)
+                        .await?
+                        .and_then(|r| r.final_action)
+                        .ok_or_else(|| {
+                            StoreError::Failed("conflict without a final action".into())
+                        })?;
+                    FinalInsert::Existing(existing)
+                };
+                tx.commit().await.map_err(failed)?;
+                Ok(out)
+            },
+        ));
+        if matches!(
+            out,
+            Err(StoreError::Timeout(_) | StoreError::Unavailable(_))
+        ) {
+            *guard = None;
         }
-        let Some(client) = guard.as_mut() else {
-            return Err(StoreError::Unavailable("no connection".into()));
-        };
-        let mut tx = client.transaction().map_err(failed)?;
-        let written = tx
-            .execute(
-                sql::INSERT_FINAL,
-                &[
-                    &a.decision_id,
-                    &a.action,
-                    &a.reasons,
-                    &a.note,
-                    &a.decided_by,
-                    &a.decided_at,
-                    &a.idempotency_key,
-                    &a.body_sha256,
-                ],
-            )
-            .map_err(failed)?;
-        let out = if written == 1 {
-            FinalInsert::Inserted
-        } else {
-            let existing = one(&mut tx, sql::Key::DecisionId, &a.decision_id)?
-                .and_then(|r| r.final_action)
-                .ok_or_else(|| StoreError::Failed("conflict without a final action".into()))?;
-            FinalInsert::Existing(existing)
-        };
-        tx.commit().map_err(failed)?;
-        Ok(out)
+        out
     }
 
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError> {
-        self.with_reader(|c| one(c, sql::Key::DecisionId, decision_id))
+        let conn = self.reader()?;
+        let out = self.block_on(within(
+            Instant::now() + READ_STEP,
+            "looking up a decision",
+            async { one(&conn.client, sql::Key::DecisionId, decision_id).await },
+        ));
+        self.give_back(conn, out)
     }
 
     fn search(&self, query: &Query, limit: usize) -> Result<Page, StoreError> {
         let limit = limit.clamp(1, super::MAX_PAGE);
         let (text, params) = sql::select(query, Some(limit + 1));
-        self.with_reader(|c| {
-            let rows = c.query(&text, &text_params(&params)).map_err(failed)?;
+        let conn = self.reader()?;
+        let out = self.block_on(within(Instant::now() + READ_STEP, "searching", async {
+            let rows = (conn.client.query(&text, &text_params(&params)).await).map_err(failed)?;
             let records = rows
                 .iter()
                 .map(row_to_record)
                 .collect::<Result<Vec<_>, _>>()?;
             Ok(Page::cut(records, limit))
-        })
+        }));
+        self.give_back(conn, out)
     }
 
     fn export(
@@ -275,34 +589,58 @@ impl Store for PostgresStore {
         sink: &mut dyn FnMut(&Record) -> bool,
     ) -> Result<u64, StoreError> {
         let (text, params) = sql::select(query, None);
-        self.with_reader(|c| {
-            // query_raw streams rows as the server sends them; nothing is collected.
-            let mut rows = c
-                .query_raw(&text, params.iter().map(|p| p as &(dyn ToSql + Sync)))
-                .map_err(failed)?;
+        let conn = self.reader()?;
+        let c = &conn.client;
+        let out = self.block_on(async {
+            // query_raw streams rows as the server sends them; nothing is collected. Each step
+            // (the query, then every row) must arrive within the read limit.
+            let rows = within(Instant::now() + READ_STEP, "exporting", async {
+                (c.query_raw(&text, params.iter().map(|p| p as &(dyn ToSql + Sync)))
+                    .await)
+                    .map_err(failed)
+            })
+            .await?;
+            pin_mut!(rows);
             let mut sent = 0;
-            while let Some(row) = rows.next().map_err(failed)? {
+            loop {
+                let next = within(Instant::now() + READ_STEP, "exporting", async {
+                    rows.try_next().await.map_err(failed)
+                })
+                .await?;
+                let Some(row) = next else { break };
                 if !sink(&row_to_record(&row)?) {
                     break;
                 }
                 sent += 1;
             }
             Ok(sent)
-        })
+        });
+        self.give_back(conn, out)
+    }
+
+    fn probe_write(&self) -> Result<(), StoreError> {
+        let conn = self.reader()?;
+        let out = self.block_on(within(Instant::now() + READ_STEP, "probing", async {
+            let row = (conn.client)
+                .query_one(
+                    "SELECT pg_is_in_recovery(), current_setting('transaction_read_only')",
+                    &[],
+                )
+                .await
+                .map_err(failed)?;
+            let (standby, read_only): (bool, String) = (row.get(0), row.get(1));
+            match (standby, read_only.as_str()) {
+                (true, _) => Err(StoreError::Unavailable(
+                    "the database is a standby (read-only)".into(),
+                )),
+                (_, "on") => Err(StoreError::Unavailable("the database is read-only".into())),
+                _ => Ok(()),
+            }
+        }));
+        self.give_back(conn, out)
     }
 
     fn describe(&self) -> String {
-        // Never the password: host, port and database only.
-        let config: Result<postgres::Config, _> = self.url.parse();
-        let Ok(c) = config else {
-            return "postgres".into();
-        };
-        let host = match c.get_hosts().first() {
-            Some(postgres::config::Host::Tcp(h)) => h.clone(),
-            Some(postgres::config::Host::Unix(p)) => p.display().to_string(),
-            None => "localhost".into(),
-        };
-        let port = c.get_ports().first().copied().unwrap_or(5432);
-        format!("postgres:{host}:{port}/{}", c.get_dbname().unwrap_or(""))
+        self.described.clone()
     }
 }

@@ -7,9 +7,14 @@ use super::{FinalAction, FinalInsert, Insert, Page, Query, Record, Store, StoreE
 use rusqlite::{params, Connection, OptionalExtension};
 use std::path::{Path, PathBuf};
 use std::sync::Mutex;
+use std::time::{Duration, Instant};
 
 /// Read connections kept open for reuse.
 const IDLE_READERS: usize = 8;
+/// How long a statement waits for another connection's lock when no deadline is given.
+const BUSY_WAIT: Duration = Duration::from_secs(10);
+/// How long a readiness probe waits for the write lock.
+const PROBE_WAIT: Duration = Duration::from_secs(1);
 
 pub struct SqliteStore {
     path: PathBuf,
@@ -18,14 +23,38 @@ pub struct SqliteStore {
 }
 
 fn failed(e: rusqlite::Error) -> StoreError {
-    StoreError::Failed(e.to_string())
+    match e.sqlite_error_code() {
+        Some(rusqlite::ErrorCode::DatabaseBusy | rusqlite::ErrorCode::DatabaseLocked) => {
+            StoreError::Timeout(format!("the database is locked by another writer ({e})"))
+        }
+        _ => StoreError::Failed(e.to_string()),
+    }
+}
+
+/// Begins a write transaction, waiting for another writer's lock until `deadline` at most.
+fn begin(
+    c: &mut Connection,
+    deadline: Option<Instant>,
+) -> Result<rusqlite::Transaction<'_>, StoreError> {
+    let wait = match deadline {
+        Some(d) => d.saturating_duration_since(Instant::now()),
+        None => BUSY_WAIT,
+    };
+    if wait.is_zero() {
+        return Err(StoreError::Timeout(
+            "the deadline passed before the write began".into(),
+        ));
+    }
+    // Once the write lock is held, WAL-mode inserts and the commit wait for no one else.
+    c.busy_timeout(wait).map_err(failed)?;
+    c.transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)
+        .map_err(failed)
 }
 
 fn connect(path: &Path) -> Result<Connection, StoreError> {
     let c = Connection::open(path)
         .map_err(|e| StoreError::Unavailable(format!("{}: {e}", path.display())))?;
-    c.busy_timeout(std::time::Duration::from_secs(10))
-        .map_err(failed)?;
+    c.busy_timeout(BUSY_WAIT).map_err(failed)?;
     c.pragma_update(None, "journal_mode", "WAL")
         .map_err(failed)?;
     c.pragma_update(None, "synchronous", "FULL")
@@ -138,14 +167,16 @@ fn one(c: &Connection, key: sql::Key, value: &str) -> Result<Option<Record>, Sto
 }
 
 impl Store for SqliteStore {
-    fn insert_group(&self, records: &[Record]) -> Result<Vec<Insert>, StoreError> {
+    fn write_group(
+        &self,
+        records: &[Record],
+        deadline: Option<Instant>,
+    ) -> Result<Vec<Insert>, StoreError> {
         let mut c = self
             .writer
             .lock()
             .map_err(|_| StoreError::Failed("writer lock poisoned".into()))?;
-        let tx = c
-            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)
-            .map_err(failed)?;
+        let tx = begin(&mut c, deadline)?;
         let mut out = Vec::with_capacity(records.len());
         {
             let mut insert = tx
@@ -194,9 +225,7 @@ impl Store for SqliteStore {
             .writer
             .lock()
             .map_err(|_| StoreError::Failed("writer lock poisoned".into()))?;
-        let tx = c
-            .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)
-            .map_err(failed)?;
+        let tx = begin(&mut c, None)?;
         let written = tx
             .execute(
                 &sql::for_sqlite(sql::INSERT_FINAL),
@@ -262,6 +291,16 @@ impl Store for SqliteStore {
             }
             Ok(sent)
         })
+    }
+
+    fn probe_write(&self) -> Result<(), StoreError> {
+        let mut c = self
+            .writer
+            .lock()
+            .map_err(|_| StoreError::Failed("writer lock poisoned".into()))?;
+        // Taking the write lock proves the file is writable and not held; nothing is written.
+        let tx = begin(&mut c, Some(Instant::now() + PROBE_WAIT))?;
+        tx.rollback().map_err(failed)
     }
 
     fn describe(&self) -> String {

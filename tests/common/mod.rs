@@ -1,6 +1,7 @@
 //! Shared test helpers: a seeded generator of random tree ensembles and rows.
 #![allow(dead_code)]
 
+pub mod proxy;
 pub mod server;
 pub mod stores;
 

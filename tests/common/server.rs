@@ -139,3 +139,36 @@ pub fn send(
     let ct = response.header("content-type").unwrap_or("").to_string();
     (status, ct, response.into_string().unwrap_or_default())
 }
+
+/// The real binary, `plumbline serve` with the demo keys on a free loopback port plus `args`;
+/// returns the process and its base URL once it listens. Its stderr is drained (never shown).
+pub fn spawn_binary(args: &[&str]) -> (std::process::Child, String) {
+    use std::io::BufRead;
+    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args([
+            "serve",
+            "--keys",
+            "models/demo-keys.json",
+            "--addr",
+            "127.0.0.1:0",
+        ])
+        .args(args)
+        .env("PLUMBLINE_LOG", "warn")
+        .stdout(std::process::Stdio::null())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut lines = std::io::BufReader::new(child.stderr.take().unwrap()).lines();
+    let base = loop {
+        let line = lines
+            .next()
+            .expect("the server announces its address")
+            .unwrap();
+        if let Some(url) = line.strip_prefix("plumbline listening on ") {
+            break url.trim().to_string();
+        }
+    };
+    // Keep draining stderr so the server never blocks on a full pipe.
+    std::thread::spawn(move || for _ in lines {});
+    (child, base)
+}
