@@ -385,6 +385,37 @@ fn adverse_action_content_as_the_law_reads_it() {
     let principal = codes(&n["principal_reasons"]);
     assert_eq!(principal[0], "AMT_LIMIT");
     assert!(!codes(&n["credit_score"]["key_factors"]).contains(&"AMT_LIMIT".to_string()));
+    // A rule reason takes a principal reason's place, never a key factor's: with a refer rule
+    // and five adverse model factors, the key factors are the four largest and then the
+    // inquiries factor (1681g(f)(1)(C): at most four; (9): inquiries beyond them).
+    let body = json!({"application_id": "FH-KEY-1", "applicant": {"requested_amount": 45000,
+        "annual_income": 60000, "debt_to_income": 41, "revolving_utilization": 88,
+        "months_since_oldest_account": 14, "delinquencies_24m": 1, "inquiries_6m": 2,
+        "months_with_employer": 4, "housing": "rent", "loan_purpose": "other"}});
+    let (status, text, _) = post(&server, &body.to_string());
+    assert_eq!(status, 200, "{text}");
+    let d: Value = serde_json::from_str(&text).unwrap();
+    let id = d["record"]["decision_id"].as_str().unwrap();
+    let (_, _, text) = review(&server, &format!("/v1/decisions/{id}/adverse-action"));
+    let key = serde_json::from_str::<Value>(&text).unwrap()["credit_score"]["key_factors"].clone();
+    let key_codes = codes(&key);
+    assert_eq!(key_codes.len(), 5, "{key_codes:?}");
+    assert_eq!(key_codes.last().map(String::as_str), Some("INQ"));
+    let mut adverse: Vec<(String, f64)> = (d["score_factors"].as_array().unwrap().iter())
+        .map(|f| {
+            (
+                f["code"].as_str().unwrap().into(),
+                f["contribution"].as_f64().unwrap(),
+            )
+        })
+        .collect();
+    adverse.truncate(4);
+    assert!(
+        adverse.windows(2).all(|w| w[0].1 >= w[1].1),
+        "largest first: {adverse:?}"
+    );
+    assert!(!key_codes.contains(&"AMT_LIMIT".to_string()));
+
     // Each list is ranked within itself, as a notice numbers it.
     for list in [&n["principal_reasons"], &n["credit_score"]["key_factors"]] {
         let ranks: Vec<u64> = (list.as_array().unwrap().iter())
@@ -468,6 +499,64 @@ fn final_actions(store: Option<String>) {
     );
     let (s, _, e) = act(UNDERWRITING, &json!({"action": "maybe"}));
     assert!(s == 422 && e.contains("\"field\":\"action\""), "{e}");
+    // A refer rule's code is why the application was referred, not a reason to decline it.
+    let (s, _, e) = act(
+        UNDERWRITING,
+        &json!({"action": "decline", "reasons": ["AMT_LIMIT"]}),
+    );
+    assert!(s == 422 && e.contains("refer_rule"), "{e}");
+    // Every fault at once, each named with its rule.
+    let (s, _, e) = act(
+        UNDERWRITING,
+        &json!({"action": "decline", "reasons": ["NOPE", "AMT", "AMT", 7], "note": "x".repeat(2001),
+            "idempotency_key": "", "colour": "red"}),
+    );
+    let p: Value = serde_json::from_str(&e).unwrap();
+    let faults: Vec<(String, String)> = (p["errors"].as_array().unwrap().iter())
+        .map(|f| {
+            (
+                f["field"].as_str().unwrap().into(),
+                f["rule"].as_str().unwrap().into(),
+            )
+        })
+        .collect();
+    for expected in [
+        ("colour", "unknown"),
+        ("reasons[2]", "unique"),
+        ("reasons[3]", "type"),
+        ("note", "max_length"),
+        ("idempotency_key", "pattern"),
+    ] {
+        assert!(
+            faults.contains(&(expected.0.into(), expected.1.into())),
+            "{expected:?} missing from {faults:?}"
+        );
+    }
+    assert_eq!(s, 422);
+    let (s, _, e) = act(UNDERWRITING, &json!({}));
+    assert!(
+        s == 422 && e.contains("\"field\":\"action\",\"rule\":\"required\""),
+        "{e}"
+    );
+    let (s, _, e) = act(UNDERWRITING, &json!(["decline", ["MR_DOCS"]]));
+    assert!(
+        s == 422 && e.contains("\"field\":\"body\",\"rule\":\"type\""),
+        "{e}"
+    );
+    let (s, _, e) = act(
+        UNDERWRITING,
+        &json!({"action": "decline", "reasons": ["MR_DOCS", "MR_CAPACITY", "MR_HISTORY", "AMT", "EMP"]}),
+    );
+    assert!(s == 422 && e.contains("max_reasons"), "{e}");
+    // The underwriter's work queue.
+    let (s, _, page) = send(
+        "GET",
+        &server.url("/v1/decisions?final_action=pending&application_id=FH-FINAL-1"),
+        Some(UNDERWRITING),
+        None,
+        None,
+    );
+    assert_eq!(s, 200, "{page}");
 
     // Recorded once, by the key's name, with the reasons' texts; a repeat is the stored answer.
     let (s, _, text) = act(UNDERWRITING, &decline);
@@ -480,6 +569,11 @@ fn final_actions(store: Option<String>) {
         .unwrap()
         .contains("verified"));
     let (s, _, again) = act(UNDERWRITING, &decline);
+    assert_eq!((s, again.as_str()), (200, text.as_str()));
+    // The same content written differently is the same final action.
+    let mut spelled_out = decline.clone();
+    spelled_out["idempotency_key"] = "los-req-77".into();
+    let (s, _, again) = act(UNDERWRITING, &spelled_out);
     assert_eq!((s, again.as_str()), (200, text.as_str()));
     let (s, _, e) = act(UNDERWRITING, &json!({"action": "approve"}));
     assert!(s == 409 && e.contains("final-action-recorded"), "{e}");
@@ -519,11 +613,11 @@ fn final_actions(store: Option<String>) {
     // Search and export see it.
     let (_, _, page) = review(&server, "/v1/decisions?final_action=decline");
     let page: Value = serde_json::from_str(&page).unwrap();
-    assert!(page["decisions"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .any(|d| d["decision_id"] == id.as_str()));
+    let hit = (page["decisions"].as_array().unwrap().iter())
+        .find(|d| d["decision_id"] == id.as_str())
+        .expect("the declined referral is found");
+    assert_eq!(hit["final_action"]["action"], "decline");
+    assert_eq!(hit["final_action"]["decided_by"], "demo-underwriting");
     let (_, _, page) = review(
         &server,
         "/v1/decisions?final_action=pending&application_id=FH-FINAL-1",
@@ -588,4 +682,53 @@ fn final_actions_on_sqlite() {
 fn final_actions_on_postgres() {
     let Some(db) = stores::postgres() else { return };
     final_actions(Some(db.url.clone()));
+}
+
+/// An approval or a withdrawal needs no reason table, so referrals can be closed after their
+/// model was unloaded; a decline needs the model's reasons and says so.
+#[test]
+fn referrals_close_after_their_model_is_gone() {
+    use common::server::UNDERWRITING;
+    let (location, _dir) = stores::sqlite();
+    let first = TestServer::start_with(
+        vec![PathBuf::from("models/fernhill-logistic.json")],
+        demo_auth(),
+        Limits::default(),
+        Some(location.clone()),
+    );
+    let refer: Value = serde_json::from_str(
+        &std::fs::read_to_string("demo-requests/03-refer-amount-rule.json").unwrap(),
+    )
+    .unwrap();
+    let mut ids = Vec::new();
+    for n in 0..2 {
+        let mut body = refer["request"]["body"].clone();
+        body["application_id"] = format!("FH-GONE-{n}").into();
+        let (status, text, _) = post(&first, &body.to_string());
+        assert_eq!(status, 200, "{text}");
+        let d: Value = serde_json::from_str(&text).unwrap();
+        ids.push(d["record"]["decision_id"].as_str().unwrap().to_string());
+    }
+    first.stop();
+    let second = TestServer::start_with(
+        vec![PathBuf::from("models/fernhill-forest.json")],
+        demo_auth(),
+        Limits::default(),
+        Some(location),
+    );
+    let act = |id: &str, body: Value| {
+        send(
+            "POST",
+            &second.url(&format!("/v1/decisions/{id}/final-action")),
+            Some(UNDERWRITING),
+            JSON,
+            Some(&body.to_string()),
+        )
+    };
+    let (s, _, text) = act(&ids[0], json!({"action": "approve"}));
+    assert_eq!(s, 201, "{text}");
+    let (s, _, e) = act(&ids[1], json!({"action": "decline", "reasons": ["AMT"]}));
+    assert!(s == 409 && e.contains("model-not-loaded"), "{e}");
+    let (s, _, text) = act(&ids[1], json!({"action": "withdrawn"}));
+    assert_eq!(s, 201, "{text}");
 }

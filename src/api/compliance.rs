@@ -14,7 +14,7 @@ use std::sync::Arc;
 use utoipa::ToSchema;
 
 const REVIEWERS: &[Role] = &[Role::Review];
-/// One decision may also be read by an underwriter settling it.
+/// One decision, and the search, may also be read by an underwriter settling referrals.
 const READERS_OF_ONE: &[Role] = &[Role::Review, Role::Underwriting];
 /// Page size when `limit` is not given.
 pub const DEFAULT_PAGE: usize = 100;
@@ -86,7 +86,7 @@ pub async fn get_decision(
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "Only review keys may read records", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such decision", body = Problem, content_type = "application/problem+json"),
-        (status = 409, description = "The decision was an approval", body = Problem, content_type = "application/problem+json"),
+        (status = 409, description = "No adverse action: the decision was an approval, a referral approved on review, or a withdrawn application", body = Problem, content_type = "application/problem+json"),
     ),
     security(("api_key" = [])))]
 pub async fn adverse_action(
@@ -105,7 +105,7 @@ pub async fn adverse_action(
         )),
         Err(notice::NoNotice::Withdrawn) => Err(Problem::no_adverse_action_because(
             &id,
-            "the applicant withdrew: the lender refused nothing, so there is no adverse action to give notice of (12 CFR 1002.2(c)(1))",
+            "the applicant withdrew: the lender refused nothing, so there is no adverse action to give notice of (12 CFR 1002.2(c)(1)(i))",
         )),
         Err(notice::NoNotice::Damaged(e)) => Err(Problem::store_failed(&e)),
     }
@@ -145,6 +145,18 @@ pub struct DecisionSummary {
     pub model_id: String,
     pub model_version: String,
     pub reason_codes: Vec<String>,
+    /// The underwriter's final action on a referral, if one is recorded.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub final_action: Option<FinalSummary>,
+}
+
+#[derive(Serialize, ToSchema)]
+pub struct FinalSummary {
+    /// `approve`, `decline` or `withdrawn`.
+    pub action: String,
+    pub decided_at: String,
+    /// The name of the key that recorded it.
+    pub decided_by: String,
 }
 
 #[derive(Serialize, ToSchema)]
@@ -173,11 +185,12 @@ pub struct SearchPage {
         (status = 200, description = "A page of decisions, oldest first", body = SearchPage),
         (status = 400, description = "A bad parameter: malformed cursor, time, or an empty range", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
-        (status = 403, description = "Only review keys may read records", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "Only review and underwriting keys may search records", body = Problem, content_type = "application/problem+json"),
     ),
     security(("api_key" = [])))]
 pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
-    let store = store(&state, &req)?;
+    // Underwriters search too: `final_action=pending` is their work queue.
+    let store = store_for(&state, &req, READERS_OF_ONE)?;
     let (query, params) = parse_query(&req, &["limit"])?;
     let limit = match params.get("limit") {
         None => DEFAULT_PAGE,
@@ -208,6 +221,11 @@ pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
                 model_id: r.model_id.clone(),
                 model_version: r.model_version.clone(),
                 reason_codes: crate::records::export::reason_codes(r),
+                final_action: r.final_action.as_ref().map(|f| FinalSummary {
+                    action: f.action.clone(),
+                    decided_at: f.decided_at.clone(),
+                    decided_by: f.decided_by.clone(),
+                }),
             })
             .collect(),
         next_cursor: page.next.map(|c| c.encode()),

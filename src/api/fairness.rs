@@ -46,11 +46,19 @@ pub struct ReportRequest {
     /// With `refer: final`, how a referral without a final action counts: `not_approved`
     /// (default) or `excluded`.
     #[schema(value_type = Option<String>)]
-    pub refer_without_final_action: Option<Refer>,
+    pub refer_without_final_action: Option<Fallback>,
     pub min_group_size: Option<f64>,
     pub sum_tolerance: Option<f64>,
     /// Approve cutoffs (probability of default) for the sweep; default 0.02 to 0.30.
     pub cutoffs: Option<Vec<f64>>,
+}
+
+/// How a referral without a final action counts under `refer: final`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Fallback {
+    NotApproved,
+    Excluded,
 }
 
 fn invalid(field: &str, rule: &'static str, message: impl Into<String>) -> Problem {
@@ -61,25 +69,18 @@ fn settings(r: &ReportRequest) -> Result<Settings, Problem> {
     let mut s = Settings {
         control: r.control.clone(),
         refer: r.refer.unwrap_or(Refer::NotApproved),
-        refer_without_final: r.refer_without_final_action.unwrap_or(Refer::NotApproved),
+        refer_without_final: match r.refer_without_final_action {
+            Some(Fallback::Excluded) => Refer::Excluded,
+            _ => Refer::NotApproved,
+        },
         ..Settings::default()
     };
-    match (s.refer, r.refer_without_final_action) {
-        (_, Some(Refer::Final)) => {
-            return Err(invalid(
-                "refer_without_final_action",
-                "one_of",
-                "not_approved or excluded",
-            ))
-        }
-        (Refer::NotApproved | Refer::Excluded, Some(_)) => {
-            return Err(invalid(
-                "refer_without_final_action",
-                "refer_final",
-                "only with refer: final",
-            ))
-        }
-        _ => {}
+    if s.refer != Refer::Final && r.refer_without_final_action.is_some() {
+        return Err(invalid(
+            "refer_without_final_action",
+            "refer_final",
+            "only with refer: final",
+        ));
     }
     if let Some(m) = r.min_group_size {
         if !(m.is_finite() && m >= 1.0) {
@@ -116,12 +117,20 @@ fn upload(r: &ReportRequest) -> Result<Vec<membership::Dimension>, Problem> {
             .unwrap_or_else(|| format!("groups.{}", e.field));
         invalid(&at, e.rule, e.message)
     };
+    // A CSV upload's faults are named by the field it came in and its data row and column.
+    let named_csv = |e: membership::UploadError| {
+        let at = match e.row {
+            Some(n) => format!("data row {n} (after the header), column {}", e.field),
+            None => format!("the {}", e.field),
+        };
+        invalid("groups_csv", e.rule, format!("{at}: {}", e.message))
+    };
     match (&r.groups, &r.groups_csv) {
         (Some(v), None) => membership::from_json(v, tolerance).map_err(named),
         (None, Some(text)) => {
             membership::from_csv(text, r.dimension.as_deref().unwrap_or("group"), tolerance)
                 .map(|d| vec![d])
-                .map_err(named)
+                .map_err(named_csv)
         }
         _ => Err(invalid(
             "groups",

@@ -163,7 +163,7 @@ impl Problem {
             StatusCode::FORBIDDEN,
             "/problems/forbidden",
             "This key may not do that",
-            format!("a {role} key cannot use this route; it needs {needed}"),
+            format!("this route is not for {role} keys; it needs {needed}"),
         )
     }
 
@@ -293,7 +293,14 @@ impl Problem {
             StatusCode::CONFLICT,
             "/problems/not-a-referral",
             "Only a referred decision takes a final action",
-            format!("decision {id} was a(n) {outcome}, which is itself the action taken"),
+            format!(
+                "decision {id} was {}, which is itself the action taken",
+                match outcome {
+                    "approve" => "an approval",
+                    "decline" => "a decline",
+                    other => other,
+                }
+            ),
         )
         .with(
             "decision_id",

@@ -6,8 +6,10 @@
 use super::auth::Role;
 use super::problem::Problem;
 use super::State;
+use crate::artifact::spec::RuleAction;
+use crate::artifact::LoadedModel;
 use crate::features::{FieldError, InputError};
-use crate::records::{FinalAction, FinalInsert};
+use crate::records::{FinalAction, FinalInsert, GivenReason, Record};
 use actix_web::{web, HttpRequest, HttpResponse};
 use serde::Deserialize;
 use serde_json::{json, Value};
@@ -16,6 +18,8 @@ use utoipa::ToSchema;
 const UNDERWRITERS: &[Role] = &[Role::Underwriting];
 /// Longest note kept with a final action.
 pub const MAX_NOTE: usize = 2000;
+/// Longest idempotency key (as for decisions).
+const MAX_KEY: usize = 128;
 
 /// The action an underwriter took.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, ToSchema)]
@@ -24,7 +28,7 @@ pub enum Action {
     Approve,
     Decline,
     /// The applicant withdrew before a decision: no adverse action, as the lender refused
-    /// nothing (12 CFR 1002.2(c)(1), cited from memory).
+    /// nothing (12 CFR 1002.2(c)(1)(i), cited from memory).
     Withdrawn,
 }
 
@@ -36,32 +40,267 @@ impl Action {
             Action::Withdrawn => "withdrawn",
         }
     }
+
+    fn parse(s: &str) -> Option<Action> {
+        match s {
+            "approve" => Some(Action::Approve),
+            "decline" => Some(Action::Decline),
+            "withdrawn" => Some(Action::Withdrawn),
+            _ => None,
+        }
+    }
 }
 
-/// `POST /v1/decisions/{id}/final-action` body.
-#[derive(Debug, Clone, Deserialize, ToSchema)]
-#[serde(deny_unknown_fields)]
+/// `POST /v1/decisions/{id}/final-action` body (documentation: the body is checked field by
+/// field by [`check`], so that every fault is named at once).
+#[derive(Debug, Clone, ToSchema)]
+#[allow(dead_code)]
 pub struct FinalActionRequest {
     pub action: Action,
-    /// For a decline, the principal reasons in order: codes of the model's reason table or the
-    /// lender's manual-review reasons (the artifact's `review_reasons`); empty otherwise.
-    #[serde(default)]
-    pub reasons: Vec<String>,
-    /// The underwriter's note (at most 2,000 characters).
-    #[serde(default)]
-    pub note: String,
-    #[serde(default)]
+    /// For a decline, the principal reasons in order (at least one, at most the policy's
+    /// `max_reasons`): codes of the model's reason table (a field's reason, or a decline rule's)
+    /// or of the lender's manual-review reasons (the artifact's `review_reasons`). A refer
+    /// rule's code says why the application was referred, not why it was declined, and is
+    /// refused. Empty (or absent) for an approval or a withdrawal.
+    #[schema(max_items = 8)]
+    pub reasons: Option<Vec<String>>,
+    /// The underwriter's note, kept for the file and never put in a notice (at most 2,000
+    /// characters).
+    #[schema(max_length = 2000)]
+    pub note: Option<String>,
+    /// The caller's own reference for this request (1 to 128 printable characters), recorded
+    /// with the final action. A repeat is recognised by its content: the decision takes one
+    /// final action, and the same body again returns it.
+    #[schema(min_length = 1, max_length = 128)]
     pub idempotency_key: Option<String>,
 }
 
-fn invalid(field: &str, rule: &'static str, message: impl Into<String>) -> Problem {
-    Problem::invalid(InputError {
-        errors: vec![FieldError {
-            field: field.into(),
-            rule,
-            message: message.into(),
-        }],
-    })
+/// A final-action body read and checked: every field's faults, or the parts.
+struct Checked {
+    action: Action,
+    reasons: Vec<String>,
+    note: String,
+    idempotency_key: Option<String>,
+}
+
+fn fault(
+    errors: &mut Vec<FieldError>,
+    field: &str,
+    rule: &'static str,
+    message: impl Into<String>,
+) {
+    errors.push(FieldError {
+        field: field.into(),
+        rule,
+        message: message.into(),
+    });
+}
+
+/// Reads the body's shape, naming every field at fault. A `null` is the same as absent.
+fn check(body: &Value) -> Result<Checked, InputError> {
+    let mut errors = Vec::new();
+    let Some(object) = body.as_object() else {
+        fault(&mut errors, "body", "type", "must be a JSON object");
+        return Err(InputError { errors });
+    };
+    for name in object.keys() {
+        if !["action", "reasons", "note", "idempotency_key"].contains(&name.as_str()) {
+            fault(
+                &mut errors,
+                name,
+                "unknown",
+                "is not a field of a final action",
+            );
+        }
+    }
+    let action = match &body["action"] {
+        Value::Null => {
+            fault(
+                &mut errors,
+                "action",
+                "required",
+                "approve, decline or withdrawn",
+            );
+            None
+        }
+        Value::String(s) => Action::parse(s).or_else(|| {
+            fault(
+                &mut errors,
+                "action",
+                "one_of",
+                format!("{s:?} is not approve, decline or withdrawn"),
+            );
+            None
+        }),
+        _ => {
+            fault(
+                &mut errors,
+                "action",
+                "type",
+                "must be a string: approve, decline or withdrawn",
+            );
+            None
+        }
+    };
+    let mut reasons = Vec::new();
+    match &body["reasons"] {
+        Value::Null => {}
+        Value::Array(items) => {
+            for (i, item) in items.iter().enumerate() {
+                match item.as_str() {
+                    Some(code) if reasons.iter().any(|r| r == code) => fault(
+                        &mut errors,
+                        &format!("reasons[{i}]"),
+                        "unique",
+                        format!("{code} is given twice"),
+                    ),
+                    Some(code) => reasons.push(code.to_string()),
+                    None => fault(
+                        &mut errors,
+                        &format!("reasons[{i}]"),
+                        "type",
+                        "must be a reason code (a string)",
+                    ),
+                }
+            }
+        }
+        _ => fault(
+            &mut errors,
+            "reasons",
+            "type",
+            "must be a list of reason codes",
+        ),
+    }
+    let note = match &body["note"] {
+        Value::Null => String::new(),
+        Value::String(s) if s.chars().count() > MAX_NOTE => {
+            fault(
+                &mut errors,
+                "note",
+                "max_length",
+                format!("at most {MAX_NOTE} characters"),
+            );
+            String::new()
+        }
+        Value::String(s) => s.clone(),
+        _ => {
+            fault(&mut errors, "note", "type", "must be a string");
+            String::new()
+        }
+    };
+    let idempotency_key = match &body["idempotency_key"] {
+        Value::Null => None,
+        Value::String(k)
+            if (1..=MAX_KEY).contains(&k.chars().count())
+                && k.chars().all(|c| c.is_ascii_graphic()) =>
+        {
+            Some(k.clone())
+        }
+        Value::String(_) => {
+            fault(
+                &mut errors,
+                "idempotency_key",
+                "pattern",
+                format!("1 to {MAX_KEY} printable ASCII characters without spaces"),
+            );
+            None
+        }
+        _ => {
+            fault(&mut errors, "idempotency_key", "type", "must be a string");
+            None
+        }
+    };
+    match (action, reasons.len()) {
+        (Some(Action::Decline), 0) if !errors.iter().any(|e| e.field.starts_with("reasons")) => {
+            fault(
+                &mut errors,
+                "reasons",
+                "required",
+                "a decline states its specific principal reasons (12 CFR 1002.9(b)(2))",
+            )
+        }
+        (Some(Action::Approve | Action::Withdrawn), n) if n > 0 => fault(
+            &mut errors,
+            "reasons",
+            "none",
+            "only a decline gives reasons",
+        ),
+        _ => {}
+    }
+    match action {
+        Some(action) if errors.is_empty() => Ok(Checked {
+            action,
+            reasons,
+            note,
+            idempotency_key,
+        }),
+        _ => Err(InputError { errors }),
+    }
+}
+
+/// A decline's reasons against the decision's own model: each code with its text and where it
+/// comes from, or every code at fault.
+fn reasons_of(model: &LoadedModel, codes: &[String]) -> Result<Vec<GivenReason>, InputError> {
+    let mut errors = Vec::new();
+    let mut given = Vec::new();
+    if codes.len() > model.policy.max_reasons {
+        fault(
+            &mut errors,
+            "reasons",
+            "max_reasons",
+            format!(
+                "at most {} principal reasons (Regulation B comment 9(b)(2)-1: more are not likely helpful)",
+                model.policy.max_reasons
+            ),
+        );
+    }
+    for (i, code) in codes.iter().enumerate() {
+        let at = format!("reasons[{i}]");
+        let table = model.reasons.index(code);
+        let by_field =
+            table.is_some_and(|r| model.schema.fields.iter().any(|f| f.reason == Some(r)));
+        let rules: Vec<RuleAction> = (model.policy.rules.iter())
+            .filter(|rule| Some(rule.reason) == table)
+            .map(|rule| rule.action)
+            .collect();
+        let source = match table {
+            Some(_) if by_field => "model",
+            Some(_) if rules.contains(&RuleAction::Decline) => "rule",
+            Some(_) => {
+                fault(
+                    &mut errors,
+                    &at,
+                    "refer_rule",
+                    format!("{code} is a refer rule's code: it says why the application was referred, not why it was declined; give the specific reason"),
+                );
+                continue;
+            }
+            None if model.review_reasons.iter().any(|r| &r.code == code) => "review",
+            None => {
+                fault(
+                    &mut errors,
+                    &at,
+                    "reason_table",
+                    format!("{code} is not in the model's reason table or its review reasons"),
+                );
+                continue;
+            }
+        };
+        let text = (model.reasons.reasons.iter().chain(&model.review_reasons))
+            .find(|r| &r.code == code)
+            .map(|r| r.text.clone())
+            .unwrap_or_default();
+        given.push(GivenReason {
+            code: code.clone(),
+            text,
+            source: source.into(),
+        });
+    }
+    if errors.is_empty() {
+        Ok(given)
+    } else {
+        Err(InputError { errors })
+    }
 }
 
 /// Record the final action on a referred decision.
@@ -74,8 +313,8 @@ fn invalid(field: &str, rule: &'static str, message: impl Into<String>) -> Probl
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "Only underwriting keys may record final actions", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "No such decision, or records are off", body = Problem, content_type = "application/problem+json"),
-        (status = 409, description = "Not a referral, another final action is recorded, or the decision's model is not loaded", body = Problem, content_type = "application/problem+json"),
-        (status = 422, description = "Bad action, reasons or note, each named with its rule", body = Problem, content_type = "application/problem+json"),
+        (status = 409, description = "Not a referral, another final action is recorded, or (for a decline) the decision's model is not loaded", body = Problem, content_type = "application/problem+json"),
+        (status = 422, description = "Bad action, reasons, note or key, each named with its rule", body = Problem, content_type = "application/problem+json"),
     ),
     security(("api_key" = [])))]
 pub async fn post_final_action(
@@ -99,97 +338,35 @@ pub async fn post_final_action(
         state.limits.body_timeout,
     )
     .await?;
-    let request: FinalActionRequest = serde_path_to_error::deserialize(&body).map_err(|e| {
-        let path = e.path().to_string();
-        invalid(
-            if path == "." { "body" } else { &path },
-            "shape",
-            e.into_inner().to_string(),
-        )
-    })?;
+    let request = check(&body).map_err(Problem::invalid)?;
     let id = id.into_inner();
-    let key = id.clone();
-    let lookup = store.clone();
-    let record = web::block(move || lookup.get(&key))
-        .await
-        .map_err(|_| Problem::internal("the store worker stopped"))?
-        .map_err(|e| Problem::store_failed(&e))?
-        .ok_or_else(|| Problem::unknown_decision(&id))?;
+    let record = look_up(store.clone(), id.clone()).await?;
     if record.outcome != "refer" {
         return Err(Problem::not_a_referral(&id, &record.outcome));
     }
-    // The reasons come from the decision's own model: its reason table and review reasons.
-    let set = state.registry.current();
-    let model = (set.models.iter())
-        .find(|m| m.sha256 == record.model_sha256)
-        .ok_or_else(|| Problem::model_not_loaded(&record.model_id, &record.model_version))?;
-    let mut reasons = Vec::new();
-    for (i, code) in request.reasons.iter().enumerate() {
-        let from_model = model.reasons.reasons.iter().find(|r| &r.code == code);
-        let found = from_model.map(|r| (r, "model")).or_else(|| {
-            model
-                .review_reasons
-                .iter()
-                .find(|r| &r.code == code)
-                .map(|r| (r, "review"))
-        });
-        let Some((reason, source)) = found else {
-            return Err(invalid(
-                &format!("reasons[{i}]"),
-                "reason_table",
-                format!("{code} is not in the model's reason table or its review reasons"),
-            ));
-        };
-        if reasons.iter().any(|r: &Value| r["code"] == *code) {
-            return Err(invalid(
-                &format!("reasons[{i}]"),
-                "unique",
-                format!("{code} is given twice"),
-            ));
-        }
-        reasons.push(json!({"code": code, "text": reason.text, "source": source}));
-    }
-    match (request.action, reasons.len()) {
-        (Action::Decline, 0) => {
-            return Err(invalid(
-                "reasons",
-                "required",
-                "a decline states its specific principal reasons (12 CFR 1002.9(b)(2))",
-            ))
-        }
-        (Action::Decline, n) if n > model.policy.max_reasons => {
-            return Err(invalid(
-                "reasons",
-                "max_reasons",
-                format!("at most {} principal reasons (Regulation B comment 9(b)(2)-1: more are not likely helpful)", model.policy.max_reasons),
-            ))
-        }
-        (Action::Approve | Action::Withdrawn, n) if n > 0 => {
-            return Err(invalid("reasons", "none", "only a decline gives reasons"))
-        }
-        _ => {}
-    }
-    if request.note.chars().count() > MAX_NOTE {
-        return Err(invalid(
-            "note",
-            "max_length",
-            format!("at most {MAX_NOTE} characters"),
-        ));
-    }
-    // What a repeat must match: the body without its idempotency key.
-    let mut canonical = body.clone();
-    if let Some(o) = canonical.as_object_mut() {
-        o.remove("idempotency_key");
-    }
+    // A decline's reasons come from the decision's own model; an approval or a withdrawal
+    // needs none, so it can be recorded after that model was unloaded.
+    let reasons = if request.action == Action::Decline {
+        let set = state.registry.current();
+        let model = (set.models.iter())
+            .find(|m| m.sha256 == record.model_sha256)
+            .ok_or_else(|| Problem::model_not_loaded(&record.model_id, &record.model_version))?;
+        reasons_of(model, &request.reasons).map_err(Problem::invalid)?
+    } else {
+        Vec::new()
+    };
+    // What a repeat must match: the action, reasons and note as read (not the raw bytes).
+    let content =
+        json!({"action": request.action.name(), "reasons": request.reasons, "note": request.note});
     let action = FinalAction {
         decision_id: record.decision_id.clone(),
         action: request.action.name().to_string(),
-        reasons: Value::Array(reasons).to_string(),
-        note: request.note.clone(),
+        reasons: serde_json::to_string(&reasons).map_err(|e| Problem::internal(&e.to_string()))?,
+        note: request.note,
         decided_by,
         decided_at: crate::records::now(),
-        idempotency_key: request.idempotency_key.clone(),
-        body_sha256: crate::artifact::sha256_hex(&crate::artifact::canonical_json(&canonical)),
+        idempotency_key: request.idempotency_key,
+        body_sha256: crate::artifact::sha256_hex(&crate::artifact::canonical_json(&content)),
     };
     let to_write = action.clone();
     let written = web::block(move || store.insert_final_action(&to_write))
@@ -217,4 +394,17 @@ pub async fn post_final_action(
         response.insert_header(("x-response-from-record", "true"));
     }
     Ok(response.content_type("application/json").body(body))
+}
+
+/// The decision a final action is for.
+async fn look_up(
+    store: std::sync::Arc<dyn crate::records::Store>,
+    id: String,
+) -> Result<Record, Problem> {
+    let key = id.clone();
+    web::block(move || store.get(&key))
+        .await
+        .map_err(|_| Problem::internal("the store worker stopped"))?
+        .map_err(|e| Problem::store_failed(&e))?
+        .ok_or_else(|| Problem::unknown_decision(&id))
 }

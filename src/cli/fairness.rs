@@ -131,6 +131,12 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
         );
         // Exports written before final actions existed have no such column.
         let final_at = table.column("final_action");
+        if final_at.is_none() && refer == Refer::Final {
+            eprintln!(
+                "warning: {} has no final_action column (an export from before final actions were recorded?); every referral counts as having none",
+                args.decisions.display()
+            );
+        }
         let bad = |n: usize, what: &str| format!("{} row {n}: {what}", args.decisions.display());
         for record in table {
             let (n, record) = record.map_err(|e| format!("{}: {e}", args.decisions.display()))?;

@@ -38,6 +38,11 @@ pub struct Decision {
     pub score_scale: ScoreScale,
     /// Principal reasons, most important first; empty when approved.
     pub reasons: Vec<PrincipalReason>,
+    /// The key factors that adversely affected the score, as a credit-score disclosure lists
+    /// them (FCRA 15 U.S.C. 1681g(f)(1)(C), (9)): the model's adverse factors, at most four, then
+    /// the inquiries factor if it was adverse but not among them. Rule reasons are not score
+    /// factors. Empty when approved.
+    pub score_factors: Vec<PrincipalReason>,
     pub rules_fired: Vec<FiredRule>,
     pub contributions: ContributionReport,
     /// Fields that were missing and what was done about each.
@@ -190,6 +195,11 @@ pub fn decide(
         .iter()
         .map(|&r| Outcome::from(policy.rules[r].action))
         .fold(policy.model_outcome(probability), Outcome::max);
+    let score_factors = if outcome == Outcome::Approve {
+        Vec::new()
+    } else {
+        model.reasons.score_factors(&by_code)
+    };
     let reasons = if outcome == Outcome::Approve {
         Vec::new()
     } else {
@@ -219,6 +229,7 @@ pub fn decide(
             provider: model.identity.score_provider.clone(),
         },
         reasons,
+        score_factors,
         rules_fired: fired
             .iter()
             .map(|&r| {

@@ -235,7 +235,16 @@ pub fn from_csv(text: &str, dimension: &str, tolerance: f64) -> Result<Dimension
                 Some(row),
                 "row",
                 "cells",
-                format!("{} cells, the header has {}", cells.len(), header.len()),
+                format!(
+                    "{} cells, the header has {}{}",
+                    cells.len(),
+                    header.len(),
+                    if cells.iter().any(|c| c.contains('\n')) {
+                        " (a quote opened in this row is not closed)"
+                    } else {
+                        ""
+                    }
+                ),
             ));
         }
         let weights = if labels {

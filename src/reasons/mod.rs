@@ -44,6 +44,10 @@ pub struct PrincipalReason {
     pub contribution: Option<f64>,
 }
 
+/// Most key factors a credit-score disclosure lists before the inquiries factor (FCRA
+/// 15 U.S.C. 1681g(f)(1)(C): "the total number of which shall not exceed 4").
+pub const KEY_FACTORS: usize = 4;
+
 /// How many reasons, and whether the inquiries reason may be an extra one.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct ReasonLimits {
@@ -73,14 +77,7 @@ impl ReasonTable {
                 chosen.push((r, ReasonSource::Rule));
             }
         }
-        let mut adverse: Vec<usize> = (0..self.reasons.len())
-            .filter(|&i| by_code[i] > 0.0)
-            .collect();
-        adverse.sort_by(|&a, &b| {
-            by_code[b]
-                .total_cmp(&by_code[a])
-                .then_with(|| self.reasons[a].code.cmp(&self.reasons[b].code))
-        });
+        let adverse = self.adverse(by_code);
         for &r in &adverse {
             if chosen.len() >= limits.max_reasons {
                 break;
@@ -97,6 +94,39 @@ impl ReasonTable {
                 chosen.push((r, ReasonSource::InquiryExtra));
             }
         }
+        self.listed(chosen, by_code)
+    }
+
+    /// The key factors that adversely affected the score, for a credit-score disclosure (FCRA
+    /// 15 U.S.C. 1681g(f)(1)(C)): the model's adverse factors, most important first, at most
+    /// [`KEY_FACTORS`], and the inquiries factor beyond them where it was adverse but not among
+    /// them (1681g(f)(9)). Policy rules are not score factors and take no place here, unlike
+    /// among the principal reasons.
+    pub fn score_factors(&self, by_code: &[f64]) -> Vec<PrincipalReason> {
+        let adverse = self.adverse(by_code);
+        let mut chosen: Vec<(usize, ReasonSource)> = (adverse.iter().take(KEY_FACTORS))
+            .map(|&r| (r, ReasonSource::Model))
+            .collect();
+        if let Some(&r) = (adverse.iter().skip(KEY_FACTORS)).find(|&&r| self.reasons[r].inquiry) {
+            chosen.push((r, ReasonSource::InquiryExtra));
+        }
+        self.listed(chosen, by_code)
+    }
+
+    /// Codes whose summed contribution pushes toward default, largest first, ties by code.
+    fn adverse(&self, by_code: &[f64]) -> Vec<usize> {
+        let mut adverse: Vec<usize> = (0..self.reasons.len())
+            .filter(|&i| by_code[i] > 0.0)
+            .collect();
+        adverse.sort_by(|&a, &b| {
+            by_code[b]
+                .total_cmp(&by_code[a])
+                .then_with(|| self.reasons[a].code.cmp(&self.reasons[b].code))
+        });
+        adverse
+    }
+
+    fn listed(&self, chosen: Vec<(usize, ReasonSource)>, by_code: &[f64]) -> Vec<PrincipalReason> {
         chosen
             .into_iter()
             .enumerate()
@@ -175,6 +205,21 @@ mod tests {
         assert_eq!(codes(&got), ["C", "A", "E", "D"]);
         assert!(got.iter().all(|r| r.contribution.unwrap() > 0.0));
         assert_eq!(got.iter().map(|r| r.rank).collect::<Vec<_>>(), [1, 2, 3, 4]);
+    }
+
+    // FCRA 15 U.S.C. 1681g(f)(1)(C): "the total number of which shall not exceed 4", subject to
+    // (9) for inquiries; a rule reason is not a factor of the score and takes no place.
+    #[test]
+    fn score_factors_are_four_model_factors_then_inquiries() {
+        let by = [0.5, 0.4, 0.9, 0.3, 0.2, 0.01, 0.0];
+        let got = table().score_factors(&by);
+        assert_eq!(codes(&got), ["C", "A", "B", "D", "INQ"]);
+        assert_eq!(got[4].source, ReasonSource::InquiryExtra);
+        // Inquiries among the four: no extra; fewer than four adverse: fewer listed.
+        let by = [0.5, -0.4, 0.0, 0.0, 0.0, 0.7, 0.0];
+        let got = table().score_factors(&by);
+        assert_eq!(codes(&got), ["INQ", "A"]);
+        assert!(got.iter().all(|r| r.source == ReasonSource::Model));
     }
 
     #[test]

@@ -56,7 +56,13 @@ impl Format {
                     (r.final_action.as_ref()).map_or(String::new(), |f| f.action.clone()),
                     (r.final_action.as_ref()).map_or(String::new(), |f| f.decided_at.clone()),
                     (r.final_action.as_ref()).map_or(String::new(), |f| f.decided_by.clone()),
-                    (r.final_action.as_ref()).map_or(String::new(), |f| f.codes().join(";")),
+                    match &r.final_action {
+                        None => String::new(),
+                        Some(f) => (f.given_reasons()?.iter())
+                            .map(|g| g.code.as_str())
+                            .collect::<Vec<_>>()
+                            .join(";"),
+                    },
                 ];
                 let cells: Vec<String> = cells.iter().map(|c| csv_cell(c)).collect();
                 Ok(cells.join(",") + "\n")

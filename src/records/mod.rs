@@ -351,7 +351,9 @@ pub struct FinalActionView<'a> {
 }
 
 impl FinalAction {
+    /// The JSON view; fails if the stored reason list is damaged.
     pub fn view(&self) -> Result<FinalActionView<'_>, StoreError> {
+        self.given_reasons()?;
         Ok(FinalActionView {
             action: &self.action,
             reasons: serde_json::from_str(&self.reasons).map_err(|e| {
@@ -367,13 +369,26 @@ impl FinalAction {
         })
     }
 
-    /// The reason codes given, in order.
-    pub fn codes(&self) -> Vec<String> {
-        let v: serde_json::Value = serde_json::from_str(&self.reasons).unwrap_or_default();
-        (v.as_array().into_iter().flatten())
-            .filter_map(|r| r["code"].as_str().map(str::to_string))
-            .collect()
+    /// The reasons as given, in order. Stored text that does not read as a reason list is a
+    /// damaged store, never an empty list.
+    pub fn given_reasons(&self) -> Result<Vec<GivenReason>, StoreError> {
+        serde_json::from_str(&self.reasons).map_err(|e| {
+            StoreError::Failed(format!(
+                "final action of {} holds an unreadable reason list: {e}",
+                self.decision_id
+            ))
+        })
     }
+}
+
+/// A reason an underwriter gave, with its text as it read when given.
+#[derive(Debug, Clone, PartialEq, Serialize, serde::Deserialize)]
+pub struct GivenReason {
+    pub code: String,
+    pub text: String,
+    /// `model` (the model's reason table), `rule` (a policy rule's reason) or `review` (the
+    /// artifact's manual-review reasons).
+    pub source: String,
 }
 
 #[derive(Serialize)]

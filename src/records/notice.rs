@@ -28,8 +28,8 @@ pub struct ScoreDisclosure {
     /// decisions carried it).
     pub range: Option<ScoreRange>,
     /// (C) The key factors that adversely affected the score, in the order the decision gave
-    /// them: the model's factors, the inquiries factor included (1681g(f)(9)); policy rules are
-    /// not score factors.
+    /// them: the model's adverse factors, at most four, then the inquiries factor if it was
+    /// adverse but not among them (1681g(f)(9)); policy rules are not score factors.
     pub key_factors: Vec<Reason>,
     /// (D) The date the score was created: the decision's date (UTC).
     pub date: String,
@@ -81,7 +81,7 @@ pub enum NoNotice {
     /// A referral the underwriter approved.
     ApprovedOnReview,
     /// The applicant withdrew: the lender refused nothing, so there is no adverse action (12 CFR
-    /// 1002.2(c)(1), cited from memory).
+    /// 1002.2(c)(1)(i), cited from memory).
     Withdrawn,
     Damaged(StoreError),
 }
@@ -100,105 +100,131 @@ enum From {
     InquiryExtra,
 }
 
-/// The content for `record`, or why there is none.
-pub fn adverse_action(record: &Record) -> Result<AdverseAction, NoNotice> {
-    if record.outcome == "approve" {
-        return Err(NoNotice::Approved);
-    }
-    let response: Value = serde_json::from_str(&record.response).map_err(|e| {
-        NoNotice::Damaged(StoreError::Failed(format!(
-            "record {} holds an unreadable response: {e}",
-            record.decision_id
-        )))
-    })?;
-    let reasons: Vec<(Reason, From)> = response["reasons"]
-        .as_array()
-        .map(Vec::as_slice)
-        .unwrap_or_default()
-        .iter()
-        .map(|r| {
-            let reason = Reason {
-                rank: r["rank"].as_u64().unwrap_or(0),
-                code: r["code"].as_str().unwrap_or_default().to_string(),
-                text: r["text"].as_str().unwrap_or_default().to_string(),
+fn damaged(record: &Record, what: &str) -> NoNotice {
+    NoNotice::Damaged(StoreError::Failed(format!(
+        "record {} holds {what}",
+        record.decision_id
+    )))
+}
+
+/// A list of reasons from the stored response, each with where it came from, ranked within
+/// the list as a notice numbers it. A damaged list is an error, never a shorter list.
+fn read_list(record: &Record, list: &Value, name: &str) -> Result<Vec<(Reason, From)>, NoNotice> {
+    let Some(items) = list.as_array() else {
+        return Err(damaged(record, &format!("no {name} list")));
+    };
+    (items.iter().enumerate())
+        .map(|(i, r)| {
+            let (Some(code), Some(text)) = (r["code"].as_str(), r["text"].as_str()) else {
+                return Err(damaged(record, &format!("an unreadable entry in {name}")));
             };
             let from = match r["source"].as_str() {
                 Some("rule") => From::Rule,
                 Some("inquiry_extra") => From::InquiryExtra,
                 _ => From::Model,
             };
-            (reason, from)
-        })
-        .collect();
-    // Each list in the decision's order, ranked within itself: a notice prints them 1, 2, ...
-    let pick = |keep: &[From]| -> Vec<Reason> {
-        (reasons.iter())
-            .filter(|(_, f)| keep.contains(f))
-            .enumerate()
-            .map(|(i, (r, _))| Reason {
+            let reason = Reason {
                 rank: i as u64 + 1,
-                ..r.clone()
+                code: code.to_string(),
+                text: text.to_string(),
+            };
+            Ok((reason, from))
+        })
+        .collect()
+}
+
+/// The entries of `list` whose source is in `keep`, ranked anew within the result.
+fn pick(list: &[(Reason, From)], keep: &[From]) -> Vec<Reason> {
+    (list.iter())
+        .filter(|(_, f)| keep.contains(f))
+        .enumerate()
+        .map(|(i, (r, _))| Reason {
+            rank: i as u64 + 1,
+            ..r.clone()
+        })
+        .collect()
+}
+
+/// The action taken, when, whether final, its note and its principal reasons: the
+/// underwriter's for a referral settled on review, else the decision's own.
+struct Action {
+    outcome: String,
+    decided_at: String,
+    is_final: bool,
+    note: &'static str,
+    principal: Vec<Reason>,
+}
+
+fn action_taken(record: &Record, reasons: &[(Reason, From)]) -> Result<Action, NoNotice> {
+    match &record.final_action {
+        Some(f) if f.action == "approve" => Err(NoNotice::ApprovedOnReview),
+        Some(f) if f.action == "withdrawn" => Err(NoNotice::Withdrawn),
+        Some(f) => {
+            let given = f.given_reasons().map_err(NoNotice::Damaged)?;
+            Ok(Action {
+                outcome: f.action.clone(),
+                decided_at: f.decided_at.clone(),
+                is_final: true,
+                note: REVIEW_DECLINE_NOTE,
+                principal: (given.into_iter().enumerate())
+                    .map(|(i, g)| Reason {
+                        rank: i as u64 + 1,
+                        code: g.code,
+                        text: g.text,
+                    })
+                    .collect(),
             })
-            .collect()
+        }
+        None => {
+            let is_final = record.outcome != "refer";
+            Ok(Action {
+                outcome: record.outcome.clone(),
+                decided_at: record.decided_at.clone(),
+                is_final,
+                note: if is_final { DECLINE_NOTE } else { REFER_NOTE },
+                principal: pick(reasons, &[From::Rule, From::Model]),
+            })
+        }
+    }
+}
+
+/// The content for `record`, or why there is none.
+pub fn adverse_action(record: &Record) -> Result<AdverseAction, NoNotice> {
+    if record.outcome == "approve" {
+        return Err(NoNotice::Approved);
+    }
+    let response: Value = serde_json::from_str(&record.response)
+        .map_err(|e| damaged(record, &format!("an unreadable response: {e}")))?;
+    let reasons = read_list(record, &response["reasons"], "reasons")?;
+    // Decisions list their score's key factors apart; a decision recorded before they did
+    // gives them among its reasons (the model's, and the extra inquiries factor).
+    let key_factors = match &response["score_factors"] {
+        Value::Null => pick(&reasons, &[From::Model, From::InquiryExtra]),
+        list => pick(
+            &read_list(record, list, "score_factors")?,
+            &[From::Model, From::InquiryExtra],
+        ),
     };
     let scale = &response["score_scale"];
     let range = match (scale["min"].as_i64(), scale["max"].as_i64()) {
         (Some(min), Some(max)) => Some(ScoreRange { min, max }),
         _ => None,
     };
-    let score_date: String = record.decided_at.chars().take(10).collect();
-    // A referral settled by an underwriter: the final action decides what the notice says.
-    let (outcome, decided_at, final_action, note, principal) = match &record.final_action {
-        Some(f) if f.action == "approve" => return Err(NoNotice::ApprovedOnReview),
-        Some(f) if f.action == "withdrawn" => return Err(NoNotice::Withdrawn),
-        Some(f) => {
-            let given: Value = serde_json::from_str(&f.reasons).unwrap_or_default();
-            let reasons = (given.as_array().into_iter().flatten().enumerate())
-                .map(|(i, r)| Reason {
-                    rank: i as u64 + 1,
-                    code: r["code"].as_str().unwrap_or_default().to_string(),
-                    text: r["text"].as_str().unwrap_or_default().to_string(),
-                })
-                .collect();
-            (
-                f.action.clone(),
-                f.decided_at.clone(),
-                true,
-                REVIEW_DECLINE_NOTE,
-                reasons,
-            )
-        }
-        None => {
-            let final_action = record.outcome != "refer";
-            let note = if final_action {
-                DECLINE_NOTE
-            } else {
-                REFER_NOTE
-            };
-            let principal = pick(&[From::Rule, From::Model]);
-            (
-                record.outcome.clone(),
-                record.decided_at.clone(),
-                final_action,
-                note,
-                principal,
-            )
-        }
-    };
+    let action = action_taken(record, &reasons)?;
     Ok(AdverseAction {
         decision_id: record.decision_id.clone(),
         application_id: record.application_id.clone(),
-        decision_date: decided_at.chars().take(10).collect(),
-        decided_at,
-        outcome,
-        final_action,
-        action_note: note,
-        principal_reasons: principal,
+        decision_date: action.decided_at.chars().take(10).collect(),
+        decided_at: action.decided_at,
+        outcome: action.outcome,
+        final_action: action.is_final,
+        action_note: action.note,
+        principal_reasons: action.principal,
         credit_score: ScoreDisclosure {
             score: record.score,
             range,
-            key_factors: pick(&[From::Model, From::InquiryExtra]),
-            date: score_date,
+            key_factors,
+            date: record.decided_at.chars().take(10).collect(),
             provided_by: scale["provider"].as_str().map(str::to_string),
         },
         model: ModelIdentity {

@@ -801,11 +801,11 @@ fn compile_policy(spec: &PolicySpec, schema: &Schema, reasons: &ReasonTable) -> 
         }
     }
     if let (Some(lo), Some(hi)) = (s.min_score, s.max_score) {
-        if !(lo.is_finite() && hi.is_finite()) || lo > hi {
+        if !(lo.is_finite() && hi.is_finite()) || lo >= hi {
             return fail(
                 "$.policy.scaling.max_score",
                 "range",
-                "min_score and max_score must be finite and ordered",
+                "max_score must be above min_score (a range of one score discloses nothing)",
             );
         }
     }
