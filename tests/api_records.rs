@@ -239,6 +239,23 @@ fn suite(store: Option<String>) {
     );
     assert_eq!(review(&server, "/v1/decisions?limit=0").0, 400);
     assert_eq!(review(&server, "/v1/decisions/export?format=xml").0, 400);
+    // Times that cannot be held are a 400 naming the parameter, not a dropped connection: the
+    // day after 9999-12-31 has a five-digit year.
+    for path in [
+        "/v1/decisions?to=9999-12-31",
+        "/v1/decisions/export?to=9999-12-31",
+        "/v1/decisions?from=2026-02-30",
+        "/v1/decisions?from=2026-12-01T09:30:00%2B01:00",
+    ] {
+        let (status, _, text) = review(&server, path);
+        assert!(
+            status == 400 && text.contains("\"field\":\""),
+            "{path}: {status} {text}"
+        );
+    }
+    let (status, _, text) = review(&server, "/v1/decisions?to=9999-12-31");
+    assert!(status == 400 && text.contains("time_range"), "{text}");
+    assert_eq!(review(&server, "/v1/decisions?from=9999-12-31").0, 200);
 }
 
 #[test]

@@ -131,8 +131,15 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
             let at = location.clone();
             let store = std::thread::spawn(move || crate::records::open(&at))
                 .join()
-                .map_err(|_| format!("decision store {location}: opening it panicked"))?
-                .map_err(|e| format!("decision store {location}: {e}"))?;
+                .map_err(|_| {
+                    format!(
+                        "decision store {}: opening it panicked",
+                        crate::records::redacted(location)
+                    )
+                })?
+                .map_err(|e| {
+                    format!("decision store {}: {e}", crate::records::redacted(location))
+                })?;
             tracing::info!(store = %store.describe(), "recording decisions");
             Some(crate::records::Recorder::start(
                 store,

@@ -55,12 +55,15 @@ impl ModelSet {
 pub struct Registry {
     paths: Vec<PathBuf>,
     current: RwLock<Arc<ModelSet>>,
+    /// Held while a reload reads and swaps.
+    reloading: std::sync::Mutex<()>,
 }
 
 impl Registry {
     pub fn new(paths: Vec<PathBuf>) -> Result<Registry, String> {
         let set = ModelSet::load(&paths)?;
         Ok(Registry {
+            reloading: std::sync::Mutex::new(()),
             paths,
             current: RwLock::new(Arc::new(set)),
         })
@@ -75,6 +78,9 @@ impl Registry {
 
     /// Loads the files again; on success swaps the new set in, on failure keeps the old one.
     pub fn reload(&self) -> Result<Arc<ModelSet>, String> {
+        // One reload at a time: two racing would each validate, and the slower could swap in
+        // files older than the faster one read.
+        let _one = self.reloading.lock().unwrap_or_else(|e| e.into_inner());
         let set = Arc::new(ModelSet::load(&self.paths)?);
         *self.current.write().unwrap_or_else(|e| e.into_inner()) = set.clone();
         Ok(set)

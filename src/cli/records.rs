@@ -94,10 +94,13 @@ fn query(f: &Filters) -> Result<crate::records::Query, String> {
 }
 
 pub fn run(args: RecordsArgs) -> i32 {
-    let store = match crate::records::open(&args.store) {
+    let store = match crate::records::open_existing(&args.store) {
         Ok(s) => s,
         Err(e) => {
-            eprintln!("error: store {}: {e}", args.store);
+            eprintln!(
+                "error: store {}: {e}",
+                crate::records::redacted(&args.store)
+            );
             return EXIT_FAILURE;
         }
     };

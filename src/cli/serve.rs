@@ -64,6 +64,13 @@ pub struct ServeArgs {
 
 fn keys(args: &ServeArgs) -> Result<Auth, String> {
     if args.no_auth {
+        // Without keys anyone who reaches the port decides and reads records: only this machine.
+        if !args.addr.ip().is_loopback() {
+            return Err(format!(
+                "--no-auth is only for a local trial: {} is not a loopback address (use 127.0.0.1 or ::1, or give --keys)",
+                args.addr.ip()
+            ));
+        }
         return Ok(Auth(None));
     }
     let text = match (&args.keys, std::env::var("PLUMBLINE_KEYS")) {

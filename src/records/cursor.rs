@@ -35,7 +35,7 @@ impl Cursor {
             .collect();
         let text = String::from_utf8(bytes?).ok()?;
         let (at, id) = text.split_once('|')?;
-        let normal = super::normalise_time(at, false)?;
+        let normal = super::normalise_time(at, false).ok()?;
         (normal == at && is_decision_id(id)).then(|| Cursor {
             decided_at: at.to_string(),
             decision_id: id.to_string(),

@@ -62,6 +62,37 @@ fn connect(path: &Path) -> Result<Connection, StoreError> {
     Ok(c)
 }
 
+/// Creates a new store's folder (0700) and file (0600) for its owner alone: records hold
+/// applicants' financial data. An existing file or folder keeps the permissions it has; SQLite
+/// gives its `-wal` and `-shm` files the database file's.
+fn create_private(path: &Path) -> Result<(), StoreError> {
+    let unavailable =
+        |p: &Path, e: std::io::Error| StoreError::Unavailable(format!("{}: {e}", p.display()));
+    if let Some(dir) = path
+        .parent()
+        .filter(|d| !d.as_os_str().is_empty() && !d.exists())
+    {
+        let mut builder = std::fs::DirBuilder::new();
+        builder.recursive(true);
+        #[cfg(unix)]
+        std::os::unix::fs::DirBuilderExt::mode(&mut builder, 0o700);
+        builder.create(dir).map_err(|e| unavailable(dir, e))?;
+    }
+    if !path.exists() {
+        let mut options = std::fs::OpenOptions::new();
+        options.write(true).create_new(true);
+        #[cfg(unix)]
+        std::os::unix::fs::OpenOptionsExt::mode(&mut options, 0o600);
+        match options.open(path) {
+            Ok(_) => {}
+            // Created meanwhile by another process: it is that one's to set.
+            Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => {}
+            Err(e) => return Err(unavailable(path, e)),
+        }
+    }
+    Ok(())
+}
+
 fn row_to_record(r: &rusqlite::Row) -> rusqlite::Result<Record> {
     Ok(Record {
         decision_id: r.get(0)?,
@@ -98,10 +129,7 @@ fn row_to_record(r: &rusqlite::Row) -> rusqlite::Result<Record> {
 impl SqliteStore {
     /// Opens (creating if needed) the file and its folder, and applies pending migrations.
     pub fn open(path: &Path) -> Result<Self, StoreError> {
-        if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
-            std::fs::create_dir_all(dir)
-                .map_err(|e| StoreError::Unavailable(format!("{}: {e}", dir.display())))?;
-        }
+        create_private(path)?;
         let mut writer = connect(path)?;
         migrate(&mut writer)?;
         Ok(SqliteStore {

@@ -96,7 +96,7 @@ pub fn draft(
         "version": "0.1.0",
         "description": format!("{DRAFT_MARK} say what this model is for, and who may use it"),
         "score_provider": format!("{DRAFT_MARK} who provides the score, as disclosures name it (the lender, or the model's owner)"),
-        "created_at": humantime::format_rfc3339_seconds(std::time::SystemTime::now()).to_string(),
+        "created_at": crate::records::now().get(..19).map(|t| format!("{t}Z")),
         "target": target,
         "kind": kind,
         "features": features,
