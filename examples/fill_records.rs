@@ -45,6 +45,7 @@ fn main() {
             score: d.score,
             request: String::from_utf8(canonical).expect("utf-8"),
             response,
+            requested_by: "fill-records".into(),
             final_action: None,
         });
         if group.len() == 10_000 {

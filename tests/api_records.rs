@@ -749,3 +749,110 @@ fn referrals_close_after_their_model_is_gone() {
     let (s, _, text) = act(&ids[1], json!({"action": "withdrawn"}));
     assert_eq!(s, 201, "{text}");
 }
+
+/// Every read of the records is in the access log (who, what, which filter, how many, the
+/// request id), readable by admin keys only; idempotency keys are the caller's own, so another
+/// key's retry of the same key is a decision of its own, never a 409 showing the first.
+fn access_and_keys(store: Option<String>) {
+    use common::server::ADMIN;
+    let server = match store {
+        Some(s) => TestServer::start_with(
+            vec![PathBuf::from("models/fernhill-logistic.json")],
+            demo_auth(),
+            Limits::default(),
+            Some(s),
+        ),
+        None => TestServer::demo(),
+    };
+    let (status, text, _) = post(&server, &request("FH-ACCESS-1", Some("shared-key-1"), 30.0));
+    assert_eq!(status, 200, "{text}");
+    let first: Value = serde_json::from_str(&text).unwrap();
+    let id = first["record"]["decision_id"].as_str().unwrap();
+    // The admin key decides with the same idempotency key and a different body: its own.
+    let (status, _, text) = send(
+        "POST",
+        &server.url("/v1/decisions"),
+        Some(ADMIN),
+        JSON,
+        Some(&request("FH-ACCESS-2", Some("shared-key-1"), 20.0)),
+    );
+    assert_eq!(status, 200, "{text}");
+    let second: Value = serde_json::from_str(&text).unwrap();
+    assert_ne!(
+        second["record"]["decision_id"],
+        first["record"]["decision_id"]
+    );
+    let (_, _, rec) = review(&server, &format!("/v1/decisions/{id}"));
+    assert_eq!(
+        serde_json::from_str::<Value>(&rec).unwrap()["requested_by"],
+        "demo-scoring"
+    );
+
+    // Reads, then the log.
+    let (s, _, _) = send(
+        "GET",
+        &server.url("/v1/decisions?application_id=FH-ACCESS-1"),
+        Some(REVIEW),
+        None,
+        None,
+    );
+    assert_eq!(s, 200);
+    assert_eq!(
+        review(&server, "/v1/decisions/export?application_id=FH-ACCESS-1").0,
+        200
+    );
+    assert_eq!(review(&server, "/v1/admin/access").0, 403);
+    let (s, _, log) = send(
+        "GET",
+        &server.url("/v1/admin/access"),
+        Some(ADMIN),
+        None,
+        None,
+    );
+    assert_eq!(s, 200, "{log}");
+    let log: Value = serde_json::from_str(&log).unwrap();
+    let entries = log["entries"].as_array().unwrap();
+    let seen: Vec<(&str, &str, Option<i64>)> = (entries.iter())
+        .map(|e| {
+            (
+                e["action"].as_str().unwrap(),
+                e["target"].as_str().unwrap(),
+                e["records"].as_i64(),
+            )
+        })
+        .collect();
+    for expected in [
+        ("get", id, Some(1)),
+        ("search", "application_id=FH-ACCESS-1", Some(1)),
+        ("export_started", "application_id=FH-ACCESS-1", None),
+        ("export", "application_id=FH-ACCESS-1", Some(1)),
+    ] {
+        assert!(seen.contains(&expected), "{expected:?} not in {seen:?}");
+    }
+    assert!(entries
+        .iter()
+        .all(|e| e["caller"] == "demo-review" && e["role"] == "review"));
+    assert!(entries
+        .iter()
+        .all(|e| !e["request_id"].as_str().unwrap().is_empty()));
+    // Reading the log is logged too.
+    let (_, _, again) = send(
+        "GET",
+        &server.url("/v1/admin/access?limit=500"),
+        Some(ADMIN),
+        None,
+        None,
+    );
+    assert!(again.contains("\"action\":\"access_log\""), "{again}");
+}
+
+#[test]
+fn access_log_and_callers_keys_on_sqlite() {
+    access_and_keys(None);
+}
+
+#[test]
+fn access_log_and_callers_keys_on_postgres() {
+    let Some(db) = stores::postgres() else { return };
+    access_and_keys(Some(db.url.clone()));
+}

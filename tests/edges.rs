@@ -86,3 +86,50 @@ fn a_new_store_is_private_to_its_owner() {
     child.kill().unwrap();
     let _ = child.wait();
 }
+
+/// Each request's log line names the calling key's name and role, and never the key.
+#[test]
+fn request_logs_name_the_caller_never_the_key() {
+    use std::io::BufRead;
+    let dir = TempDir::new();
+    let location = format!("sqlite:{}", dir.0.join("records.sqlite3").display());
+    let mut child = Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args([
+            "serve",
+            "--keys",
+            "models/demo-keys.json",
+            "--addr",
+            "127.0.0.1:0",
+            "--store",
+            &location,
+        ])
+        .env("PLUMBLINE_LOG", "info")
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut lines = std::io::BufReader::new(child.stderr.take().unwrap()).lines();
+    let base = loop {
+        let line = lines.next().unwrap().unwrap();
+        if let Some(url) = line.strip_prefix("plumbline listening on ") {
+            break url.trim().to_string();
+        }
+    };
+    let key = common::server::SCORING;
+    let (status, _, _) =
+        common::server::send("GET", &format!("{base}/v1/models"), Some(key), None, None);
+    assert_eq!(status, 200);
+    let logged = loop {
+        let line = lines.next().unwrap().unwrap();
+        if line.contains("\"message\":\"request\"") {
+            break line;
+        }
+    };
+    child.kill().unwrap();
+    let _ = child.wait();
+    assert!(
+        logged.contains("\"caller\":\"demo-scoring\"") && logged.contains("\"role\":\"scoring\""),
+        "{logged}"
+    );
+    assert!(!logged.contains(key), "the key itself was logged: {logged}");
+}

@@ -27,6 +27,7 @@ fn record(n: usize, key: Option<&str>, decided_at: &str, outcome: &str) -> Recor
         // Unicode, escapes and key order must survive byte for byte.
         request: format!("{{\"application_id\":\"FH-TEST-{n}\",\"applicant\":{{\"z\":1,\"a\":\"caf\\u00e9 ✓\"}}}}"),
         response: format!("{{\"outcome\":\"{outcome}\",\"probability_of_default\":0.1000000000000000055511151231257827,\"n\":{n}}}"),
+        requested_by: "los-test".into(),
         final_action: None,
     }
 }
@@ -50,8 +51,41 @@ fn suite(location: &str) {
     );
     assert_eq!(store.get(&a.decision_id).unwrap().as_ref(), Some(&a));
     assert_eq!(store.get(&records::ids::new_decision_id()).unwrap(), None);
-    assert_eq!(store.find_key("key-1").unwrap().as_ref(), Some(&a));
-    assert_eq!(store.find_key("no-such-key").unwrap(), None);
+    assert_eq!(
+        store.find_key("los-test", "key-1").unwrap().as_ref(),
+        Some(&a)
+    );
+    assert_eq!(store.find_key("los-test", "no-such-key").unwrap(), None);
+    // The access log: appended, read back in order, paged.
+    for (i, action) in ["get", "search", "export"].iter().enumerate() {
+        store
+            .log_access(&records::Access {
+                access_id: records::ids::new_decision_id(),
+                at: time(20 + i),
+                caller: "compliance-1".into(),
+                role: "review".into(),
+                action: action.to_string(),
+                target: "from=2026-11-01".into(),
+                records: Some(i as i64),
+                request_id: format!("req-{i}"),
+            })
+            .unwrap();
+    }
+    let log = store.access_log("", "~", None, 10).unwrap();
+    let actions: Vec<&str> = log.iter().map(|e| e.action.as_str()).collect();
+    assert_eq!(actions, ["get", "search", "export"]);
+    let after = (log[0].at.as_str(), log[0].access_id.as_str());
+    assert_eq!(
+        store.access_log("", "~", Some(after), 1).unwrap()[0].action,
+        "search"
+    );
+    assert_eq!(
+        store
+            .access_log(&time(21), &time(22), None, 10)
+            .unwrap()
+            .len(),
+        1
+    );
 
     // The same key again, and twice within one group: the first record comes back, nothing new.
     let retry = record(2, Some("key-1"), &time(11), "approve");
@@ -135,6 +169,25 @@ fn suite(location: &str) {
         })
         .unwrap();
     assert_eq!(n, 5);
+
+    // Keys are the requester's own: another caller's same key is another decision.
+    assert_eq!(store.find_key("los-other", "key-1").unwrap(), None);
+    let theirs = Record {
+        requested_by: "los-other".into(),
+        ..record(9, Some("key-1"), &time(10), "approve")
+    };
+    assert_eq!(
+        store.insert_group(std::slice::from_ref(&theirs)).unwrap(),
+        vec![Insert::Inserted]
+    );
+    assert_eq!(
+        store.find_key("los-other", "key-1").unwrap().as_ref(),
+        Some(&theirs)
+    );
+    assert_eq!(
+        store.find_key("los-test", "key-1").unwrap().as_ref(),
+        Some(&a)
+    );
 
     // Reopening applies no migration twice and keeps everything.
     let again = records::open(location).unwrap();

@@ -133,6 +133,15 @@ impl Auth {
         authorization: Option<&str>,
         allowed: &[Role],
     ) -> Result<Option<Key>, Problem> {
+        let key = self.identify(authorization)?;
+        if let Some(k) = &key {
+            permit(k, allowed)?;
+        }
+        Ok(key)
+    }
+
+    /// The presented key, if it is one of ours (`None` when auth is off; 401 otherwise).
+    fn identify(&self, authorization: Option<&str>) -> Result<Option<Key>, Problem> {
         let Some(keys) = &self.0 else {
             return Ok(None);
         };
@@ -142,20 +151,63 @@ impl Auth {
             .filter(|(scheme, _)| scheme.eq_ignore_ascii_case("bearer"))
             .map(|(_, key)| key.trim())
             .filter(|k| !k.is_empty());
-        let key = presented
+        presented
             .and_then(|k| keys.find(k))
-            .ok_or_else(Problem::unauthorized)?;
-        if key.role == Role::Admin || allowed.contains(&key.role) {
-            Ok(Some(key.clone()))
-        } else {
-            let needed = allowed
-                .iter()
-                .map(|r| r.name())
-                .collect::<Vec<_>>()
-                .join(" or ");
-            Err(Problem::forbidden(key.role.name(), &needed))
-        }
+            .cloned()
+            .map(Some)
+            .ok_or_else(Problem::unauthorized)
     }
+
+    /// Admits `req` to a route open to `allowed`. The caller is noted on the request (for its
+    /// log line) as soon as its key is known, so a refused role is logged with its name too.
+    pub fn admit(&self, req: &actix_web::HttpRequest, allowed: &[Role]) -> Result<Caller, Problem> {
+        use actix_web::HttpMessage;
+        let header = (req.headers().get("authorization")).and_then(|v| v.to_str().ok());
+        let key = self.identify(header)?;
+        let caller = match &key {
+            Some(k) => Caller {
+                name: k.name.clone(),
+                role: Some(k.role),
+            },
+            None => Caller {
+                name: Caller::UNAUTHENTICATED.into(),
+                role: None,
+            },
+        };
+        req.extensions_mut().insert(caller.clone());
+        if let Some(k) = &key {
+            permit(k, allowed)?;
+        }
+        Ok(caller)
+    }
+}
+
+/// Who is calling: a key's name and role, never the key.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Caller {
+    pub name: String,
+    /// `None` with authentication off.
+    pub role: Option<Role>,
+}
+
+impl Caller {
+    /// The name recorded for requests when authentication is off.
+    pub const UNAUTHENTICATED: &'static str = "unauthenticated";
+
+    pub fn role_name(&self) -> &'static str {
+        self.role.map_or("none", Role::name)
+    }
+}
+
+/// 403 unless `key`'s role may use a route open to `allowed` (admin keys may use every route).
+fn permit(key: &Key, allowed: &[Role]) -> Result<(), Problem> {
+    if key.role == Role::Admin || allowed.contains(&key.role) {
+        return Ok(());
+    }
+    let needed = (allowed.iter().map(|r| r.name()))
+        .collect::<Vec<_>>()
+        .join(" or ");
+    Err(Problem::forbidden(key.role.name(), &needed))
 }
 
 #[cfg(test)]

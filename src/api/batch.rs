@@ -57,7 +57,7 @@ pub async fn post_batch(
     req: HttpRequest,
     payload: web::Payload,
 ) -> Result<HttpResponse, Problem> {
-    authorize(&state, &req, DECIDERS)?;
+    let caller = authorize(&state, &req, DECIDERS)?;
     let body = read_json(
         &req,
         payload,
@@ -86,7 +86,7 @@ pub async fn post_batch(
     let received_at = crate::records::now();
     let state = state.into_inner();
     let worker = state.clone();
-    let decided = web::block(move || decide_batch(&worker, &body, received_at))
+    let decided = web::block(move || decide_batch(&worker, &body, received_at, &caller.name))
         .await
         .map_err(|_| Problem::internal("the batch worker stopped"))?;
     Ok(json(&batch_response(&state, decided).await?))
@@ -105,6 +105,7 @@ fn decide_batch(
     state: &State,
     body: &Value,
     received_at: String,
+    requested_by: &str,
 ) -> (Vec<Slot>, Vec<crate::records::Record>) {
     let items = body["items"]
         .as_array()
@@ -119,6 +120,7 @@ fn decide_batch(
                     d.idempotency_key,
                     item,
                     received_at.clone(),
+                    requested_by,
                 ));
                 Slot::Recorded
             }

@@ -2,10 +2,11 @@
 //! adverse-action content, a paginated search, and a streamed export. Everything is read from
 //! the record, never recomputed.
 
+use super::auth::Caller;
 use super::auth::Role;
 use super::problem::Problem;
 use super::State;
-use crate::records::{export::Format, notice, Query, Record, Store};
+use crate::records::{export::Format, notice, Access, Query, Record, Store};
 use actix_web::web::{self, Bytes};
 use actix_web::{HttpRequest, HttpResponse};
 use serde::Serialize;
@@ -21,15 +22,45 @@ pub const DEFAULT_PAGE: usize = 100;
 /// Export chunks are flushed at about this size.
 const CHUNK_BYTES: usize = 64 * 1024;
 
-fn store(state: &State, req: &HttpRequest) -> Result<Arc<dyn Store>, Problem> {
-    store_for(state, req, REVIEWERS)
+/// How long an export waits for a client that stopped reading before it ends the export.
+pub const EXPORT_STALL: std::time::Duration = std::time::Duration::from_secs(60);
+
+/// The store, for a caller whose role is in `roles`, and who that caller is.
+pub(super) fn store_for(
+    state: &State,
+    req: &HttpRequest,
+    roles: &[Role],
+) -> Result<(Arc<dyn Store>, Caller), Problem> {
+    let caller = state.auth.admit(req, roles)?;
+    let recorder = state.recorder.as_ref().ok_or_else(Problem::records_off)?;
+    Ok((recorder.store().clone(), caller))
 }
 
-fn store_for(state: &State, req: &HttpRequest, roles: &[Role]) -> Result<Arc<dyn Store>, Problem> {
-    let header = (req.headers().get("authorization")).and_then(|v| v.to_str().ok());
-    state.auth.check(header, roles)?;
-    let recorder = state.recorder.as_ref().ok_or_else(Problem::records_off)?;
-    Ok(recorder.store().clone())
+/// One read of the records, for the access log.
+pub(super) fn access(
+    caller: &Caller,
+    req: &HttpRequest,
+    action: &str,
+    target: &str,
+    records: Option<i64>,
+) -> Access {
+    Access {
+        access_id: crate::records::ids::new_decision_id(),
+        at: crate::records::now(),
+        caller: caller.name.clone(),
+        role: caller.role_name().to_string(),
+        action: action.to_string(),
+        target: target.to_string(),
+        records,
+        request_id: super::request_id_of(req),
+    }
+}
+
+/// Writes `entry` to the access log before anything read is returned: a read that cannot be
+/// logged is not given.
+pub(super) async fn log_access(store: &Arc<dyn Store>, entry: Access) -> Result<(), Problem> {
+    let store = store.clone();
+    blocking(move || store.log_access(&entry)).await
 }
 
 async fn blocking<T: Send + 'static>(
@@ -41,18 +72,22 @@ async fn blocking<T: Send + 'static>(
         .map_err(|e| Problem::store_failed(&e))
 }
 
-/// The record of decision `id` for a reviewer (404 when none is recorded).
+/// The record of decision `id` for a reader (404 when none is recorded), the read logged as
+/// `action`.
 async fn recorded(
     state: &State,
     req: &HttpRequest,
     id: &str,
     roles: &[Role],
+    action: &str,
 ) -> Result<Record, Problem> {
-    let store = store_for(state, req, roles)?;
+    let (store, caller) = store_for(state, req, roles)?;
     let key = id.to_string();
-    blocking(move || store.get(&key))
-        .await?
-        .ok_or_else(|| Problem::unknown_decision(id))
+    let read = store.clone();
+    let found = blocking(move || read.get(&key)).await?;
+    let entry = access(&caller, req, action, id, Some(i64::from(found.is_some())));
+    log_access(&store, entry).await?;
+    found.ok_or_else(|| Problem::unknown_decision(id))
 }
 
 /// One decision exactly as recorded: request, response, model and times.
@@ -71,7 +106,7 @@ pub async fn get_decision(
     id: web::Path<String>,
 ) -> Result<HttpResponse, Problem> {
     let id = id.into_inner();
-    let record = recorded(&state, &req, &id, READERS_OF_ONE).await?;
+    let record = recorded(&state, &req, &id, READERS_OF_ONE, "get").await?;
     let body = record.view().map_err(|e| Problem::store_failed(&e))?;
     Ok(HttpResponse::Ok()
         .content_type("application/json")
@@ -95,7 +130,7 @@ pub async fn adverse_action(
     id: web::Path<String>,
 ) -> Result<HttpResponse, Problem> {
     let id = id.into_inner();
-    let record = recorded(&state, &req, &id, REVIEWERS).await?;
+    let record = recorded(&state, &req, &id, REVIEWERS, "adverse_action").await?;
     match notice::adverse_action(&record) {
         Ok(n) => Ok(HttpResponse::Ok().json(n)),
         Err(notice::NoNotice::Approved) => Err(Problem::no_adverse_action(&id)),
@@ -190,7 +225,7 @@ pub struct SearchPage {
     security(("api_key" = [])))]
 pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
     // Underwriters search too: `final_action=pending` is their work queue.
-    let store = store_for(&state, &req, READERS_OF_ONE)?;
+    let (store, caller) = store_for(&state, &req, READERS_OF_ONE)?;
     let (query, params) = parse_query(&req, &["limit"])?;
     let limit = match params.get("limit") {
         None => DEFAULT_PAGE,
@@ -206,7 +241,16 @@ pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
                 )
             })?,
     };
-    let page = blocking(move || store.search(&query, limit)).await?;
+    let read = store.clone();
+    let page = blocking(move || read.search(&query, limit)).await?;
+    let entry = access(
+        &caller,
+        &req,
+        "search",
+        req.query_string(),
+        Some(page.records.len() as i64),
+    );
+    log_access(&store, entry).await?;
     let body = SearchPage {
         decisions: page
             .records
@@ -253,15 +297,24 @@ pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
     ),
     security(("api_key" = [])))]
 pub async fn export(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
-    let store = store(&state, &req)?;
+    let (store, caller) = store_for(&state, &req, REVIEWERS)?;
     let (query, params) = parse_query(&req, &["format"])?;
     let format = match params.get("format") {
         None => Format::JsonLines,
         Some(f) => Format::parse(f)
             .ok_or_else(|| Problem::bad_query("format", "one_of", "jsonl or csv"))?,
     };
+    // The export is logged as it starts (a read cut short still leaves its trace) and again
+    // with the number of records sent once it ends.
+    let filter = req.query_string().to_string();
+    log_access(
+        &store,
+        access(&caller, &req, "export_started", &filter, None),
+    )
+    .await?;
+    let finished = access(&caller, &req, "export", &filter, None);
     // A reader thread sends chunks through a small bounded channel: memory stays bounded
-    // whatever the range, and a client that goes away stops the read.
+    // whatever the range; a client that goes away, or stops reading for EXPORT_STALL, ends it.
     let (tx, rx) = tokio::sync::mpsc::channel::<Result<Bytes, String>>(8);
     std::thread::spawn(move || {
         let mut chunk = String::from(format.header().unwrap_or_default());
@@ -276,10 +329,19 @@ pub async fn export(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
             }
             if chunk.len() >= CHUNK_BYTES {
                 let full = std::mem::take(&mut chunk);
-                return tx.blocking_send(Ok(Bytes::from(full))).is_ok();
+                return send_within(&tx, Ok(Bytes::from(full)), EXPORT_STALL);
             }
             true
         });
+        if let Ok(sent) = &result {
+            let entry = Access {
+                records: Some(*sent as i64),
+                ..finished
+            };
+            if let Err(e) = store.log_access(&entry) {
+                tracing::error!(error = %e, "an export's end could not be logged");
+            }
+        }
         let end = match (result, failed) {
             (Err(e), _) => Err(e.to_string()),
             (_, Some(e)) => Err(e),
@@ -288,7 +350,7 @@ pub async fn export(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
         if let Err(e) = &end {
             tracing::error!(error = %e, "export stopped");
         }
-        let _ = tx.blocking_send(end);
+        send_within(&tx, end, EXPORT_STALL);
     });
     let stream = futures_util::stream::unfold(rx, |mut rx| async move {
         let item = rx.recv().await?;
@@ -305,4 +367,29 @@ pub async fn export(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
             format!("attachment; filename=\"decisions.{ext}\""),
         ))
         .streaming(stream))
+}
+
+/// Hands `item` to the response stream, waiting at most `stall` for a client that stopped
+/// reading; false when the client is gone or stalled (the export then ends).
+fn send_within<T>(tx: &tokio::sync::mpsc::Sender<T>, item: T, stall: std::time::Duration) -> bool {
+    use tokio::sync::mpsc::error::TrySendError;
+    let until = std::time::Instant::now() + stall;
+    let mut item = item;
+    loop {
+        match tx.try_send(item) {
+            Ok(()) => return true,
+            Err(TrySendError::Closed(_)) => return false,
+            Err(TrySendError::Full(back)) if std::time::Instant::now() < until => {
+                item = back;
+                std::thread::sleep(std::time::Duration::from_millis(20));
+            }
+            Err(TrySendError::Full(_)) => {
+                tracing::warn!(
+                    seconds = stall.as_secs(),
+                    "an export's client stopped reading; the export ends"
+                );
+                return false;
+            }
+        }
+    }
 }

@@ -9,7 +9,6 @@ use super::problem::Problem;
 use super::State;
 use crate::fairness::{html, membership, Aggregator, DecisionRow, Refer, Settings};
 use crate::features::InputError;
-use crate::records::Store;
 use actix_web::{web, HttpRequest, HttpResponse};
 use serde::Deserialize;
 use serde_json::Value;
@@ -157,19 +156,12 @@ pub async fn create_report(
     req: HttpRequest,
     payload: web::Payload,
 ) -> Result<HttpResponse, Problem> {
-    let header = (req.headers().get("authorization")).and_then(|v| v.to_str().ok());
-    state.auth.check(header, REVIEWERS)?;
+    let (store, caller) = super::compliance::store_for(&state, &req, REVIEWERS)?;
     let html_wanted = match req.query_string() {
         "" | "format=json" => false,
         "format=html" => true,
         _ => return Err(Problem::bad_query("format", "one_of", "json or html")),
     };
-    let store: std::sync::Arc<dyn Store> = state
-        .recorder
-        .as_ref()
-        .ok_or_else(Problem::records_off)?
-        .store()
-        .clone();
     // Uploads are large (a million probability rows is tens of MiB); give them time to arrive.
     let body = read_json(
         &req,
@@ -211,9 +203,17 @@ pub async fn create_report(
             (None, None) => String::new(),
         }
     );
-    let report = web::block(move || {
+    let target = format!(
+        "from={} to={} model_id={} model_version={}",
+        request.from.as_deref().unwrap_or(""),
+        request.to.as_deref().unwrap_or(""),
+        request.model_id.as_deref().unwrap_or(""),
+        request.model_version.as_deref().unwrap_or("")
+    );
+    let read = store.clone();
+    let (report, decisions) = web::block(move || {
         let mut agg = Aggregator::new(&dims, settings);
-        store.export(&query, &mut |r| {
+        let decisions = read.export(&query, &mut |r| {
             agg.add(&DecisionRow {
                 application_id: &r.application_id,
                 outcome: &r.outcome,
@@ -223,11 +223,19 @@ pub async fn create_report(
             });
             true
         })?;
-        Ok::<_, crate::records::StoreError>(agg.finish())
+        Ok::<_, crate::records::StoreError>((agg.finish(), decisions))
     })
     .await
     .map_err(|_| Problem::internal("the report worker stopped"))?
     .map_err(|e| Problem::store_failed(&e))?;
+    let entry = super::compliance::access(
+        &caller,
+        &req,
+        "fairness_report",
+        &target,
+        Some(decisions as i64),
+    );
+    super::compliance::log_access(&store, entry).await?;
     if html_wanted {
         return Ok(HttpResponse::Ok()
             .content_type("text/html; charset=utf-8")

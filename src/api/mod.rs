@@ -3,6 +3,7 @@
 //! Limits are explicit and documented in [`Limits`]; errors are RFC 9457 problem details;
 //! every request gets an id, a structured log line (no applicant values) and metrics.
 
+mod access;
 pub mod auth;
 mod batch;
 mod body;
@@ -91,6 +92,16 @@ pub struct Running {
 
 static REQUEST_SEQ: AtomicU64 = AtomicU64::new(0);
 
+/// The request's id, noted on the request for handlers (the access log keeps it).
+#[derive(Debug, Clone)]
+pub struct RequestId(pub String);
+
+/// The id of `req` (empty outside the service's middleware).
+pub fn request_id_of(req: &actix_web::HttpRequest) -> String {
+    use actix_web::HttpMessage;
+    (req.extensions().get::<RequestId>()).map_or_else(String::new, |r| r.0.clone())
+}
+
 /// How [`start`] words a failure to bind, so callers can tell it from a bad model.
 pub const LISTEN_FAILED: &str = "cannot listen on";
 
@@ -160,8 +171,10 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
         App::new()
             .app_data(state.clone())
             .wrap_fn(|req, srv| {
+                use actix_web::HttpMessage;
                 let started = Instant::now();
                 let id = request_id(&req);
+                req.extensions_mut().insert(RequestId(id.clone()));
                 let method = req.method().to_string();
                 let data = req.app_data::<web::Data<State>>().cloned();
                 let fut = srv.call(req);
@@ -173,7 +186,12 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
                     if let Some(d) = data {
                         d.metrics.observe_request(&route, &method, status, seconds);
                     }
-                    tracing::info!(request_id = %id, method = %method, route = %route, status, micros = (seconds * 1e6) as u64, "request");
+                    // The calling key's name and role, never the key.
+                    let (caller, role) = match res.request().extensions().get::<auth::Caller>() {
+                        Some(c) => (c.name.clone(), c.role_name()),
+                        None => (String::new(), "none"),
+                    };
+                    tracing::info!(request_id = %id, method = %method, route = %route, status, micros = (seconds * 1e6) as u64, caller = %caller, role, "request");
                     if let Ok(v) = actix_web::http::header::HeaderValue::from_str(&id) {
                         res.headers_mut().insert(actix_web::http::header::HeaderName::from_static("x-request-id"), v);
                     }
@@ -201,6 +219,7 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
             .service(resource("/v1/models/{id}", web::get().to(routes::get_model)))
             .service(resource("/v1/fairness/reports", web::post().to(fairness::create_report)))
             .service(resource("/v1/admin/reload", web::post().to(routes::reload)))
+            .service(resource("/v1/admin/access", web::get().to(access::get_access)))
             .service(resource("/health/live", web::get().to(routes::live)))
             .service(resource("/health/ready", web::get().to(routes::ready)))
             .service(resource("/metrics", web::get().to(routes::metrics)))

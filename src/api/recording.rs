@@ -30,6 +30,7 @@ pub fn record_for(
     idempotency_key: Option<String>,
     request: &Value,
     received_at: String,
+    requested_by: &str,
 ) -> Record {
     let canonical = crate::artifact::canonical_json(request);
     let decision_id = ids::new_decision_id();
@@ -58,13 +59,19 @@ pub fn record_for(
         score: decision.score,
         request: String::from_utf8(canonical).unwrap_or_default(),
         response,
+        requested_by: requested_by.to_string(),
         final_action: None,
     }
 }
 
-/// The stored response for a request whose idempotency key is already recorded (`None` when
-/// it is not, or the service keeps no records); a 409 when the key was used for another body.
-pub async fn earlier(state: &super::State, request: &Value) -> Result<Option<String>, Problem> {
+/// The stored response for a request whose idempotency key `requested_by` already used (`None`
+/// when it has not, or the service keeps no records); a 409 when that caller used the key for
+/// another body. Keys are the caller's own: another caller's never match.
+pub async fn earlier(
+    state: &super::State,
+    requested_by: &str,
+    request: &Value,
+) -> Result<Option<String>, Problem> {
     let (Some(recorder), Some(key)) = (
         &state.recorder,
         request.get("idempotency_key").and_then(Value::as_str),
@@ -72,7 +79,8 @@ pub async fn earlier(state: &super::State, request: &Value) -> Result<Option<Str
         return Ok(None);
     };
     let (store, key) = (recorder.store().clone(), key.to_string());
-    let found = actix_web::web::block(move || store.find_key(&key))
+    let by = requested_by.to_string();
+    let found = actix_web::web::block(move || store.find_key(&by, &key))
         .await
         .map_err(|_| Problem::internal("the store worker stopped"))?
         .map_err(|e| Problem::store_failed(&e))?;

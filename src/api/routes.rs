@@ -17,12 +17,13 @@ pub(super) const DECIDERS: &[Role] = &[Role::Scoring];
 const READERS: &[Role] = &[Role::Scoring, Role::Review];
 const ADMINS: &[Role] = &[Role::Admin];
 
-pub(super) fn authorize(state: &State, req: &HttpRequest, allowed: &[Role]) -> Result<(), Problem> {
-    let header = req
-        .headers()
-        .get("authorization")
-        .and_then(|v| v.to_str().ok());
-    state.auth.check(header, allowed).map(|_| ())
+/// Admits the request for `allowed` roles; the caller (key name and role) it came from.
+pub(super) fn authorize(
+    state: &State,
+    req: &HttpRequest,
+    allowed: &[Role],
+) -> Result<super::auth::Caller, Problem> {
+    state.auth.admit(req, allowed)
 }
 
 pub(super) fn json<T: Serialize>(value: &T) -> HttpResponse {
@@ -130,7 +131,7 @@ pub async fn post_decision(
     payload: web::Payload,
 ) -> Result<HttpResponse, Problem> {
     let received_at = crate::records::now();
-    authorize(&state, &req, DECIDERS)?;
+    let caller = authorize(&state, &req, DECIDERS)?;
     let request = read_json(
         &req,
         payload,
@@ -140,7 +141,7 @@ pub async fn post_decision(
     .await?;
     // A recorded key answers before anything is decided: a retry gets the stored response even
     // if its model has since been unloaded, and a different body is a conflict first.
-    if let Some(given) = recording::earlier(&state, &request).await? {
+    if let Some(given) = recording::earlier(&state, &caller.name, &request).await? {
         return Ok(HttpResponse::Ok()
             .insert_header(("x-response-from-record", "true"))
             .content_type("application/json")
@@ -163,7 +164,13 @@ pub async fn post_decision(
         observe(&state, &decision, decision.outcome.name());
         return Ok(json(&decision));
     };
-    let record = recording::record_for(&decision, idempotency_key, &request, received_at);
+    let record = recording::record_for(
+        &decision,
+        idempotency_key,
+        &request,
+        received_at,
+        &caller.name,
+    );
     let mut written =
         (recorder.record(vec![record]).await).map_err(|e| Problem::not_recorded(&e))?;
     let (record, outcome) = written

@@ -323,12 +323,7 @@ pub async fn post_final_action(
     id: web::Path<String>,
     payload: web::Payload,
 ) -> Result<HttpResponse, Problem> {
-    let header = (req.headers().get("authorization")).and_then(|v| v.to_str().ok());
-    let caller = state.auth.caller(header, UNDERWRITERS)?;
-    let decided_by = caller.map_or_else(
-        || "unauthenticated (--no-auth)".to_string(),
-        |k| k.name.clone(),
-    );
+    let decided_by = state.auth.admit(&req, UNDERWRITERS)?.name;
     let recorder = state.recorder.as_ref().ok_or_else(Problem::records_off)?;
     let store = recorder.store().clone();
     let body = super::body::read_json(

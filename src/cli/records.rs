@@ -67,6 +67,55 @@ pub enum RecordsCommand {
         #[arg(long, default_value = "jsonl")]
         format: String,
     },
+    /// The access log: who read which records, when, how many (JSON, oldest first).
+    Access {
+        /// Inclusive: RFC 3339 UTC time or a date.
+        #[arg(long)]
+        from: Option<String>,
+        /// Exclusive time, or a date (that whole day included).
+        #[arg(long)]
+        to: Option<String>,
+        #[arg(long, default_value_t = 100)]
+        limit: usize,
+    },
+}
+
+impl Filters {
+    /// The filters as a query string, for the access log.
+    fn described(&self) -> String {
+        let given = [
+            ("application_id", &self.application_id),
+            ("from", &self.from),
+            ("to", &self.to),
+            ("outcome", &self.outcome),
+            ("model_id", &self.model_id),
+            ("model_version", &self.model_version),
+            ("final_action", &self.final_action),
+            ("cursor", &self.cursor),
+        ];
+        (given.iter())
+            .filter_map(|(k, v)| v.as_ref().map(|v| format!("{k}={v}")))
+            .collect::<Vec<_>>()
+            .join("&")
+    }
+}
+
+/// A read of the records from the command line, for the access log: the operating-system
+/// user, as the service logs a key's name.
+fn access(action: &str, target: &str, records: Option<i64>) -> crate::records::Access {
+    let user = std::env::var("USER")
+        .or_else(|_| std::env::var("USERNAME"))
+        .unwrap_or_else(|_| "unknown".into());
+    crate::records::Access {
+        access_id: crate::records::ids::new_decision_id(),
+        at: crate::records::now(),
+        caller: format!("local:{user}"),
+        role: "command-line".into(),
+        action: action.into(),
+        target: target.into(),
+        records,
+        request_id: String::new(),
+    }
 }
 
 fn query(f: &Filters) -> Result<crate::records::Query, String> {
@@ -116,8 +165,16 @@ pub fn run(args: RecordsArgs) -> i32 {
 fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, String)> {
     let bad = |m: String| (EXIT_BAD_INPUT, m);
     let failed = |e: crate::records::StoreError| (EXIT_FAILURE, e.to_string());
-    let found = |id: &str| -> Result<crate::records::Record, (i32, String)> {
-        store.get(id).map_err(failed)?.ok_or_else(|| {
+    // Every read is logged before it is shown, as the service does.
+    let log = |action: &str, target: &str, records: Option<i64>| {
+        store
+            .log_access(&access(action, target, records))
+            .map_err(failed)
+    };
+    let found = |id: &str, action: &str| -> Result<crate::records::Record, (i32, String)> {
+        let record = store.get(id).map_err(failed)?;
+        log(action, id, Some(i64::from(record.is_some())))?;
+        record.ok_or_else(|| {
             bad(format!(
                 "no decision {id} is recorded in {}",
                 store.describe()
@@ -131,10 +188,10 @@ fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, Strin
     };
     let result = match command {
         RecordsCommand::Get { decision_id } => {
-            write(&(found(decision_id)?.view().map_err(failed)? + "\n"))
+            write(&(found(decision_id, "get")?.view().map_err(failed)? + "\n"))
         }
         RecordsCommand::AdverseAction { decision_id } => {
-            match notice::adverse_action(&found(decision_id)?) {
+            match notice::adverse_action(&found(decision_id, "adverse_action")?) {
                 Ok(n) => write(&(serde_json::to_string_pretty(&n).unwrap_or_default() + "\n")),
                 Err(notice::NoNotice::Approved) => Err(bad(format!(
                     "decision {decision_id} was an approval; no adverse action was taken"
@@ -158,6 +215,11 @@ fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, Strin
             let page = store
                 .search(&query(filters).map_err(bad)?, *limit)
                 .map_err(failed)?;
+            log(
+                "search",
+                &filters.described(),
+                Some(page.records.len() as i64),
+            )?;
             let views: Vec<serde_json::Value> = (page.records.iter())
                 .map(|r| {
                     serde_json::from_str(&r.view()?)
@@ -172,11 +234,12 @@ fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, Strin
             let format =
                 Format::parse(format).ok_or_else(|| bad("--format must be jsonl or csv".into()))?;
             let q = query(filters).map_err(bad)?;
+            log("export_started", &filters.described(), None)?;
             write(format.header().unwrap_or_default())?;
             let mut problem = None;
             let bar = super::progress::Bar::new();
             crate::progress::Progress::stage(&bar, "exporting decisions", None);
-            store
+            let sent = store
                 .export(
                     &q,
                     &mut |r| match format.line(r).map_err(failed).and_then(|l| write(&l)) {
@@ -191,7 +254,37 @@ fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, Strin
                     },
                 )
                 .map_err(failed)?;
+            log("export", &filters.described(), Some(sent as i64))?;
             problem.map_or(Ok(()), Err)
+        }
+        RecordsCommand::Access { from, to, limit } => {
+            if !(1..=crate::records::MAX_PAGE).contains(limit) {
+                return Err(bad(format!(
+                    "--limit must be 1 to {}",
+                    crate::records::MAX_PAGE
+                )));
+            }
+            let time = |v: &Option<String>, end: bool, name: &str, default: &str| match v {
+                None => Ok(default.to_string()),
+                Some(v) => crate::records::normalise_time(v, end).map_err(|_| {
+                    bad(format!(
+                        "--{name}: {v:?} is not an RFC 3339 UTC time or a date"
+                    ))
+                }),
+            };
+            // "~" sorts after every stored time: no upper bound.
+            let (from, to) = (time(from, false, "from", "")?, time(to, true, "to", "~")?);
+            let entries = store.access_log(&from, &to, None, *limit).map_err(failed)?;
+            log(
+                "access_log",
+                &format!("from={from}&to={to}"),
+                Some(entries.len() as i64),
+            )?;
+            write(
+                &(serde_json::to_string_pretty(&serde_json::json!({"entries": entries}))
+                    .unwrap_or_default()
+                    + "\n"),
+            )
         }
     };
     result?;

@@ -43,8 +43,39 @@ pub struct Record {
     pub score: i64,
     pub request: String,
     pub response: String,
+    /// The name of the API key that requested the decision (empty for records from before
+    /// keys were recorded, `unauthenticated` with authentication off). Idempotency keys are
+    /// unique per requester.
+    pub requested_by: String,
     /// The underwriter's final action on a referral, recorded later beside the decision.
     pub final_action: Option<FinalAction>,
+}
+
+/// One read of the records, as the access log keeps it: who, when, what, how many records.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Access {
+    pub access_id: String,
+    pub at: String,
+    /// The key's name (never the key).
+    pub caller: String,
+    pub role: String,
+    /// `get`, `adverse_action`, `search`, `export_started`, `export`, `fairness_report`,
+    /// `access_log`.
+    pub action: String,
+    /// The decision id, or the filter as the query string gave it.
+    pub target: String,
+    /// Records returned (absent when an export starts).
+    pub records: Option<i64>,
+    pub request_id: String,
+}
+
+/// A page of the access log, oldest first.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct AccessPage {
+    pub entries: Vec<Access>,
+    /// Pass back as `cursor` for the next page; absent on the last.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub next_cursor: Option<String>,
 }
 
 /// The final action on a referred decision (Regulation B, 12 CFR 1002.9(a): the action taken),
@@ -263,8 +294,18 @@ pub trait Store: Send + Sync {
         deadline: Option<std::time::Instant>,
     ) -> Result<Vec<Insert>, StoreError>;
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError>;
-    /// The record holding this idempotency key, if any.
-    fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError>;
+    /// The record `requested_by` made with this idempotency key, if any.
+    fn find_key(&self, requested_by: &str, key: &str) -> Result<Option<Record>, StoreError>;
+    /// Appends one entry to the access log.
+    fn log_access(&self, entry: &Access) -> Result<(), StoreError>;
+    /// The access log in `[from, to)`, after `after` (at, access_id), at most `limit` entries.
+    fn access_log(
+        &self,
+        from: &str,
+        to: &str,
+        after: Option<(&str, &str)>,
+        limit: usize,
+    ) -> Result<Vec<Access>, StoreError>;
     /// Records a final action beside its decision, unless the decision has one already.
     fn insert_final_action(&self, action: &FinalAction) -> Result<FinalInsert, StoreError>;
     fn search(&self, query: &Query, limit: usize) -> Result<Page, StoreError>;
@@ -404,6 +445,8 @@ pub struct RecordView<'a> {
     pub score: i64,
     pub request: &'a serde_json::value::RawValue,
     pub response: &'a serde_json::value::RawValue,
+    /// The name of the API key that requested the decision.
+    pub requested_by: &'a str,
     /// The final action on a referral, when one is recorded.
     pub final_action: Option<FinalActionView<'a>>,
 }
@@ -492,6 +535,7 @@ impl Record {
             score: self.score,
             request: raw(&self.request, &self.decision_id)?,
             response: raw(&self.response, &self.decision_id)?,
+            requested_by: &self.requested_by,
             final_action: self
                 .final_action
                 .as_ref()

@@ -137,17 +137,18 @@ fn row_to_record(r: &Row) -> Result<Record, StoreError> {
         score: r.try_get(12).map_err(failed)?,
         request: get(13)?,
         response: get(14)?,
-        final_action: match r.try_get::<_, Option<String>>(15).map_err(failed)? {
+        requested_by: get(15)?,
+        final_action: match r.try_get::<_, Option<String>>(16).map_err(failed)? {
             None => None,
             Some(action) => Some(FinalAction {
                 decision_id: get(0)?,
                 action,
-                reasons: get(16)?,
-                note: get(17)?,
-                decided_by: get(18)?,
-                decided_at: get(19)?,
-                idempotency_key: r.try_get(20).map_err(failed)?,
-                body_sha256: get(21)?,
+                reasons: get(17)?,
+                note: get(18)?,
+                decided_by: get(19)?,
+                decided_at: get(20)?,
+                idempotency_key: r.try_get(21).map_err(failed)?,
+                body_sha256: get(22)?,
             }),
         },
     })
@@ -157,7 +158,7 @@ fn text_params(params: &[String]) -> Vec<&(dyn ToSql + Sync)> {
     params.iter().map(|p| p as &(dyn ToSql + Sync)).collect()
 }
 
-fn record_params(r: &Record) -> [&(dyn ToSql + Sync); 15] {
+fn record_params(r: &Record) -> [&(dyn ToSql + Sync); 16] {
     [
         &r.decision_id,
         &r.application_id,
@@ -174,17 +175,29 @@ fn record_params(r: &Record) -> [&(dyn ToSql + Sync); 15] {
         &r.score,
         &r.request,
         &r.response,
+        &r.requested_by,
     ]
 }
 
-/// The record whose `key` column equals `value`, if any (on a client or in a transaction).
-async fn one(
+/// The record with this decision id, if any (on a client or in a transaction).
+async fn by_id(
     c: &impl tokio_postgres::GenericClient,
-    key: sql::Key,
-    value: &str,
+    id: &str,
 ) -> Result<Option<Record>, StoreError> {
+    let select = sql::select_one(sql::Key::DecisionId);
+    let rows = c.query(&select, &[&id]).await.map_err(failed)?;
+    rows.first().map(row_to_record).transpose()
+}
+
+/// The record `requested_by` made with idempotency key `key`, if any.
+async fn by_key(
+    c: &impl tokio_postgres::GenericClient,
+    requested_by: &str,
+    key: &str,
+) -> Result<Option<Record>, StoreError> {
+    let select = sql::select_one(sql::Key::IdempotencyKey);
     let rows = c
-        .query(&sql::select_one(key), &[&value])
+        .query(&select, &[&key, &requested_by])
         .await
         .map_err(failed)?;
     rows.first().map(row_to_record).transpose()
@@ -434,7 +447,7 @@ async fn attempt_group(c: &mut Client, records: &[Record], deadline: Instant) ->
                     inserted.push(r.decision_id.clone());
                     Insert::Inserted
                 }
-                (_, Some(key)) => match one(&tx, sql::Key::IdempotencyKey, key).await? {
+                (_, Some(key)) => match by_key(&tx, &r.requested_by, key).await? {
                     Some(existing) => Insert::Existing(Box::new(existing)),
                     None => return Err(StoreError::Failed("conflict without a record".into())),
                 },
@@ -498,12 +511,81 @@ impl Store for PostgresStore {
         }
     }
 
-    fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError> {
+    fn find_key(&self, requested_by: &str, key: &str) -> Result<Option<Record>, StoreError> {
         let conn = self.reader()?;
         let out = self.block_on(within(
             Instant::now() + READ_STEP,
             "looking up a key",
-            async { one(&conn.client, sql::Key::IdempotencyKey, key).await },
+            async { by_key(&conn.client, requested_by, key).await },
+        ));
+        self.give_back(conn, out)
+    }
+
+    fn log_access(&self, e: &super::Access) -> Result<(), StoreError> {
+        let mut guard = self.writer(Instant::now() + CONNECT_WAIT)?;
+        let conn = guard
+            .as_mut()
+            .ok_or_else(|| StoreError::Unavailable("no connection".into()))?;
+        let params: [&(dyn ToSql + Sync); 8] = [
+            &e.access_id,
+            &e.at,
+            &e.caller,
+            &e.role,
+            &e.action,
+            &e.target,
+            &e.records,
+            &e.request_id,
+        ];
+        let out = self.block_on(within(
+            Instant::now() + WRITE_WAIT,
+            "logging an access",
+            async {
+                (conn.client.execute(sql::INSERT_ACCESS, &params).await)
+                    .map(|_| ())
+                    .map_err(failed)
+            },
+        ));
+        if matches!(
+            out,
+            Err(StoreError::Timeout(_) | StoreError::Unavailable(_))
+        ) {
+            *guard = None;
+        }
+        out
+    }
+
+    fn access_log(
+        &self,
+        from: &str,
+        to: &str,
+        after: Option<(&str, &str)>,
+        limit: usize,
+    ) -> Result<Vec<super::Access>, StoreError> {
+        let (at, id) = after.unwrap_or(("", ""));
+        let limit = limit as i64;
+        let conn = self.reader()?;
+        let out = self.block_on(within(
+            Instant::now() + READ_STEP,
+            "reading the access log",
+            async {
+                let params: [&(dyn ToSql + Sync); 5] = [&from, &to, &at, &id, &limit];
+                let rows =
+                    (conn.client.query(sql::SELECT_ACCESS, &params).await).map_err(failed)?;
+                rows.iter()
+                    .map(|r| {
+                        Ok(super::Access {
+                            access_id: r.try_get(0).map_err(failed)?,
+                            at: r.try_get(1).map_err(failed)?,
+                            caller: r.try_get(2).map_err(failed)?,
+                            role: r.try_get(3).map_err(failed)?,
+                            action: r.try_get(4).map_err(failed)?,
+                            target: r.try_get(5).map_err(failed)?,
+                            records: r.try_get(6).map_err(failed)?,
+                            request_id: r.try_get(7).map_err(failed)?,
+                        })
+                    })
+                    .collect()
+            },
         ));
         self.give_back(conn, out)
     }
@@ -537,7 +619,7 @@ impl Store for PostgresStore {
                 let out = if written == 1 {
                     FinalInsert::Inserted
                 } else {
-                    let existing = one(&tx, sql::Key::DecisionId, &a.decision_id)
+                    let existing = by_id(&tx, &a.decision_id)
                         .await?
                         .and_then(|r| r.final_action)
                         .ok_or_else(|| {
@@ -563,7 +645,7 @@ impl Store for PostgresStore {
         let out = self.block_on(within(
             Instant::now() + READ_STEP,
             "looking up a decision",
-            async { one(&conn.client, sql::Key::DecisionId, decision_id).await },
+            async { by_id(&conn.client, decision_id).await },
         ));
         self.give_back(conn, out)
     }

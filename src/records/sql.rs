@@ -27,6 +27,7 @@ pub const MIGRATIONS: &[Migration] = &[
     );
     CREATE INDEX decisions_by_time ON decisions (decided_at, decision_id);
     CREATE INDEX decisions_by_application ON decisions (application_id, decided_at, decision_id);",
+        sqlite: None,
     },
     Migration {
         version: 2,
@@ -43,13 +44,86 @@ pub const MIGRATIONS: &[Migration] = &[
         body_sha256 TEXT NOT NULL
     );
     CREATE INDEX final_actions_by_time ON final_actions (decided_at);",
+        sqlite: None,
+    },
+    Migration {
+        version: 3,
+        about: "idempotency keys scoped to the requesting key; access log",
+        // A key is unique per caller (a 409 never shows another caller's decision); old records
+        // keep their keys under no caller. Every look-up, search, export and report over the
+        // records is written to `record_access`, never updated.
+        sql: "ALTER TABLE decisions ADD COLUMN requested_by TEXT COLLATE \"C\" NOT NULL DEFAULT '';
+    ALTER TABLE decisions DROP CONSTRAINT decisions_idempotency_key_key;
+    CREATE UNIQUE INDEX decisions_by_key ON decisions (requested_by, idempotency_key);
+    CREATE TABLE record_access (
+        access_id TEXT COLLATE \"C\" PRIMARY KEY,
+        at TEXT COLLATE \"C\" NOT NULL,
+        caller TEXT COLLATE \"C\" NOT NULL,
+        role TEXT NOT NULL,
+        action TEXT COLLATE \"C\" NOT NULL,
+        target TEXT NOT NULL,
+        records BIGINT,
+        request_id TEXT NOT NULL
+    );
+    CREATE INDEX record_access_by_time ON record_access (at, access_id);",
+        // SQLite cannot drop a column's UNIQUE: the table is rebuilt, rows copied as they are.
+        sqlite: Some(
+            "CREATE TABLE decisions_v3 (
+        decision_id TEXT PRIMARY KEY,
+        application_id TEXT NOT NULL,
+        idempotency_key TEXT,
+        received_at TEXT NOT NULL,
+        decided_at TEXT NOT NULL,
+        model_id TEXT NOT NULL,
+        model_version TEXT NOT NULL,
+        model_sha256 TEXT NOT NULL,
+        plumbline_version TEXT NOT NULL,
+        request_sha256 TEXT NOT NULL,
+        outcome TEXT NOT NULL,
+        probability DOUBLE PRECISION NOT NULL,
+        score BIGINT NOT NULL,
+        request TEXT NOT NULL,
+        response TEXT NOT NULL,
+        requested_by TEXT NOT NULL DEFAULT ''
+    );
+    INSERT INTO decisions_v3 SELECT decision_id, application_id, idempotency_key, received_at,
+        decided_at, model_id, model_version, model_sha256, plumbline_version, request_sha256,
+        outcome, probability, score, request, response, '' FROM decisions;
+    DROP TABLE decisions;
+    ALTER TABLE decisions_v3 RENAME TO decisions;
+    CREATE INDEX decisions_by_time ON decisions (decided_at, decision_id);
+    CREATE INDEX decisions_by_application ON decisions (application_id, decided_at, decision_id);
+    CREATE UNIQUE INDEX decisions_by_key ON decisions (requested_by, idempotency_key);
+    CREATE TABLE record_access (
+        access_id TEXT PRIMARY KEY,
+        at TEXT NOT NULL,
+        caller TEXT NOT NULL,
+        role TEXT NOT NULL,
+        action TEXT NOT NULL,
+        target TEXT NOT NULL,
+        records BIGINT,
+        request_id TEXT NOT NULL
+    );
+    CREATE INDEX record_access_by_time ON record_access (at, access_id);",
+        ),
     },
 ];
 
 pub struct Migration {
     pub version: i64,
     pub about: &'static str,
+    /// PostgreSQL's text (and SQLite's, with `COLLATE "C"` dropped, unless `sqlite` is given).
     pub sql: &'static str,
+    /// SQLite's own text where its dialect differs.
+    pub sqlite: Option<&'static str>,
+}
+
+impl Migration {
+    /// The text SQLite runs.
+    pub fn for_sqlite(&self) -> String {
+        self.sqlite
+            .map_or_else(|| self.sql.replace(" COLLATE \"C\"", ""), str::to_string)
+    }
 }
 
 /// The bookkeeping table, created before any migration runs.
@@ -60,7 +134,7 @@ pub const MIGRATIONS_TABLE: &str = "CREATE TABLE IF NOT EXISTS plumbline_migrati
 /// NULL when none is recorded), read through [`FROM`].
 pub const COLUMNS: &str = "d.decision_id, d.application_id, d.idempotency_key, d.received_at, \
     d.decided_at, d.model_id, d.model_version, d.model_sha256, d.plumbline_version, \
-    d.request_sha256, d.outcome, d.probability, d.score, d.request, d.response, \
+    d.request_sha256, d.outcome, d.probability, d.score, d.request, d.response, d.requested_by, \
     f.action, f.reasons, f.note, f.decided_by, f.decided_at, f.idempotency_key, f.body_sha256";
 
 /// Decisions with their final actions, if any.
@@ -72,9 +146,18 @@ pub const INSERT_FINAL: &str = "INSERT INTO final_actions (decision_id, action, 
 
 pub const INSERT: &str = "INSERT INTO decisions (decision_id, application_id, idempotency_key, \
     received_at, decided_at, model_id, model_version, model_sha256, plumbline_version, \
-    request_sha256, outcome, probability, score, request, response) \
-    VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15) \
-    ON CONFLICT (idempotency_key) DO NOTHING";
+    request_sha256, outcome, probability, score, request, response, requested_by) \
+    VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16) \
+    ON CONFLICT (requested_by, idempotency_key) DO NOTHING";
+
+pub const INSERT_ACCESS: &str = "INSERT INTO record_access (access_id, at, caller, role, action, \
+    target, records, request_id) VALUES ($1, $2, $3, $4, $5, $6, $7, $8)";
+
+/// The access log from `$1` (inclusive) to `$2` (exclusive), after the cursor (`$3`, `$4`),
+/// oldest first.
+pub const SELECT_ACCESS: &str = "SELECT access_id, at, caller, role, action, target, records, \
+    request_id FROM record_access WHERE at >= $1 AND at < $2 AND (at > $3 OR (at = $3 AND \
+    access_id > $4)) ORDER BY at, access_id LIMIT $5";
 
 /// The columns by which one record is looked up (both unique).
 #[derive(Debug, Clone, Copy)]
@@ -83,13 +166,15 @@ pub enum Key {
     IdempotencyKey,
 }
 
-/// SELECT of the one record whose `key` column equals `$1`.
+/// SELECT of the one record whose `key` equals `$1` (and, for an idempotency key, whose
+/// requester is `$2`).
 pub fn select_one(key: Key) -> String {
-    let column = match key {
-        Key::DecisionId => "decision_id",
-        Key::IdempotencyKey => "idempotency_key",
-    };
-    format!("SELECT {COLUMNS} FROM {FROM} WHERE d.{column} = $1")
+    match key {
+        Key::DecisionId => format!("SELECT {COLUMNS} FROM {FROM} WHERE d.decision_id = $1"),
+        Key::IdempotencyKey => format!(
+            "SELECT {COLUMNS} FROM {FROM} WHERE d.idempotency_key = $1 AND d.requested_by = $2"
+        ),
+    }
 }
 
 /// `$n` -> `?n`: SQLite's numbered parameters.

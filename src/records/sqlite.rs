@@ -110,17 +110,18 @@ fn row_to_record(r: &rusqlite::Row) -> rusqlite::Result<Record> {
         score: r.get(12)?,
         request: r.get(13)?,
         response: r.get(14)?,
-        final_action: match r.get::<_, Option<String>>(15)? {
+        requested_by: r.get(15)?,
+        final_action: match r.get::<_, Option<String>>(16)? {
             None => None,
             Some(action) => Some(super::FinalAction {
                 decision_id: r.get(0)?,
                 action,
-                reasons: r.get(16)?,
-                note: r.get(17)?,
-                decided_by: r.get(18)?,
-                decided_at: r.get(19)?,
-                idempotency_key: r.get(20)?,
-                body_sha256: r.get(21)?,
+                reasons: r.get(17)?,
+                note: r.get(18)?,
+                decided_by: r.get(19)?,
+                decided_at: r.get(20)?,
+                idempotency_key: r.get(21)?,
+                body_sha256: r.get(22)?,
             }),
         },
     })
@@ -172,8 +173,7 @@ fn migrate(c: &mut Connection) -> Result<(), StoreError> {
         .map_err(failed)?;
     for m in MIGRATIONS.iter().filter(|m| m.version > done) {
         // SQLite compares text bytewise by default and has no collation named "C".
-        tx.execute_batch(&m.sql.replace(" COLLATE \"C\"", ""))
-            .map_err(failed)?;
+        tx.execute_batch(&m.for_sqlite()).map_err(failed)?;
         tx.execute(
             "INSERT INTO plumbline_migrations (version, about, applied_at) VALUES (?1, ?2, ?3)",
             params![m.version, m.about, super::now()],
@@ -183,11 +183,22 @@ fn migrate(c: &mut Connection) -> Result<(), StoreError> {
     tx.commit().map_err(failed)
 }
 
-/// The record whose `key` column equals `value`, if any.
-fn one(c: &Connection, key: sql::Key, value: &str) -> Result<Option<Record>, StoreError> {
+/// The record with this decision id, if any.
+fn by_id(c: &Connection, id: &str) -> Result<Option<Record>, StoreError> {
     c.query_row(
-        &sql::for_sqlite(&sql::select_one(key)),
-        [value],
+        &sql::for_sqlite(&sql::select_one(sql::Key::DecisionId)),
+        [id],
+        row_to_record,
+    )
+    .optional()
+    .map_err(failed)
+}
+
+/// The record `requested_by` made with idempotency key `key`, if any.
+fn by_key(c: &Connection, requested_by: &str, key: &str) -> Result<Option<Record>, StoreError> {
+    c.query_row(
+        &sql::for_sqlite(&sql::select_one(sql::Key::IdempotencyKey)),
+        [key, requested_by],
         row_to_record,
     )
     .optional()
@@ -227,12 +238,13 @@ impl Store for SqliteStore {
                         r.probability,
                         r.score,
                         r.request,
-                        r.response
+                        r.response,
+                        r.requested_by
                     ])
                     .map_err(failed)?;
                 out.push(match (written, &r.idempotency_key) {
                     (1, _) => Insert::Inserted,
-                    (_, Some(key)) => match one(&tx, sql::Key::IdempotencyKey, key)? {
+                    (_, Some(key)) => match by_key(&tx, &r.requested_by, key)? {
                         Some(existing) => Insert::Existing(Box::new(existing)),
                         None => return Err(StoreError::Failed("conflict without a record".into())),
                     },
@@ -244,8 +256,61 @@ impl Store for SqliteStore {
         Ok(out)
     }
 
-    fn find_key(&self, key: &str) -> Result<Option<Record>, StoreError> {
-        self.with_reader(|c| one(c, sql::Key::IdempotencyKey, key))
+    fn find_key(&self, requested_by: &str, key: &str) -> Result<Option<Record>, StoreError> {
+        self.with_reader(|c| by_key(c, requested_by, key))
+    }
+
+    fn log_access(&self, e: &super::Access) -> Result<(), StoreError> {
+        let mut c = self
+            .writer
+            .lock()
+            .map_err(|_| StoreError::Failed("writer lock poisoned".into()))?;
+        let tx = begin(&mut c, None)?;
+        tx.execute(
+            &sql::for_sqlite(sql::INSERT_ACCESS),
+            params![
+                e.access_id,
+                e.at,
+                e.caller,
+                e.role,
+                e.action,
+                e.target,
+                e.records,
+                e.request_id
+            ],
+        )
+        .map_err(failed)?;
+        tx.commit().map_err(failed)
+    }
+
+    fn access_log(
+        &self,
+        from: &str,
+        to: &str,
+        after: Option<(&str, &str)>,
+        limit: usize,
+    ) -> Result<Vec<super::Access>, StoreError> {
+        let (at, id) = after.unwrap_or(("", ""));
+        self.with_reader(|c| {
+            let mut stmt = c
+                .prepare_cached(&sql::for_sqlite(sql::SELECT_ACCESS))
+                .map_err(failed)?;
+            let rows = stmt
+                .query_map(params![from, to, at, id, limit as i64], |r| {
+                    Ok(super::Access {
+                        access_id: r.get(0)?,
+                        at: r.get(1)?,
+                        caller: r.get(2)?,
+                        role: r.get(3)?,
+                        action: r.get(4)?,
+                        target: r.get(5)?,
+                        records: r.get(6)?,
+                        request_id: r.get(7)?,
+                    })
+                })
+                .map_err(failed)?;
+            rows.collect::<Result<Vec<_>, _>>().map_err(failed)
+        })
     }
 
     fn insert_final_action(&self, a: &FinalAction) -> Result<FinalInsert, StoreError> {
@@ -272,7 +337,7 @@ impl Store for SqliteStore {
         let out = if written == 1 {
             FinalInsert::Inserted
         } else {
-            let existing = one(&tx, sql::Key::DecisionId, &a.decision_id)?
+            let existing = by_id(&tx, &a.decision_id)?
                 .and_then(|r| r.final_action)
                 .ok_or_else(|| StoreError::Failed("conflict without a final action".into()))?;
             FinalInsert::Existing(existing)
@@ -282,7 +347,7 @@ impl Store for SqliteStore {
     }
 
     fn get(&self, decision_id: &str) -> Result<Option<Record>, StoreError> {
-        self.with_reader(|c| one(c, sql::Key::DecisionId, decision_id))
+        self.with_reader(|c| by_id(c, decision_id))
     }
 
     fn search(&self, query: &Query, limit: usize) -> Result<Page, StoreError> {
