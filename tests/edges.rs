@@ -133,3 +133,55 @@ fn request_logs_name_the_caller_never_the_key() {
     );
     assert!(!logged.contains(key), "the key itself was logged: {logged}");
 }
+
+/// `/metrics` keeps a fixed label set whatever methods clients invent, counts batch decisions as
+/// single ones, and with `--metrics-key` answers only the scraper that presents it.
+#[test]
+fn metrics_have_fixed_labels_count_batches_and_can_require_a_key() {
+    let dir = TempDir::new();
+    let location = format!("sqlite:{}", dir.0.join("records.sqlite3").display());
+    let (mut child, base) = common::server::spawn_binary(&[
+        "--store",
+        &location,
+        "--metrics-key",
+        "fernhill-demo-metrics-key",
+    ]);
+    let agent = ureq::AgentBuilder::new().build();
+    for i in 0..20 {
+        let _ = agent
+            .request(&format!("BREW{i}"), &format!("{base}/v1/models"))
+            .call();
+    }
+    let item = std::fs::read_to_string("demo-requests/applications/typical-approve.json").unwrap();
+    let batch = format!("{{\"items\": [{item}, {item}]}}");
+    let (status, _, text) = common::server::send(
+        "POST",
+        &format!("{base}/v1/decisions/batch"),
+        Some(common::server::SCORING),
+        Some("application/json"),
+        Some(&batch),
+    );
+    assert_eq!(status, 200, "{text}");
+    let (status, _, _) = common::server::send("GET", &format!("{base}/metrics"), None, None, None);
+    assert_eq!(status, 401, "the key is required");
+    let (status, _, metrics) = common::server::send(
+        "GET",
+        &format!("{base}/metrics"),
+        Some("fernhill-demo-metrics-key"),
+        None,
+        None,
+    );
+    assert_eq!(status, 200);
+    child.kill().unwrap();
+    let _ = child.wait();
+    assert!(!metrics.contains("BREW"), "invented methods became labels");
+    assert!(metrics.contains("method=\"other\""), "{metrics}");
+    let approved = metrics
+        .lines()
+        .find(|l| l.starts_with("plumbline_decisions_total") && l.contains("outcome=\"approve\""))
+        .unwrap_or_else(|| panic!("no decision counter in {metrics}"));
+    assert!(
+        approved.ends_with(" 2"),
+        "the batch's two decisions: {approved}"
+    );
+}

@@ -109,6 +109,25 @@ fn hex32(s: &str) -> Option<[u8; 32]> {
     Some(out)
 }
 
+/// SHA-256 of a key.
+pub fn digest(key: &str) -> [u8; 32] {
+    Sha256::digest(key.as_bytes()).into()
+}
+
+/// Whether `authorization` presents the key whose digest is `expected`, compared in constant
+/// time.
+pub fn presents(authorization: Option<&str>, expected: &[u8; 32]) -> bool {
+    let presented = (authorization.and_then(|h| h.split_once(' ')))
+        .filter(|(scheme, _)| scheme.eq_ignore_ascii_case("bearer"))
+        .map(|(_, key)| digest(key.trim()));
+    presented.is_some_and(|d| {
+        d.iter()
+            .zip(expected)
+            .fold(0u8, |acc, (a, b)| acc | (a ^ b))
+            == 0
+    })
+}
+
 /// SHA-256 of a key, as written into key files.
 pub fn key_digest_hex(key: &str) -> String {
     crate::artifact::sha256_hex(key.as_bytes())

@@ -3,7 +3,7 @@
 
 use super::body::read_json;
 use super::problem::Problem;
-use super::routes::{authorize, decide_value, json, DecisionRequest, DECIDERS};
+use super::routes::{authorize, decide_value, json, outcome_label, DecisionRequest, DECIDERS};
 use super::{recording, State};
 use crate::decide::Decision;
 use actix_web::{web, HttpRequest, HttpResponse};
@@ -155,20 +155,29 @@ async fn batch_response(
             Slot::Recorded => {
                 let (record, outcome) = (written.next())
                     .ok_or_else(|| Problem::internal("the store gave too few outcomes"))?;
-                recording::settle(record, outcome).map(|g| (g.body, g.outcome))
+                let model = (record.model_id.clone(), record.model_version.clone());
+                recording::settle(record, outcome)
+                    .map(|g| (g.body, g.outcome, (!g.replayed).then_some(model)))
             }
             Slot::Bare(d) => Ok((
                 serde_json::to_string(&d).unwrap_or_default(),
                 d.outcome.name().to_string(),
+                Some((d.model.id.clone(), d.model.version.clone())),
             )),
             Slot::Failed(p) => Err(p),
         };
         response.results.push(match given {
-            Ok((body, outcome)) => {
+            Ok((body, outcome, counted)) => {
                 match outcome.as_str() {
                     "approve" => response.approved += 1,
                     "refer" => response.referred += 1,
                     _ => response.declined += 1,
+                }
+                // New decisions count in the metrics as single ones do; replayed ones do not.
+                if let Some((model, version)) = counted {
+                    state
+                        .metrics
+                        .observe_decision(&model, &version, outcome_label(&outcome));
                 }
                 BatchItem {
                     index,

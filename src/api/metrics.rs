@@ -26,8 +26,18 @@ pub struct Metrics {
     decisions: Mutex<BTreeMap<(String, String, &'static str), u64>>,
 }
 
+/// Methods counted by name; any other is counted as `other`, so a client cannot grow the label
+/// set (and the exposition) by inventing method names.
+const METHODS: [&str; 7] = ["GET", "POST", "HEAD", "PUT", "DELETE", "PATCH", "OPTIONS"];
+
 impl Metrics {
+    /// One request: `route` is the matched route pattern (or `unmatched`), never the raw path.
     pub fn observe_request(&self, route: &str, method: &str, status: u16, seconds: f64) {
+        let method = METHODS
+            .iter()
+            .find(|m| **m == method)
+            .copied()
+            .unwrap_or("other");
         let mut map = self.requests.lock().unwrap_or_else(|e| e.into_inner());
         let l = map
             .entry((route.to_string(), method.to_string(), status))

@@ -71,6 +71,9 @@ pub struct ServeConfig {
     pub workers: usize,
     /// Where decisions are recorded (`sqlite:PATH` or `postgres://...`); `None` records nothing.
     pub store: Option<String>,
+    /// A bearer key `/metrics` requires, for deployments whose scraper can send one; `None`:
+    /// open, like the health probes.
+    pub metrics_key: Option<String>,
 }
 
 /// Shared by all workers.
@@ -81,6 +84,8 @@ pub struct State {
     pub limits: Limits,
     /// Writes decision records (group commit); `None` when records are off.
     pub recorder: Option<crate::records::Recorder>,
+    /// SHA-256 of the key `/metrics` requires, if one was set.
+    pub metrics_key: Option<[u8; 32]>,
 }
 
 /// A started server: where it listens and how to stop it.
@@ -165,6 +170,7 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
         metrics: Default::default(),
         limits: config.limits.clone(),
         recorder,
+        metrics_key: config.metrics_key.as_deref().map(auth::digest),
     });
     let limits = config.limits.clone();
     let server = HttpServer::new(move || {

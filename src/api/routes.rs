@@ -101,12 +101,17 @@ fn slow_to_explain(state: &State, request: &Value) -> bool {
 }
 
 pub(super) fn observe(state: &State, decision: &Decision, outcome: &str) {
-    let outcome = match outcome {
+    let outcome = outcome_label(outcome);
+    (state.metrics).observe_decision(&decision.model.id, &decision.model.version, outcome);
+}
+
+/// The metrics label of an outcome.
+pub(super) fn outcome_label(outcome: &str) -> &'static str {
+    match outcome {
         "approve" => "approve",
         "refer" => "refer",
         _ => "decline",
-    };
-    (state.metrics).observe_decision(&decision.model.id, &decision.model.version, outcome);
+    }
 }
 
 /// Decide one application.
@@ -356,11 +361,17 @@ pub async fn ready(state: web::Data<State>) -> Result<HttpResponse, Problem> {
 }
 
 /// Counters and latency histograms, Prometheus text format.
-#[utoipa::path(get, path = "/metrics", tag = "operations", responses((status = 200, content_type = "text/plain", body = String)))]
-pub async fn metrics(state: web::Data<State>) -> HttpResponse {
-    HttpResponse::Ok()
+#[utoipa::path(get, path = "/metrics", tag = "operations", responses((status = 200, content_type = "text/plain", body = String), (status = 401, description = "The service was started with --metrics-key and this request does not present it", body = Problem, content_type = "application/problem+json")))]
+pub async fn metrics(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
+    if let Some(expected) = &state.metrics_key {
+        let header = (req.headers().get("authorization")).and_then(|v| v.to_str().ok());
+        if !super::auth::presents(header, expected) {
+            return Err(Problem::unauthorized());
+        }
+    }
+    Ok(HttpResponse::Ok()
         .content_type("text/plain; version=0.0.4")
-        .body(state.metrics.render())
+        .body(state.metrics.render()))
 }
 
 #[derive(Serialize, ToSchema)]

@@ -57,6 +57,10 @@ pub struct ServeArgs {
         default_value = "sqlite:plumbline-data/records.sqlite3"
     )]
     store: String,
+    /// A bearer key that `/metrics` then requires (PLUMBLINE_METRICS_KEY); without it the
+    /// metrics are open, like the health probes.
+    #[arg(long, env = "PLUMBLINE_METRICS_KEY", hide_env_values = true)]
+    metrics_key: Option<String>,
     /// Record nothing (benchmarks and trials only: decisions could not be recovered later).
     #[arg(long, conflicts_with = "store")]
     no_store: bool,
@@ -151,6 +155,7 @@ pub fn run(args: ServeArgs) -> i32 {
     }
     let config = ServeConfig {
         store: (!args.no_store).then(|| args.store.clone()),
+        metrics_key: args.metrics_key.clone(),
         addr: args.addr,
         models: args.models,
         auth,

@@ -43,6 +43,7 @@ impl TestServer {
         store: Option<String>,
     ) -> Self {
         let config = ServeConfig {
+            metrics_key: None,
             store: store.clone(),
             addr: "127.0.0.1:0".parse().unwrap(),
             models,
