@@ -185,3 +185,72 @@ fn metrics_have_fixed_labels_count_batches_and_can_require_a_key() {
         "the batch's two decisions: {approved}"
     );
 }
+
+/// A value so large that the model's output overflows (a field without a `max`) is a 422 for
+/// that item, before anything is recorded; the rest of a batch is decided and recorded.
+#[test]
+fn an_overflowing_output_is_refused_before_it_is_recorded() {
+    let dir = TempDir::new();
+    let mut model: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string("models/fernhill-logistic.json").unwrap())
+            .unwrap();
+    let features = model["features"].as_array_mut().unwrap();
+    let delinquencies = features
+        .iter_mut()
+        .find(|f| f["name"] == "delinquencies_24m")
+        .unwrap();
+    delinquencies.as_object_mut().unwrap().remove("max");
+    model["model"]["coefficients"]["delinquencies_24m"] = 3.0.into();
+    let path = dir.0.join("no-max.json");
+    std::fs::write(&path, model.to_string()).unwrap();
+    let location = format!("sqlite:{}", dir.0.join("records.sqlite3").display());
+    let (mut child, base) =
+        common::server::spawn_binary(&["--model", path.to_str().unwrap(), "--store", &location]);
+    let applicant = |delinquencies: f64| {
+        serde_json::json!({"requested_amount": 12000, "annual_income": 85000, "debt_to_income": 14.5,
+            "revolving_utilization": 22, "months_since_oldest_account": 190,
+            "delinquencies_24m": delinquencies, "inquiries_6m": 1, "months_with_employer": 72,
+            "housing": "mortgage", "loan_purpose": "home_improvement"})
+    };
+    let huge = 1.7e308;
+    let body = serde_json::json!({"application_id": "FH-HUGE-1", "applicant": applicant(huge)});
+    let (status, _, text) = common::server::send(
+        "POST",
+        &format!("{base}/v1/decisions"),
+        Some(common::server::SCORING),
+        Some("application/json"),
+        Some(&body.to_string()),
+    );
+    assert_eq!(status, 422, "{text}");
+    assert!(
+        text.contains("applicant.delinquencies_24m") && text.contains("finite_output"),
+        "{text}"
+    );
+    let batch = serde_json::json!({"items": [
+        {"application_id": "FH-HUGE-2", "applicant": applicant(huge)},
+        {"application_id": "FH-FINE-3", "applicant": applicant(0.0)},
+    ]});
+    let (status, _, text) = common::server::send(
+        "POST",
+        &format!("{base}/v1/decisions/batch"),
+        Some(common::server::SCORING),
+        Some("application/json"),
+        Some(&batch.to_string()),
+    );
+    assert_eq!(status, 200, "{text}");
+    let r: serde_json::Value = serde_json::from_str(&text).unwrap();
+    assert_eq!(
+        (
+            r["results"][0]["status"].as_u64(),
+            r["results"][1]["status"].as_u64()
+        ),
+        (Some(422), Some(200))
+    );
+    child.kill().unwrap();
+    let _ = child.wait();
+    let store = plumbline::records::open(&location).unwrap();
+    let all = store
+        .export(&plumbline::records::Query::default(), &mut |_| true)
+        .unwrap();
+    assert_eq!(all, 1, "only the finite decision is recorded");
+}

@@ -152,6 +152,26 @@ pub fn decide_envelope(
     }
 }
 
+/// A decision whose numbers overflow (a huge value in a field with no `max`) cannot be given,
+/// explained or recorded: it is refused as input, naming the field whose contribution
+/// overflowed (or the applicant, when the sum did).
+fn not_finite(model: &LoadedModel, by_column: &[f64], outputs: [f64; 4]) -> Result<(), InputError> {
+    if outputs.iter().chain(by_column).all(|v| v.is_finite()) {
+        return Ok(());
+    }
+    let field = (model.schema.fields.iter())
+        .find(|f| by_column[f.columns.clone()].iter().any(|c| !c.is_finite()))
+        .map_or_else(
+            || "applicant".to_string(),
+            |f| format!("applicant.{}", f.name),
+        );
+    Err(InputError::one(
+        &field,
+        "finite_output",
+        "the model's output for this applicant is not a finite number (a value far outside what the model was built on); give the field a max in the artifact, or check the value",
+    ))
+}
+
 /// Decides one applicant object.
 pub fn decide(
     model: &LoadedModel,
@@ -167,6 +187,7 @@ pub fn decide(
     let mut errors = Vec::new();
     (model.explainer).explain_with_errors(x, &mut by_column, &mut errors);
     let base = model.explainer.base_value();
+    not_finite(model, &by_column, [raw, probability, log_odds, base])?;
     debug_assert!(
         explain::is_additive(base, &by_column, raw),
         "contributions do not add up: base {base} + {:?} != {raw}",
