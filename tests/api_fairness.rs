@@ -209,7 +209,7 @@ fn bad_report_requests_are_named() {
     let (status, _, text) = report(&server, &json!({"groups": bad_sum}), "", REVIEW);
     assert_eq!(status, 422);
     assert!(
-        text.contains("groups.rows[0].probabilities") && text.contains("sum_to_one"),
+        text.contains("groups.dimensions[0].rows[0].probabilities") && text.contains("sum_to_one"),
         "{text}"
     );
     let (status, _, _) = report(

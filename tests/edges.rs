@@ -254,3 +254,66 @@ fn an_overflowing_output_is_refused_before_it_is_recorded() {
         .unwrap();
     assert_eq!(all, 1, "only the finite decision is recorded");
 }
+
+/// With `--max-reports 1`, a fair-lending report whose upload is still arriving holds the one
+/// place: another report is refused with 429 and Retry-After, and once the first client goes
+/// away the place is free again.
+#[test]
+fn reports_beyond_the_limit_wait_their_turn() {
+    use std::io::Write;
+    let dir = TempDir::new();
+    let location = format!("sqlite:{}", dir.0.join("records.sqlite3").display());
+    let (mut child, base) =
+        common::server::spawn_binary(&["--store", &location, "--max-reports", "1"]);
+    let addr = base.trim_start_matches("http://").to_string();
+    let mut slow = std::net::TcpStream::connect(&addr).unwrap();
+    write!(
+        slow,
+        "POST /v1/fairness/reports HTTP/1.1\r\nHost: x\r\nAuthorization: Bearer {}\r\nContent-Type: application/json\r\nContent-Length: 100000\r\n\r\n{{\"groups\": {{\"dimensions\": [",
+        common::server::REVIEW
+    )
+    .unwrap();
+    slow.flush().unwrap();
+    std::thread::sleep(std::time::Duration::from_millis(300));
+    let groups = r#"{"groups": {"dimensions": [{"name": "g", "rows": [{"application_id": "FH-1", "group": "a"}]}]}}"#;
+    let agent = ureq::AgentBuilder::new().build();
+    let busy = agent
+        .post(&format!("{base}/v1/fairness/reports"))
+        .set(
+            "Authorization",
+            &format!("Bearer {}", common::server::REVIEW),
+        )
+        .set("Content-Type", "application/json")
+        .send_string(groups);
+    let Err(ureq::Error::Status(429, response)) = busy else {
+        panic!("expected 429, got {busy:?}");
+    };
+    assert_eq!(response.header("retry-after"), Some("5"));
+    let problem = response.into_string().unwrap();
+    assert!(problem.contains("/problems/busy"), "{problem}");
+    drop(slow);
+    let mut answered = 0;
+    for _ in 0..50 {
+        std::thread::sleep(std::time::Duration::from_millis(100));
+        let (status, _, _) = common::server::send(
+            "POST",
+            &format!("{base}/v1/fairness/reports"),
+            Some(common::server::REVIEW),
+            Some("application/json"),
+            Some(groups),
+        );
+        answered = status;
+        if status != 429 {
+            break;
+        }
+    }
+    child.kill().unwrap();
+    let _ = child.wait();
+    assert_eq!(
+        answered, 200,
+        "the place is free once the slow client is gone"
+    );
+}
+
+#[path = "edges/memory.rs"]
+mod memory;

@@ -2,7 +2,7 @@
 //! by exact arithmetic, a hand-worked weighted rate for probabilistic membership, refer
 //! handling, unmatched data reported rather than dropped, the cutoff sweep, and bad uploads.
 
-use plumbline::fairness::membership::{self, Dimension, Kind, WHOLE};
+use plumbline::fairness::membership::{self, Dimension, Kind, Members, WHOLE};
 use plumbline::fairness::report::GroupResult;
 use plumbline::fairness::{Aggregator, DecisionRow, Refer, Report, Settings};
 use std::collections::HashMap;
@@ -26,7 +26,7 @@ fn labelled(groups: &[(&str, usize, usize)], settings: Settings) -> Report {
         name: "d".into(),
         kind: Kind::Labels,
         groups: groups.iter().map(|g| g.0.to_string()).collect(),
-        members,
+        members: Members::from_pairs(Kind::Labels, members).unwrap(),
     }];
     let mut agg = Aggregator::new(&dims, settings);
     for (id, outcome, p) in &rows {
@@ -146,7 +146,7 @@ fn refer_counting_is_a_stated_choice() {
         name: "d".into(),
         kind: Kind::Labels,
         groups: vec!["a".into(), "b".into()],
-        members,
+        members: Members::from_pairs(Kind::Labels, members).unwrap(),
     }];
     let run = |refer| {
         let mut agg = Aggregator::new(
@@ -198,7 +198,7 @@ fn referrals_count_as_their_final_actions() {
         name: "d".into(),
         kind: Kind::Labels,
         groups: vec!["a".into()],
-        members,
+        members: Members::from_pairs(Kind::Labels, members).unwrap(),
     }];
     // 20 approvals; 20 referrals: 8 approved on review, 6 declined, 2 withdrawn, 4 pending.
     let final_of = |i: usize| match i {
@@ -325,11 +325,12 @@ fn bad_uploads_are_named() {
     assert_eq!(e.rule, "not_empty");
     let e = membership::from_csv("application_id,group\nFH-1,x\nFH-1,y\n", "d", 0.001).unwrap_err();
     assert_eq!((e.row, e.rule), (Some(2), "unique"));
-    let e = membership::from_json(&serde_json::json!({"dimensions": []}), 0.001).unwrap_err();
+    let e = membership::from_json(r#"{"dimensions": []}"#.as_bytes(), 0.001).unwrap_err();
     assert_eq!(e.rule, "required");
     let e = membership::from_json(
-        &serde_json::json!({"dimensions": [{"name": "sex", "rows": [
-        {"application_id": "FH-1", "probabilities": {"a": 0.5, "b": 0.2}}]}]}),
+        r#"{"dimensions": [{"name": "sex", "rows": [
+        {"application_id": "FH-1", "probabilities": {"a": 0.5, "b": 0.2}}]}]}"#
+            .as_bytes(),
         0.001,
     )
     .unwrap_err();
@@ -406,8 +407,9 @@ fn spreadsheet_csv_uploads_read_as_written() {
                 FH-1,0.25,0.75\r\n\r\n\"FH-2\",1,0\r\n";
     let d = membership::from_csv(text, "region", 0.001).unwrap();
     assert_eq!(d.groups, ["Group A, north", "Group \"B\""]);
-    assert_eq!(d.members["FH-1"], vec![(0, 250_000_000), (1, 750_000_000)]);
-    assert_eq!(d.members["FH-2"], vec![(0, 1_000_000_000)]);
+    let weights = |id| Vec::from_iter(d.members.weights(d.members.find(id).unwrap()));
+    assert_eq!(weights("FH-1"), vec![(0, 250_000_000), (1, 750_000_000)]);
+    assert_eq!(weights("FH-2"), vec![(0, 1_000_000_000)]);
     let labels = "application_id,group\r\nFH-1,\"x, y\"\r\n";
     let d = membership::from_csv(labels, "d", 0.001).unwrap();
     assert_eq!(d.groups, ["x, y"]);

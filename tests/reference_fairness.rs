@@ -66,7 +66,8 @@ fn approvals_to_remove_significance_match_scipy() {
             name: "d".into(),
             kind: Kind::Labels,
             groups: vec!["g".into(), "c".into()],
-            members,
+            members: plumbline::fairness::membership::Members::from_pairs(Kind::Labels, members)
+                .unwrap(),
         }];
         let settings = Settings {
             control: Some("c".into()),

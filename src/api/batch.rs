@@ -1,13 +1,15 @@
 //! POST /v1/decisions/batch: many applications in one request. Items are decided on the blocking
 //! pool, recorded in one group, and reported one by one; a bad item never fails the others.
 
-use super::body::read_json;
+use super::body::read_bytes;
 use super::problem::Problem;
 use super::routes::{authorize, decide_value, json, outcome_label, DecisionRequest, DECIDERS};
 use super::{recording, State};
 use crate::decide::Decision;
 use actix_web::{web, HttpRequest, HttpResponse};
+use serde::de::{DeserializeSeed, Deserializer, MapAccess, SeqAccess, Visitor};
 use serde::Serialize;
+use serde_json::value::RawValue;
 use serde_json::Value;
 use utoipa::ToSchema;
 
@@ -58,37 +60,24 @@ pub async fn post_batch(
     payload: web::Payload,
 ) -> Result<HttpResponse, Problem> {
     let caller = authorize(&state, &req, DECIDERS)?;
-    let body = read_json(
+    let body = read_bytes(
         &req,
         payload,
         state.limits.max_batch_body_bytes,
         state.limits.body_timeout,
     )
     .await?;
-    let items = match body.get("items") {
-        Some(Value::Array(items)) if body.as_object().is_some_and(|o| o.len() == 1) => items,
-        _ => {
-            return Err(Problem::invalid(crate::InputError::one(
-                "items",
-                "required",
-                "a batch is {\"items\": [request, ...]} and nothing else",
-            )));
-        }
-    };
-    if items.len() > state.limits.max_batch_items {
-        return Err(Problem::batch_too_large(
-            items.len(),
-            state.limits.max_batch_items,
-        ));
-    }
     // A full batch is milliseconds of CPU: run it on the blocking pool so this worker keeps
     // reading other requests (and finishes them on shutdown) meanwhile.
     let received_at = crate::records::now();
     let state = state.into_inner();
     let worker = state.clone();
-    let decided = web::block(move || decide_batch(&worker, &body, received_at, &caller.name))
-        .await
-        .map_err(|_| Problem::internal("the batch worker stopped"))?;
+    let decided = web::block(move || {
+        let items = batch_items(&body, worker.limits.max_batch_items)?;
+        Ok::<_, Problem>(decide_batch(&worker, &items, received_at, &caller.name))
+    })
+    .await
+    .map_err(|_| Problem::internal("the batch worker stopped"))??;
     Ok(json(&batch_response(&state, decided).await?))
 }
 
@@ -100,31 +89,118 @@ enum Slot {
     Failed(Problem),
 }
 
-/// The items decided, and the records to write for them (in item order).
+/// The batch's items as slices of the body (no JSON tree of the whole batch is built), refused
+/// while it is read once there are more than `most`: a malformed body is a 400, anything but
+/// `{"items": [...]}` a 422.
+fn batch_items(body: &[u8], most: usize) -> Result<Vec<&RawValue>, Problem> {
+    let mut de = serde_json::Deserializer::from_slice(body);
+    let items = (Items { most }.deserialize(&mut de)).and_then(|items| de.end().map(|()| items));
+    match items {
+        Ok(Ok(items)) => Ok(items),
+        Ok(Err(count)) => Err(Problem::batch_too_large(count, most)),
+        Err(e) if e.is_syntax() || e.is_eof() => Err(Problem::malformed_json(&e)),
+        Err(_) => Err(Problem::invalid(crate::InputError::one(
+            "items",
+            "required",
+            "a batch is {\"items\": [request, ...]} and nothing else",
+        ))),
+    }
+}
+
+/// Reads `{"items": [...]}` keeping each item as its raw text; `Err(n)` once item `n` passes
+/// the limit.
+struct Items {
+    most: usize,
+}
+
+impl<'de> DeserializeSeed<'de> for Items {
+    type Value = Result<Vec<&'de RawValue>, usize>;
+    fn deserialize<D: Deserializer<'de>>(self, d: D) -> Result<Self::Value, D::Error> {
+        d.deserialize_map(self)
+    }
+}
+
+impl<'de> Visitor<'de> for Items {
+    type Value = Result<Vec<&'de RawValue>, usize>;
+    fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+        f.write_str("{\"items\": [...]}")
+    }
+    fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> Result<Self::Value, A::Error> {
+        let mut items = None;
+        while let Some(key) = map.next_key::<&str>()? {
+            if key != "items" || items.is_some() {
+                return Err(serde::de::Error::unknown_field(key, &["items"]));
+            }
+            items = Some(map.next_value_seed(ItemList { most: self.most })?);
+        }
+        items.ok_or_else(|| serde::de::Error::missing_field("items"))
+    }
+}
+
+struct ItemList {
+    most: usize,
+}
+
+impl<'de> DeserializeSeed<'de> for ItemList {
+    type Value = Result<Vec<&'de RawValue>, usize>;
+    fn deserialize<D: Deserializer<'de>>(self, d: D) -> Result<Self::Value, D::Error> {
+        d.deserialize_seq(self)
+    }
+}
+
+impl<'de> Visitor<'de> for ItemList {
+    type Value = Result<Vec<&'de RawValue>, usize>;
+    fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+        f.write_str("a list of decision requests")
+    }
+    fn visit_seq<A: SeqAccess<'de>>(self, mut seq: A) -> Result<Self::Value, A::Error> {
+        let mut items = Vec::new();
+        while let Some(item) = seq.next_element::<&RawValue>()? {
+            if items.len() == self.most {
+                // The rest are counted, not kept.
+                let mut count = self.most + 1;
+                while seq.next_element::<serde::de::IgnoredAny>()?.is_some() {
+                    count += 1;
+                }
+                return Ok(Err(count));
+            }
+            items.push(item);
+        }
+        Ok(Ok(items))
+    }
+}
+
+/// The items decided, and the records to write for them (in item order). Each item is parsed
+/// on its own, so at most one item's JSON tree exists at a time; an item larger than a single
+/// decision's body limit is refused unread.
 fn decide_batch(
     state: &State,
-    body: &Value,
+    items: &[&RawValue],
     received_at: String,
     requested_by: &str,
 ) -> (Vec<Slot>, Vec<crate::records::Record>) {
-    let items = body["items"]
-        .as_array()
-        .map(Vec::as_slice)
-        .unwrap_or_default();
     let mut records = Vec::new();
     let slots = (items.iter())
-        .map(|item| match decide_value(state, item) {
-            Ok(d) if state.recorder.is_some() => {
+        .map(|raw| {
+            if raw.get().len() > state.limits.max_body_bytes {
+                return Err(Problem::item_too_large(state.limits.max_body_bytes));
+            }
+            let item: Value =
+                serde_json::from_str(raw.get()).map_err(|e| Problem::malformed_json(&e))?;
+            decide_value(state, &item).map(|d| (d, item))
+        })
+        .map(|decided| match decided {
+            Ok((d, item)) if state.recorder.is_some() => {
                 records.push(recording::record_for(
                     &d.decision,
                     d.idempotency_key,
-                    item,
+                    &item,
                     received_at.clone(),
                     requested_by,
                 ));
                 Slot::Recorded
             }
-            Ok(d) => Slot::Bare(Box::new(d.decision)),
+            Ok((d, _)) => Slot::Bare(Box::new(d.decision)),
             Err(p) => Slot::Failed(p),
         })
         .collect();

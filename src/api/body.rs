@@ -1,4 +1,6 @@
-//! Reading a JSON body with explicit limits: media type, size, and time to arrive.
+//! Reading a JSON body with explicit limits: media type, size, and time to arrive. Small bodies
+//! are read whole; large uploads are parsed as they arrive, on the blocking pool, straight into
+//! their typed form, so the body is never held twice (as text and as a tree).
 
 use super::problem::Problem;
 use actix_web::{web, HttpRequest};
@@ -6,15 +8,9 @@ use futures_util::StreamExt;
 use serde_json::Value;
 use std::time::Duration;
 
-/// Reads and parses the body. Refuses a wrong Content-Type (415), a body over `limit` bytes
-/// (413, before reading it when Content-Length says so), one slower than `timeout` (408), and
-/// malformed JSON (400, with line and column).
-pub async fn read_json(
-    req: &HttpRequest,
-    mut payload: web::Payload,
-    limit: usize,
-    timeout: Duration,
-) -> Result<Value, Problem> {
+/// Refuses a wrong Content-Type (415) and a declared length over `limit` (413) before reading.
+/// The declared length, if any, is returned to size the buffer once.
+fn check_head(req: &HttpRequest, limit: usize) -> Result<Option<usize>, Problem> {
     let content_type = req
         .headers()
         .get("content-type")
@@ -32,22 +28,121 @@ pub async fn read_json(
     if declared.is_some_and(|n| n > limit) {
         return Err(Problem::too_large(limit));
     }
+    Ok(declared)
+}
+
+fn payload_problem(e: actix_web::error::PayloadError, limit: usize) -> Problem {
+    match e {
+        actix_web::error::PayloadError::Overflow => Problem::too_large(limit),
+        other => Problem::bad_body(&other.to_string()),
+    }
+}
+
+/// The whole body as bytes, within `limit` bytes and `timeout`.
+pub async fn read_bytes(
+    req: &HttpRequest,
+    mut payload: web::Payload,
+    limit: usize,
+    timeout: Duration,
+) -> Result<web::Bytes, Problem> {
+    let declared = check_head(req, limit)?;
     let read = async {
-        let mut body = web::BytesMut::new();
+        // Sized once when the length is declared (never above the limit): no doubling copies.
+        let mut body = web::BytesMut::with_capacity(declared.unwrap_or(0));
         while let Some(chunk) = payload.next().await {
-            let chunk = chunk.map_err(|e| match e {
-                actix_web::error::PayloadError::Overflow => Problem::too_large(limit),
-                other => Problem::bad_body(&other.to_string()),
-            })?;
+            let chunk = chunk.map_err(|e| payload_problem(e, limit))?;
             if body.len() + chunk.len() > limit {
                 return Err(Problem::too_large(limit));
             }
             body.extend_from_slice(&chunk);
         }
-        Ok(body)
+        Ok(body.freeze())
     };
-    let body = tokio::time::timeout(timeout, read)
+    tokio::time::timeout(timeout, read)
         .await
-        .map_err(|_| Problem::body_timeout(timeout.as_millis() as u64))??;
+        .map_err(|_| Problem::body_timeout(timeout.as_millis() as u64))?
+}
+
+/// Reads and parses a small body (a single decision, a final action) as a JSON tree. Refuses
+/// malformed JSON (400, with line and column) besides the limits of [`read_bytes`].
+pub async fn read_json(
+    req: &HttpRequest,
+    payload: web::Payload,
+    limit: usize,
+    timeout: Duration,
+) -> Result<Value, Problem> {
+    let body = read_bytes(req, payload, limit, timeout).await?;
     serde_json::from_slice(&body).map_err(|e| Problem::malformed_json(&e))
+}
+
+/// Parses a large body as it arrives: `parse` runs on the blocking pool, reading the chunks the
+/// request worker forwards through a small channel, so at most a few chunks of the text are in
+/// memory at once besides what `parse` builds. The limits of [`read_bytes`] apply; when `parse`
+/// stops early (a fault in the first rows), the rest of the body is not read.
+pub async fn parse_streamed<T, F>(
+    req: &HttpRequest,
+    mut payload: web::Payload,
+    limit: usize,
+    timeout: Duration,
+    parse: F,
+) -> Result<T, Problem>
+where
+    T: Send + 'static,
+    F: FnOnce(&mut dyn std::io::Read) -> Result<T, Problem> + Send + 'static,
+{
+    check_head(req, limit)?;
+    let (tx, rx) = tokio::sync::mpsc::channel::<web::Bytes>(4);
+    let parser = web::block(move || parse(&mut ChunkReader::new(rx)));
+    let feed = async move {
+        let mut seen = 0usize;
+        while let Some(chunk) = payload.next().await {
+            let chunk = chunk.map_err(|e| payload_problem(e, limit))?;
+            seen += chunk.len();
+            if seen > limit {
+                return Err(Problem::too_large(limit));
+            }
+            if tx.send(chunk).await.is_err() {
+                break; // the parser has stopped: its own answer says why
+            }
+        }
+        Ok(())
+    };
+    let feed = async {
+        tokio::time::timeout(timeout, feed)
+            .await
+            .map_err(|_| Problem::body_timeout(timeout.as_millis() as u64))?
+    };
+    // When the feed fails the sender is dropped: the parser sees a cut body and ends too.
+    let (fed, parsed) = futures_util::future::join(feed, parser).await;
+    fed?;
+    parsed.map_err(|_| Problem::internal("the body parser stopped"))?
+}
+
+/// `io::Read` over the chunks a request worker forwards (blocking: for the blocking pool only).
+struct ChunkReader {
+    rx: tokio::sync::mpsc::Receiver<web::Bytes>,
+    current: web::Bytes,
+}
+
+impl ChunkReader {
+    fn new(rx: tokio::sync::mpsc::Receiver<web::Bytes>) -> Self {
+        ChunkReader {
+            rx,
+            current: web::Bytes::new(),
+        }
+    }
+}
+
+impl std::io::Read for ChunkReader {
+    fn read(&mut self, out: &mut [u8]) -> std::io::Result<usize> {
+        while self.current.is_empty() {
+            match self.rx.blocking_recv() {
+                Some(chunk) => self.current = chunk,
+                None => return Ok(0),
+            }
+        }
+        let n = out.len().min(self.current.len());
+        out[..n].copy_from_slice(&self.current.split_to(n));
+        Ok(n)
+    }
 }

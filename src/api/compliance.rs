@@ -299,6 +299,7 @@ pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
 pub async fn export(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
     let (store, caller) = store_for(&state, &req, REVIEWERS)?;
     let (query, params) = parse_query(&req, &["format"])?;
+    let slot = state.report_slot()?;
     let format = match params.get("format") {
         None => Format::JsonLines,
         Some(f) => Format::parse(f)
@@ -317,6 +318,7 @@ pub async fn export(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
     // whatever the range; a client that goes away, or stops reading for EXPORT_STALL, ends it.
     let (tx, rx) = tokio::sync::mpsc::channel::<Result<Bytes, String>>(8);
     std::thread::spawn(move || {
+        let _slot = slot;
         let mut chunk = String::from(format.header().unwrap_or_default());
         let mut failed = None;
         let result = store.export(&query, &mut |r| {

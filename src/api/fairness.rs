@@ -4,14 +4,12 @@
 //! for this one report in memory and never stored.
 
 use super::auth::Role;
-use super::body::read_json;
 use super::problem::Problem;
 use super::State;
 use crate::fairness::{html, membership, Aggregator, DecisionRow, Refer, Settings};
 use crate::features::InputError;
 use actix_web::{web, HttpRequest, HttpResponse};
 use serde::Deserialize;
-use serde_json::Value;
 
 const REVIEWERS: &[Role] = &[Role::Review];
 /// Most cutoffs in one sweep.
@@ -24,7 +22,7 @@ pub struct ReportRequest {
     /// JSON upload: `{"dimensions": [{"name", "rows": [{"application_id", "group"} or
     /// {"application_id", "probabilities": {"G": p}}]}]}`.
     #[schema(value_type = Option<Object>)]
-    pub groups: Option<Value>,
+    pub groups: Option<membership::Upload>,
     /// CSV upload instead: `application_id,group` or `application_id,G1,G2,...`.
     pub groups_csv: Option<String>,
     /// Name of the dimension a CSV upload describes (default `group`).
@@ -49,7 +47,35 @@ pub struct ReportRequest {
     pub min_group_size: Option<f64>,
     pub sum_tolerance: Option<f64>,
     /// Approve cutoffs (probability of default) for the sweep; default 0.02 to 0.30.
+    #[serde(default, deserialize_with = "at_most_max_cutoffs")]
     pub cutoffs: Option<Vec<f64>>,
+}
+
+/// The cutoff list, refused while it is read once it passes [`MAX_CUTOFFS`] (so a long list
+/// costs nothing).
+fn at_most_max_cutoffs<'de, D: serde::Deserializer<'de>>(
+    d: D,
+) -> Result<Option<Vec<f64>>, D::Error> {
+    struct V;
+    impl<'de> serde::de::Visitor<'de> for V {
+        type Value = Vec<f64>;
+        fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+            write!(f, "a list of at most {MAX_CUTOFFS} numbers")
+        }
+        fn visit_seq<A: serde::de::SeqAccess<'de>>(self, mut seq: A) -> Result<Vec<f64>, A::Error> {
+            let mut out = Vec::new();
+            while let Some(x) = seq.next_element::<f64>()? {
+                if out.len() == MAX_CUTOFFS {
+                    return Err(serde::de::Error::custom(format!(
+                        "at most {MAX_CUTOFFS} cutoffs"
+                    )));
+                }
+                out.push(x);
+            }
+            Ok(out)
+        }
+    }
+    d.deserialize_seq(V).map(Some)
 }
 
 /// How a referral without a final action counts under `refer: final`.
@@ -104,16 +130,18 @@ fn settings(r: &ReportRequest) -> Result<Settings, Problem> {
     Ok(s)
 }
 
-fn upload(r: &ReportRequest) -> Result<Vec<membership::Dimension>, Problem> {
+fn upload(r: &mut ReportRequest) -> Result<Vec<membership::Dimension>, Problem> {
     let tolerance = r.sum_tolerance.unwrap_or(membership::SUM_TOLERANCE);
     if !(tolerance.is_finite() && (0.0..0.5).contains(&tolerance)) {
         return Err(invalid("sum_tolerance", "range", "must be from 0 to 0.5"));
     }
     let named = |e: membership::UploadError| {
-        let at = e
-            .row
-            .map(|n| format!("groups.rows[{}].{}", n - 1, e.field))
-            .unwrap_or_else(|| format!("groups.{}", e.field));
+        let dim = e.dimension.map(|d| format!("dimensions[{d}]."));
+        let at = match (dim, e.row) {
+            (Some(d), Some(n)) => format!("groups.{d}rows[{}].{}", n - 1, e.field),
+            (Some(d), None) => format!("groups.{d}{}", e.field),
+            (None, _) => format!("groups.{}", e.field),
+        };
         invalid(&at, e.rule, e.message)
     };
     // A CSV upload's faults are named by the field it came in and its data row and column.
@@ -124,8 +152,8 @@ fn upload(r: &ReportRequest) -> Result<Vec<membership::Dimension>, Problem> {
         };
         invalid("groups_csv", e.rule, format!("{at}: {}", e.message))
     };
-    match (&r.groups, &r.groups_csv) {
-        (Some(v), None) => membership::from_json(v, tolerance).map_err(named),
+    match (r.groups.take(), &r.groups_csv) {
+        (Some(u), None) => u.finish(tolerance).map_err(named),
         (None, Some(text)) => {
             membership::from_csv(text, r.dimension.as_deref().unwrap_or("group"), tolerance)
                 .map(|d| vec![d])
@@ -162,22 +190,23 @@ pub async fn create_report(
         "format=html" => true,
         _ => return Err(Problem::bad_query("format", "one_of", "json or html")),
     };
-    // Uploads are large (a million probability rows is tens of MiB); give them time to arrive.
-    let body = read_json(
+    let slot = state.report_slot()?;
+    // Uploads are large (a million probability rows is tens of MiB): they get time to arrive,
+    // and are parsed as they arrive, off the request workers, straight into their typed form.
+    let mut request = super::body::parse_streamed(
         &req,
         payload,
         state.limits.max_upload_bytes,
         state.limits.body_timeout * 12,
+        |body| {
+            let mut de = serde_json::Deserializer::from_reader(std::io::BufReader::new(body));
+            let request: ReportRequest = serde_path_to_error::deserialize(&mut de)
+                .map_err(|e| shape_problem(e.path().to_string(), e.into_inner()))?;
+            de.end().map_err(|e| shape_problem(".".into(), e))?;
+            Ok(request)
+        },
     )
     .await?;
-    let request: ReportRequest = serde_path_to_error::deserialize(&body).map_err(|e| {
-        let path = e.path().to_string();
-        invalid(
-            if path == "." { "body" } else { &path },
-            "shape",
-            e.into_inner().to_string(),
-        )
-    })?;
     let settings = settings(&request)?;
     let get = |name: &str| match name {
         "from" => request.from.as_deref(),
@@ -188,7 +217,7 @@ pub async fn create_report(
     };
     let query = crate::records::parse_query(get)
         .map_err(|e| Problem::bad_query(&e.param, e.rule, e.message))?;
-    let dims = upload(&request)?;
+    let dims = upload(&mut request)?;
     let title = format!(
         "Fair-lending screening{}{}",
         request
@@ -241,5 +270,19 @@ pub async fn create_report(
             .content_type("text/html; charset=utf-8")
             .body(html::page(&report, &title)));
     }
+    drop(slot);
     Ok(HttpResponse::Ok().json(report))
+}
+
+/// A body that is not a report request: malformed JSON is a 400 as elsewhere; a wrong shape
+/// is a 422 naming the path.
+fn shape_problem(path: String, e: serde_json::Error) -> Problem {
+    if e.is_syntax() || e.is_eof() {
+        return Problem::malformed_json(&e);
+    }
+    invalid(
+        if path == "." { "body" } else { &path },
+        "shape",
+        e.to_string(),
+    )
 }

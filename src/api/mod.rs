@@ -30,7 +30,7 @@ pub use registry::Registry;
 /// Request limits. Defaults: 64 KiB per decision, 8 MiB and 1,000 items per batch, 64 MiB per
 /// group-membership upload (60 s to arrive), 5 s for a body to arrive, 5 s for a client to send
 /// its request head, 10 s for a decision to be committed, 30 s to finish in-flight work on
-/// shutdown.
+/// shutdown, at most 2 fairness reports and record exports at once.
 #[derive(Debug, Clone)]
 pub struct Limits {
     pub max_body_bytes: usize,
@@ -43,6 +43,9 @@ pub struct Limits {
     pub commit_timeout: Duration,
     pub head_timeout: Duration,
     pub shutdown_timeout: Duration,
+    /// Most fairness reports and record exports running at once (each holds a read connection
+    /// and walks many records); more are refused with 429 and Retry-After.
+    pub max_reports: usize,
 }
 
 impl Default for Limits {
@@ -56,6 +59,7 @@ impl Default for Limits {
             commit_timeout: crate::records::recorder::COMMIT_TIMEOUT,
             head_timeout: Duration::from_secs(5),
             shutdown_timeout: Duration::from_secs(30),
+            max_reports: 2,
         }
     }
 }
@@ -86,6 +90,16 @@ pub struct State {
     pub recorder: Option<crate::records::Recorder>,
     /// SHA-256 of the key `/metrics` requires, if one was set.
     pub metrics_key: Option<[u8; 32]>,
+    /// Places for long reads (fairness reports, exports): `limits.max_reports` of them.
+    pub report_slots: std::sync::Arc<tokio::sync::Semaphore>,
+}
+
+impl State {
+    /// A place for one report or export, held until it is dropped; 429 when none is free.
+    pub fn report_slot(&self) -> Result<tokio::sync::OwnedSemaphorePermit, problem::Problem> {
+        (self.report_slots.clone().try_acquire_owned())
+            .map_err(|_| problem::Problem::busy(self.limits.max_reports))
+    }
 }
 
 /// A started server: where it listens and how to stop it.
@@ -171,6 +185,7 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
         limits: config.limits.clone(),
         recorder,
         metrics_key: config.metrics_key.as_deref().map(auth::digest),
+        report_slots: std::sync::Arc::new(tokio::sync::Semaphore::new(config.limits.max_reports)),
     });
     let limits = config.limits.clone();
     let server = HttpServer::new(move || {

@@ -5,6 +5,9 @@ use actix_web::http::StatusCode;
 use actix_web::HttpResponse;
 use serde::Serialize;
 
+/// How long a caller refused for want of a free report slot is asked to wait.
+pub const BUSY_RETRY_SECONDS: u64 = 5;
+
 /// `application/problem+json` body. `type` is a stable identifier for the class of problem.
 #[derive(Debug, Clone, Serialize, utoipa::ToSchema)]
 pub struct Problem {
@@ -19,6 +22,9 @@ pub struct Problem {
     /// Each offending field: JSON path, rule broken, and a sentence for a person.
     #[serde(skip_serializing_if = "Vec::is_empty")]
     pub errors: Vec<FieldError>,
+    /// Seconds to wait before trying again, sent as the `Retry-After` header.
+    #[serde(skip)]
+    pub retry_after: Option<u64>,
 }
 
 impl Problem {
@@ -34,6 +40,7 @@ impl Problem {
             status: status.as_u16(),
             detail: detail.into(),
             errors: Vec::new(),
+            retry_after: None,
         }
     }
 
@@ -119,6 +126,16 @@ impl Problem {
             format!("{items} items sent; at most {limit} per batch"),
         )
         .with("items", "max_items", format!("at most {limit} items"))
+    }
+
+    /// A batch item larger than a single decision's body may be.
+    pub fn item_too_large(limit: usize) -> Self {
+        Problem::new(
+            StatusCode::PAYLOAD_TOO_LARGE,
+            "/problems/item-too-large",
+            "The item is too large",
+            format!("a batch item may be at most {limit} bytes, as a single decision's body"),
+        )
     }
 
     pub fn body_timeout(ms: u64) -> Self {
@@ -343,6 +360,18 @@ impl Problem {
         .with(param, rule, message)
     }
 
+    /// Too many reports and exports are running; this one may start once one ends.
+    pub fn busy(running: usize) -> Self {
+        let mut p = Problem::new(
+            StatusCode::TOO_MANY_REQUESTS,
+            "/problems/busy",
+            "Too many reports and exports are running",
+            format!("{running} fairness reports and record exports are running, the most this replica runs at once; retry after the Retry-After seconds"),
+        );
+        p.retry_after = Some(BUSY_RETRY_SECONDS);
+        p
+    }
+
     pub fn status(&self) -> StatusCode {
         StatusCode::from_u16(self.status).unwrap_or(StatusCode::INTERNAL_SERVER_ERROR)
     }
@@ -351,6 +380,9 @@ impl Problem {
         let mut r = HttpResponse::build(self.status());
         if self.status == 401 {
             r.insert_header(("WWW-Authenticate", "Bearer"));
+        }
+        if let Some(seconds) = self.retry_after {
+            r.insert_header(("Retry-After", seconds.to_string()));
         }
         r.content_type("application/problem+json")
             .body(serde_json::to_string(self).unwrap_or_default())

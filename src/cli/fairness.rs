@@ -94,12 +94,12 @@ fn report(args: &FairnessArgs) -> Result<Report, String> {
     let read = |p: &PathBuf| {
         std::fs::read_to_string(p).map_err(|e| format!("cannot read {}: {e}", p.display()))
     };
-    let groups_text = read(&args.groups)?;
     let dims = if args.groups.extension().is_some_and(|e| e == "json") {
-        let v: Value = serde_json::from_str(&groups_text)
-            .map_err(|e| format!("{}: not JSON: {e}", args.groups.display()))?;
-        membership::from_json(&v, args.sum_tolerance)
+        let file = std::fs::File::open(&args.groups)
+            .map_err(|e| format!("cannot read {}: {e}", args.groups.display()))?;
+        membership::from_json(file, args.sum_tolerance)
     } else {
+        let groups_text = read(&args.groups)?;
         membership::from_csv(&groups_text, &args.dimension, args.sum_tolerance).map(|d| vec![d])
     }
     .map_err(|e| format!("{}: {e}", args.groups.display()))?;

@@ -46,6 +46,10 @@ pub struct ServeArgs {
     /// is not given (503) and nothing of it is recorded.
     #[arg(long, default_value_t = 10_000)]
     commit_timeout_ms: u64,
+    /// Most fairness reports and record exports running at once; more get 429 with
+    /// Retry-After.
+    #[arg(long, default_value_t = 2)]
+    max_reports: usize,
     /// Worker threads (default: one per core).
     #[arg(long)]
     workers: Option<usize>,
@@ -119,6 +123,10 @@ fn check_limits(args: &ServeArgs) -> Result<(), String> {
             "--commit-timeout-ms must be 100 to 600000",
         ),
         (
+            (1..=64).contains(&args.max_reports),
+            "--max-reports must be 1 to 64",
+        ),
+        (
             args.workers.is_none_or(|w| (1..=256).contains(&w)),
             "--workers must be 1 to 256",
         ),
@@ -166,6 +174,7 @@ pub fn run(args: ServeArgs) -> i32 {
             max_batch_items: args.max_batch_items,
             body_timeout: Duration::from_millis(args.body_timeout_ms),
             commit_timeout: Duration::from_millis(args.commit_timeout_ms),
+            max_reports: args.max_reports,
             ..Limits::default()
         },
         workers: args

@@ -7,7 +7,6 @@
 use super::membership::{Dimension, Kind, WHOLE};
 use super::stats::{self, Moments};
 use serde::Serialize;
-use std::collections::HashSet;
 
 /// Every report carries this.
 pub const CAUTION: &str = "A screening statistic for the people who decide, not a legal finding. Adverse impact ratios and significance tests show where to look; they neither establish nor rule out discrimination under ECOA / Regulation B or other law. Memberships from proxy methods are estimates. Review with compliance counsel.";
@@ -84,7 +83,8 @@ struct GroupSums {
 struct DimensionSums<'d> {
     dim: &'d Dimension,
     groups: Vec<GroupSums>,
-    matched: HashSet<&'d str>,
+    /// Per member (upload order): whether a decision in scope matched it.
+    matched: Vec<bool>,
     decisions_without_group: u64,
 }
 
@@ -114,7 +114,7 @@ impl<'d> Aggregator<'d> {
                         };
                         d.groups.len()
                     ],
-                    matched: HashSet::new(),
+                    matched: vec![false; d.members.len()],
                     decisions_without_group: 0,
                 })
                 .collect(),
@@ -143,8 +143,8 @@ impl<'d> Aggregator<'d> {
             // Left out of the counts, yet its upload rows did match a decision.
             self.referrals_excluded += 1;
             for ds in &mut self.dims {
-                if let Some((id, _)) = ds.dim.members.get_key_value(d.application_id) {
-                    ds.matched.insert(id.as_str());
+                if let Some(m) = ds.dim.members.find(d.application_id) {
+                    ds.matched[m] = true;
                 }
             }
             return;
@@ -157,12 +157,12 @@ impl<'d> Aggregator<'d> {
             }
         }
         for ds in &mut self.dims {
-            let Some((id, weights)) = ds.dim.members.get_key_value(d.application_id) else {
+            let Some(m) = ds.dim.members.find(d.application_id) else {
                 ds.decisions_without_group += 1;
                 continue;
             };
-            ds.matched.insert(id.as_str());
-            for &(g, w) in weights {
+            ds.matched[m] = true;
+            for (g, w) in ds.dim.members.weights(m) {
                 let s = &mut ds.groups[g as usize];
                 s.applications += u128::from(w);
                 if approved {
@@ -385,15 +385,19 @@ fn dimension_result(ds: DimensionSums, settings: &Settings) -> DimensionResult {
                 .collect(),
         })
         .collect();
-    let mut unknown: Vec<String> = dim
-        .members
-        .keys()
-        .filter(|k| !ds.matched.contains(k.as_str()))
-        .cloned()
-        .collect();
-    let unknown_count = unknown.len() as u64;
-    unknown.sort();
-    unknown.truncate(LISTED_UNKNOWN);
+    let unmatched = (0..dim.members.len()).filter(|&m| !ds.matched[m]);
+    let unknown_count = unmatched.clone().count() as u64;
+    // The first ids in id order, without copying them all.
+    let mut unknown: Vec<&str> = Vec::with_capacity(LISTED_UNKNOWN + 1);
+    for m in unmatched {
+        let id = dim.members.id(m);
+        if unknown.len() < LISTED_UNKNOWN || unknown.last().is_some_and(|l| id < *l) {
+            let at = unknown.partition_point(|u| *u < id);
+            unknown.insert(at, id);
+            unknown.truncate(LISTED_UNKNOWN);
+        }
+    }
+    let unknown: Vec<String> = unknown.into_iter().map(str::to_string).collect();
     DimensionResult {
         name: dim.name.clone(),
         kind: dim.kind,

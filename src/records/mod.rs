@@ -11,6 +11,7 @@ pub mod cursor;
 pub mod export;
 pub mod ids;
 pub mod notice;
+mod pool;
 pub mod postgres;
 pub mod recorder;
 mod sql;

@@ -24,8 +24,6 @@ use tokio::task::AbortHandle;
 use tokio_postgres::types::ToSql;
 use tokio_postgres::{Client, Config, NoTls, Row};
 
-/// Read connections kept open for reuse.
-const IDLE_READERS: usize = 8;
 /// Key of the advisory lock held while migrating (any constant shared by all replicas).
 const MIGRATION_LOCK: i64 = 0x706c_756d_626c;
 /// Longest wait for one read step (a look-up, a page, the next rows of an export).
@@ -88,7 +86,7 @@ pub struct PostgresStore {
     /// context, and the last reference to a store may be dropped in one).
     rt: Option<tokio::runtime::Runtime>,
     writer: Mutex<Option<Conn>>,
-    readers: Mutex<Vec<Conn>>,
+    readers: super::pool::Readers<Conn>,
 }
 
 fn failed(e: tokio_postgres::Error) -> StoreError {
@@ -258,7 +256,7 @@ impl PostgresStore {
             config,
             rt: Some(rt),
             writer: Mutex::new(None),
-            readers: Mutex::new(Vec::new()),
+            readers: super::pool::Readers::default(),
         };
         let mut conn = store.connect()?;
         store.block_on(within(
@@ -307,24 +305,15 @@ impl PostgresStore {
         Ok(conn)
     }
 
-    /// An idle read connection, or a new one.
+    /// An idle read connection, or a new one (at most `pool::MOST_READERS` open).
     fn reader(&self) -> Result<Conn, StoreError> {
-        let idle = self.readers.lock().ok().and_then(|mut v| v.pop());
-        match idle {
-            Some(c) if c.usable() => Ok(c),
-            _ => self.connect(),
-        }
+        self.readers.take(Conn::usable, || self.connect())
     }
 
     /// Keeps a read connection for reuse, unless its work erred or stalled.
     fn give_back<T>(&self, conn: Conn, out: Result<T, StoreError>) -> Result<T, StoreError> {
-        if out.is_ok() && conn.usable() {
-            if let Ok(mut v) = self.readers.lock() {
-                if v.len() < IDLE_READERS {
-                    v.push(conn);
-                }
-            }
-        }
+        let keep = out.is_ok() && conn.usable();
+        self.readers.give_back(conn, keep);
         out
     }
 
@@ -412,9 +401,7 @@ fn describe(c: &Config) -> String {
 impl Drop for PostgresStore {
     fn drop(&mut self) {
         let writer = self.writer.get_mut().ok().and_then(Option::take);
-        let readers = (self.readers.get_mut())
-            .map(std::mem::take)
-            .unwrap_or_default();
+        let readers = self.readers.drain();
         let rt = self.rt.take();
         let _ = std::thread::spawn(move || drop((writer, readers, rt))).join();
     }

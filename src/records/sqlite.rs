@@ -9,8 +9,6 @@ use std::path::{Path, PathBuf};
 use std::sync::Mutex;
 use std::time::{Duration, Instant};
 
-/// Read connections kept open for reuse.
-const IDLE_READERS: usize = 8;
 /// How long a statement waits for another connection's lock when no deadline is given.
 const BUSY_WAIT: Duration = Duration::from_secs(10);
 /// How long a readiness probe waits for the write lock.
@@ -19,7 +17,7 @@ const PROBE_WAIT: Duration = Duration::from_secs(1);
 pub struct SqliteStore {
     path: PathBuf,
     writer: Mutex<Connection>,
-    readers: Mutex<Vec<Connection>>,
+    readers: super::pool::Readers<Connection>,
 }
 
 fn failed(e: rusqlite::Error) -> StoreError {
@@ -136,7 +134,7 @@ impl SqliteStore {
         Ok(SqliteStore {
             path: path.to_path_buf(),
             writer: Mutex::new(writer),
-            readers: Mutex::new(Vec::new()),
+            readers: super::pool::Readers::default(),
         })
     }
 
@@ -144,17 +142,9 @@ impl SqliteStore {
         &self,
         f: impl FnOnce(&Connection) -> Result<T, StoreError>,
     ) -> Result<T, StoreError> {
-        let idle = self.readers.lock().ok().and_then(|mut v| v.pop());
-        let conn = match idle {
-            Some(c) => c,
-            None => connect(&self.path)?,
-        };
+        let conn = self.readers.take(|_| true, || connect(&self.path))?;
         let out = f(&conn);
-        if let Ok(mut v) = self.readers.lock() {
-            if v.len() < IDLE_READERS {
-                v.push(conn);
-            }
-        }
+        self.readers.give_back(conn, true);
         out
     }
 }
