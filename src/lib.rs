@@ -27,6 +27,7 @@ pub mod reasons;
 pub mod records;
 pub mod replay;
 pub mod tabular;
+pub mod tls;
 pub mod train;
 
 pub use artifact::{ArtifactError, LoadedModel};

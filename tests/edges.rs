@@ -315,5 +315,74 @@ fn reports_beyond_the_limit_wait_their_turn() {
     );
 }
 
+/// A test CA (as a lender's internal CA) and a server certificate it signed for 127.0.0.1 and
+/// localhost, written as PEM files: (CA certificate, server certificate, server key).
+fn test_certificates(dir: &std::path::Path) -> [std::path::PathBuf; 3] {
+    let ca_key = rcgen::KeyPair::generate().unwrap();
+    let mut ca = rcgen::CertificateParams::new(Vec::<String>::new()).unwrap();
+    ca.is_ca = rcgen::IsCa::Ca(rcgen::BasicConstraints::Unconstrained);
+    (ca.distinguished_name).push(rcgen::DnType::CommonName, "Fernhill Lending test CA");
+    let ca = rcgen::CertifiedIssuer::self_signed(ca, ca_key).unwrap();
+    let key = rcgen::KeyPair::generate().unwrap();
+    let server = rcgen::CertificateParams::new(vec!["127.0.0.1".into(), "localhost".into()])
+        .unwrap()
+        .signed_by(&key, &ca)
+        .unwrap();
+    let paths = ["ca.pem", "server.pem", "server.key"].map(|f| dir.join(f));
+    std::fs::write(&paths[0], ca.pem()).unwrap();
+    std::fs::write(&paths[1], server.pem()).unwrap();
+    std::fs::write(&paths[2], key.serialize_pem()).unwrap();
+    paths
+}
+
+/// `serve --tls-cert --tls-key` terminates TLS itself; `replay --against https://…` checks the
+/// certificate: trusted through `--ca-cert`, refused without it (the test CA is no public root).
+#[test]
+fn the_service_speaks_tls_and_replay_checks_its_certificate() {
+    let dir = TempDir::new();
+    let [ca, cert, key] = test_certificates(&dir.0);
+    let (mut child, base) = common::server::spawn_binary(&[
+        "--no-store",
+        "--tls-cert",
+        cert.to_str().unwrap(),
+        "--tls-key",
+        key.to_str().unwrap(),
+    ]);
+    assert!(base.starts_with("https://127.0.0.1:"), "{base}");
+    let replay = |extra: &[&str]| {
+        Command::new(env!("CARGO_BIN_EXE_plumbline"))
+            .args(["replay", "demo-requests", "--against", &base, "--json"])
+            .args(extra)
+            .env("PLUMBLINE_API_KEY", common::server::SCORING)
+            .output()
+            .unwrap()
+    };
+    let trusted = replay(&["--ca-cert", ca.to_str().unwrap()]);
+    let untrusted = replay(&[]);
+    let plain = Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args(["replay", "demo-requests", "--json", "--against"])
+        .arg(base.replace("https://", "http://"))
+        .env("PLUMBLINE_API_KEY", common::server::SCORING)
+        .output()
+        .unwrap();
+    child.kill().unwrap();
+    let _ = child.wait();
+    assert_eq!(trusted.status.code(), Some(0), "{}", stderr(&trusted));
+    let report: serde_json::Value = serde_json::from_slice(&trusted.stdout).unwrap();
+    assert_eq!(report["errors"], 0, "{report}");
+    assert_eq!(report["unchanged"], report["compared"], "{report}");
+    let refused = String::from_utf8_lossy(&untrusted.stdout);
+    assert_ne!(untrusted.status.code(), Some(0));
+    assert!(
+        refused.contains("UnknownIssuer") || refused.contains("certificate"),
+        "{refused}"
+    );
+    assert_ne!(
+        plain.status.code(),
+        Some(0),
+        "plain HTTP to the TLS port decides nothing"
+    );
+}
+
 #[path = "edges/memory.rs"]
 mod memory;

@@ -324,3 +324,40 @@ fn postgres_store_from_version_1_upgrades_in_place() {
         .get(0);
     assert_eq!(applied as usize, records::sql_migrations_count());
 }
+
+/// `sslmode` as libpq reads it, against the test server's own certificate (Debian's server
+/// ships a self-signed one naming the machine, not 127.0.0.1): `require` encrypts (the server
+/// lists the connection in `pg_stat_ssl`), `verify-full` refuses a certificate no trusted root
+/// signed, `verify-ca` with that certificate as `sslrootcert` accepts it, and `verify-full`
+/// with it still refuses a name the certificate does not hold.
+#[test]
+fn postgres_connections_use_tls_as_sslmode_says() {
+    let Some(db) = stores::postgres() else { return };
+    let mut admin = postgres::Client::connect(&db.url, postgres::NoTls).unwrap();
+    let ssl: String = admin.query_one("SHOW ssl", &[]).unwrap().get(0);
+    assert_eq!(ssl, "on", "the test server must offer TLS (ssl = on)");
+    let cert: String = admin.query_one("SHOW ssl_cert_file", &[]).unwrap().get(0);
+    let with = |q: &str| format!("{}?{q}", db.url);
+    let store = plumbline::records::open(&with("sslmode=require")).expect("TLS without checks");
+    let encrypted: i64 = admin
+        .query_one(
+            "SELECT count(*) FROM pg_stat_ssl s JOIN pg_stat_activity a USING (pid)
+             WHERE a.datname = current_database() AND s.ssl AND a.pid <> pg_backend_pid()",
+            &[],
+        )
+        .unwrap()
+        .get(0);
+    assert!(encrypted >= 1, "the store's connection is encrypted");
+    drop(store);
+    let refused = plumbline::records::open(&with("sslmode=verify-full"))
+        .err()
+        .unwrap();
+    assert!(refused.to_string().contains("certificate"), "{refused}");
+    let rooted = format!("sslrootcert={cert}");
+    plumbline::records::open(&with(&format!("sslmode=verify-ca&{rooted}")))
+        .expect("the chain leads to the given root");
+    let named = plumbline::records::open(&with(&format!("sslmode=verify-full&{rooted}")))
+        .err()
+        .unwrap();
+    assert!(named.to_string().contains("certificate"), "{named}");
+}

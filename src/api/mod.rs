@@ -78,6 +78,9 @@ pub struct ServeConfig {
     /// A bearer key `/metrics` requires, for deployments whose scraper can send one; `None`:
     /// open, like the health probes.
     pub metrics_key: Option<String>,
+    /// Terminate TLS here: the certificate chain and private key (PEM files); `None`: plain
+    /// HTTP, for a TLS-terminating proxy or mesh in front.
+    pub tls: Option<(PathBuf, PathBuf)>,
 }
 
 /// Shared by all workers.
@@ -105,6 +108,8 @@ impl State {
 /// A started server: where it listens and how to stop it.
 pub struct Running {
     pub addr: SocketAddr,
+    /// `https` when the service terminates TLS itself, else `http`.
+    pub scheme: &'static str,
     pub handle: ServerHandle,
     pub server: actix_web::dev::Server,
 }
@@ -154,6 +159,10 @@ fn resource(path: &str, route: actix_web::Route) -> actix_web::Resource {
 /// Validates every model and binds the address; the returned server runs once awaited.
 pub fn start(config: ServeConfig) -> Result<Running, String> {
     let registry = Registry::new(config.models.clone())?;
+    let tls = match &config.tls {
+        Some((cert, key)) => Some(crate::tls::server_config(cert, key)?),
+        None => None,
+    };
     let recorder = match &config.store {
         Some(location) => {
             // On its own thread: the PostgreSQL client blocks on a runtime of its own, which
@@ -251,12 +260,19 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
     .client_request_timeout(limits.head_timeout)
     .client_disconnect_timeout(Duration::from_secs(1))
     .shutdown_timeout(limits.shutdown_timeout.as_secs())
-    .bind(config.addr)
+    // A TLS handshake must finish within the time a request head has.
+    .tls_handshake_timeout(limits.head_timeout);
+    let scheme = if tls.is_some() { "https" } else { "http" };
+    let server = match tls {
+        Some(tls) => server.bind_rustls_0_23(config.addr, tls),
+        None => server.bind(config.addr),
+    }
     .map_err(|e| format!("{LISTEN_FAILED} {}: {e}", config.addr))?;
     let addr = server.addrs().first().copied().unwrap_or(config.addr);
     let server = server.run();
     Ok(Running {
         addr,
+        scheme,
         handle: server.handle(),
         server,
     })
@@ -275,7 +291,7 @@ pub fn serve(config: ServeConfig) -> Result<(), String> {
             eprintln!("\n*** WARNING: {banner} ***\n");
         }
         tracing::info!(addr = %running.addr, "listening");
-        eprintln!("plumbline listening on http://{}", running.addr);
+        eprintln!("plumbline listening on {}://{}", running.scheme, running.addr);
         running.server.await.map_err(|e| e.to_string())
     })
 }

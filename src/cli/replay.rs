@@ -14,9 +14,14 @@ pub const EXIT_CHANGED: i32 = 3;
 pub struct ReplayArgs {
     /// A folder of recorded pairs (like demo-requests/) or a records export (JSON lines).
     source: PathBuf,
-    /// A model artifact, or the base URL of a running service (http://HOST:PORT).
+    /// A model artifact, or the base URL of a running service (http://HOST:PORT, or
+    /// https://HOST:PORT: the certificate must name the host and lead to a trusted root).
     #[arg(long)]
     against: String,
+    /// Trusted roots for an https service (PEM), e.g. the lender's internal CA; without it the
+    /// Mozilla set.
+    #[arg(long)]
+    ca_cert: Option<PathBuf>,
     /// Largest probability difference still counted as unchanged.
     #[arg(long, default_value_t = 1e-9)]
     tolerance: f64,
@@ -89,7 +94,11 @@ fn load_cases(source: &Path) -> Result<Vec<Case>, String> {
 
 enum Against {
     Model(Box<crate::LoadedModel>),
-    Service { url: String, key: Option<String> },
+    Service {
+        url: String,
+        key: Option<String>,
+        agent: ureq::Agent,
+    },
 }
 
 impl Against {
@@ -105,13 +114,13 @@ impl Against {
             Against::Model(m) => crate::decide_request(m, request)
                 .map_err(|e| e.to_string())
                 .and_then(|d| serde_json::to_value(d).map_err(|e| e.to_string())),
-            Against::Service { url, key } => {
+            Against::Service { url, key, agent } => {
                 // A retry key would fetch the stored response instead of a new decision.
                 let mut body = request.clone();
                 if let Some(o) = body.as_object_mut() {
                     o.remove("idempotency_key");
                 }
-                let mut call = ureq::post(&format!("{url}/v1/decisions"))
+                let mut call = (agent.post(&format!("{url}/v1/decisions")))
                     .set("Content-Type", "application/json");
                 if let Some(k) = key {
                     call = call.set("Authorization", &format!("Bearer {k}"));
@@ -130,6 +139,23 @@ impl Against {
             }
         }
     }
+}
+
+/// Most time to connect to a service, and to send or read one decision.
+const CONNECT_TIMEOUT: std::time::Duration = std::time::Duration::from_secs(5);
+const CALL_TIMEOUT: std::time::Duration = std::time::Duration::from_secs(30);
+
+/// The HTTP client for `--against URL`: bounded waits, and for https the full certificate
+/// check (chain to a trusted root, host name) against `ca_cert` or the Mozilla roots.
+fn service_agent(ca_cert: Option<&Path>) -> Result<ureq::Agent, String> {
+    let roots = crate::tls::roots(ca_cert)?;
+    let tls = crate::tls::client_config(roots, crate::tls::Check::ChainAndName)?;
+    Ok(ureq::AgentBuilder::new()
+        .timeout_connect(CONNECT_TIMEOUT)
+        .timeout_read(CALL_TIMEOUT)
+        .timeout_write(CALL_TIMEOUT)
+        .tls_config(std::sync::Arc::new(tls))
+        .build())
 }
 
 pub fn run(args: ReplayArgs) -> i32 {
@@ -152,9 +178,16 @@ pub fn run(args: ReplayArgs) -> i32 {
         }
     };
     let against = if args.against.starts_with("http://") || args.against.starts_with("https://") {
-        Against::Service {
-            url: args.against.trim_end_matches('/').to_string(),
-            key: std::env::var(&args.key_env).ok(),
+        match service_agent(args.ca_cert.as_deref()) {
+            Ok(agent) => Against::Service {
+                url: args.against.trim_end_matches('/').to_string(),
+                key: std::env::var(&args.key_env).ok(),
+                agent,
+            },
+            Err(e) => {
+                eprintln!("error: {e}");
+                return EXIT_BAD_INPUT;
+            }
         }
     } else {
         match super::load(Path::new(&args.against)) {

@@ -65,6 +65,13 @@ pub struct ServeArgs {
     /// metrics are open, like the health probes.
     #[arg(long, env = "PLUMBLINE_METRICS_KEY", hide_env_values = true)]
     metrics_key: Option<String>,
+    /// Terminate TLS here with this certificate chain (PEM; the server's certificate first).
+    /// Without it the service speaks plain HTTP, for a TLS-terminating proxy in front.
+    #[arg(long, requires = "tls_key")]
+    tls_cert: Option<PathBuf>,
+    /// The private key of --tls-cert (PEM: PKCS#8, PKCS#1 or SEC1).
+    #[arg(long, requires = "tls_cert")]
+    tls_key: Option<PathBuf>,
     /// Record nothing (benchmarks and trials only: decisions could not be recovered later).
     #[arg(long, conflicts_with = "store")]
     no_store: bool,
@@ -164,6 +171,7 @@ pub fn run(args: ServeArgs) -> i32 {
     let config = ServeConfig {
         store: (!args.no_store).then(|| args.store.clone()),
         metrics_key: args.metrics_key.clone(),
+        tls: args.tls_cert.clone().zip(args.tls_key.clone()),
         addr: args.addr,
         models: args.models,
         auth,

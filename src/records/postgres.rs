@@ -21,8 +21,10 @@ use std::future::Future;
 use std::sync::Mutex;
 use std::time::{Duration, Instant};
 use tokio::task::AbortHandle;
+use tokio_postgres::config::SslMode;
 use tokio_postgres::types::ToSql;
-use tokio_postgres::{Client, Config, NoTls, Row};
+use tokio_postgres::{Client, Config, Row};
+use tokio_postgres_rustls::MakeRustlsConnect;
 
 /// Key of the advisory lock held while migrating (any constant shared by all replicas).
 const MIGRATION_LOCK: i64 = 0x706c_756d_626c;
@@ -59,6 +61,20 @@ fn apply_defaults(url: &str, c: &mut Config) {
     }
 }
 
+/// An error with its causes ("error performing TLS handshake: invalid peer certificate: …").
+fn causes(e: &dyn std::error::Error) -> String {
+    let mut text = e.to_string();
+    let mut next = e.source();
+    while let Some(cause) = next {
+        let more = cause.to_string();
+        if !text.ends_with(&more) {
+            text = format!("{text}: {more}");
+        }
+        next = cause.source();
+    }
+    text
+}
+
 /// One connection: the client, its server process (for settling a broken commit) and the task
 /// that drives it (aborted to drop a connection that stopped answering).
 struct Conn {
@@ -81,6 +97,8 @@ impl Drop for Conn {
 
 pub struct PostgresStore {
     config: Config,
+    /// TLS as the URL's `sslmode` asks (see `crate::tls::postgres_url`).
+    connector: MakeRustlsConnect,
     described: String,
     /// `Some` until dropped (on a thread of its own: a runtime cannot be dropped in an async
     /// context, and the last reference to a store may be dropped in one).
@@ -239,10 +257,20 @@ enum Attempt {
 impl PostgresStore {
     /// Connects, and applies pending migrations.
     pub fn open(url: &str) -> Result<Self, StoreError> {
+        let (url, tls) = crate::tls::postgres_url(url).map_err(StoreError::Unavailable)?;
         let mut config: Config = url
             .parse()
             .map_err(|e| StoreError::Unavailable(format!("not a PostgreSQL URL: {e}")))?;
-        apply_defaults(url, &mut config);
+        apply_defaults(&url, &mut config);
+        config.ssl_mode(match tls.mode {
+            crate::tls::Use::Never => SslMode::Disable,
+            crate::tls::Use::IfOffered => SslMode::Prefer,
+            crate::tls::Use::Always => SslMode::Require,
+        });
+        let roots = crate::tls::roots(tls.roots.as_deref()).map_err(StoreError::Unavailable)?;
+        let connector = MakeRustlsConnect::new(
+            crate::tls::client_config(roots, tls.check).map_err(StoreError::Unavailable)?,
+        );
         let rt = tokio::runtime::Builder::new_multi_thread()
             .worker_threads(1)
             .thread_name("plumbline-postgres")
@@ -254,6 +282,7 @@ impl PostgresStore {
         let store = PostgresStore {
             described: describe(&config),
             config,
+            connector,
             rt: Some(rt),
             writer: Mutex::new(None),
             readers: super::pool::Readers::default(),
@@ -279,10 +308,11 @@ impl PostgresStore {
     /// A new connection, given up at `deadline`.
     fn connect_by(&self, deadline: Instant) -> Result<Conn, StoreError> {
         let config = self.config.clone();
+        let connector = self.connector.clone();
         let rt = self.rt.as_ref().expect("runtime until drop");
         let (client, connection) = self.block_on(within(deadline, "connecting", async {
-            (config.connect(NoTls).await)
-                .map_err(|e| StoreError::Unavailable(format!("cannot connect: {e}")))
+            (config.connect(connector).await)
+                .map_err(|e| StoreError::Unavailable(format!("cannot connect: {}", causes(&e))))
         }))?;
         let task = rt
             .spawn(async move {

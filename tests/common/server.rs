@@ -44,6 +44,7 @@ impl TestServer {
     ) -> Self {
         let config = ServeConfig {
             metrics_key: None,
+            tls: None,
             store: store.clone(),
             addr: "127.0.0.1:0".parse().unwrap(),
             models,
