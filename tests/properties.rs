@@ -1,5 +1,6 @@
 //! Property tests (proptest): on random ensembles and rows, contributions are additive
-//! (base + sum = model output within 1e-9) and deterministic (same input, same bits).
+//! (base + sum = model output within 1e-9) and deterministic (same input, same bits); and the
+//! fuzzing of every parser that takes outside input (`fuzz`).
 
 mod common;
 
@@ -43,3 +44,6 @@ proptest! {
         prop_assert_eq!(a, b);
     }
 }
+
+#[path = "properties/fuzz.rs"]
+mod fuzz;
