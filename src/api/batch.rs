@@ -2,8 +2,9 @@
 //! pool, recorded in one group, and reported one by one; a bad item never fails the others.
 
 use super::body::read_bytes;
+use super::decisions::{decide_value, outcome_label, DecisionRequest, DECIDERS};
+use super::json;
 use super::problem::Problem;
-use super::routes::{authorize, decide_value, json, outcome_label, DecisionRequest, DECIDERS};
 use super::{recording, State};
 use crate::decide::Decision;
 use actix_web::{web, HttpRequest, HttpResponse};
@@ -59,7 +60,7 @@ pub async fn post_batch(
     req: HttpRequest,
     payload: web::Payload,
 ) -> Result<HttpResponse, Problem> {
-    let caller = authorize(&state, &req, DECIDERS)?;
+    let caller = state.admit(&req, DECIDERS)?;
     let body = read_bytes(
         &req,
         payload,

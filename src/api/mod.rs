@@ -8,6 +8,7 @@ pub mod auth;
 mod batch;
 mod body;
 mod compliance;
+mod decisions;
 mod fairness;
 mod metrics;
 pub mod openapi;
@@ -98,11 +99,27 @@ pub struct State {
 }
 
 impl State {
+    /// Admits the request for `allowed` roles: the caller (key name and role) it came from.
+    pub fn admit(
+        &self,
+        req: &actix_web::HttpRequest,
+        allowed: &[Role],
+    ) -> Result<auth::Caller, problem::Problem> {
+        self.auth.admit(req, allowed)
+    }
+
     /// A place for one report or export, held until it is dropped; 429 when none is free.
     pub fn report_slot(&self) -> Result<tokio::sync::OwnedSemaphorePermit, problem::Problem> {
         (self.report_slots.clone().try_acquire_owned())
             .map_err(|_| problem::Problem::busy(self.limits.max_reports))
     }
+}
+
+/// A 200 with `value` as JSON.
+fn json<T: serde::Serialize>(value: &T) -> actix_web::HttpResponse {
+    actix_web::HttpResponse::Ok()
+        .content_type("application/json")
+        .body(serde_json::to_string(value).unwrap_or_default())
 }
 
 /// A started server: where it listens and how to stop it.
@@ -230,7 +247,7 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
             })
             .service(
                 web::resource("/v1/decisions")
-                    .route(web::post().to(routes::post_decision))
+                    .route(web::post().to(decisions::post_decision))
                     .route(web::get().to(compliance::search))
                     .default_service(web::to(routes::method_not_allowed)),
             )
@@ -253,7 +270,7 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
             .service(resource("/health/live", web::get().to(routes::live)))
             .service(resource("/health/ready", web::get().to(routes::ready)))
             .service(resource("/metrics", web::get().to(routes::metrics)))
-            .service(resource("/openapi.json", web::get().to(routes::openapi)))
+            .service(resource("/openapi.json", web::get().to(openapi::serve)))
             .default_service(web::to(routes::not_found))
     })
     .workers(config.workers.max(1))

@@ -1,7 +1,8 @@
 //! The OpenAPI 3.1 document, generated from the handlers and types (utoipa). A test keeps the
 //! checked-in copy, openapi/plumbline.json, equal to it.
 
-use super::{access, batch, compliance, fairness, routes, underwriting};
+use super::{access, batch, compliance, decisions, fairness, routes, underwriting};
+use actix_web::HttpResponse;
 use utoipa::openapi::security::{HttpAuthScheme, HttpBuilder, SecurityScheme};
 use utoipa::{Modify, OpenApi};
 
@@ -12,8 +13,8 @@ use utoipa::{Modify, OpenApi};
         description = "Scores loan applications with a validated model and returns the probability of default, a scaled score, an approve / refer / decline outcome, ranked reason codes and exact per-field contributions.\n\nModel output is decision support, not a credit decision by itself. Lenders remain responsible for complying with ECOA / Regulation B, FCRA and local law, for their adverse-action notices, and for their own model-risk review; defer to compliance counsel.\n\nErrors are RFC 9457 problem details (`application/problem+json`) naming each bad field with the rule it broke.",
         license(name = "Apache-2.0")
     ),
-    paths(routes::post_decision, batch::post_batch, compliance::search, compliance::export, compliance::get_decision, compliance::adverse_action, underwriting::post_final_action, fairness::create_report, routes::get_models, routes::get_model, routes::live, routes::ready, routes::metrics, routes::reload, access::get_access, routes::openapi),
-    components(schemas(crate::decide::Decision, super::recording::RecordRef, super::problem::Problem, routes::DecisionRequest, batch::BatchResponse, compliance::SearchPage, underwriting::FinalActionRequest)),
+    paths(decisions::post_decision, batch::post_batch, compliance::search, compliance::export, compliance::get_decision, compliance::adverse_action, underwriting::post_final_action, fairness::create_report, routes::get_models, routes::get_model, routes::live, routes::ready, routes::metrics, routes::reload, access::get_access, serve),
+    components(schemas(crate::decide::Decision, super::recording::RecordRef, super::problem::Problem, decisions::DecisionRequest, batch::BatchResponse, compliance::SearchPage, underwriting::FinalActionRequest)),
     modifiers(&ApiKey),
     tags(
         (name = "decisions", description = "Decide applications; each decision is recorded before it is sent"),
@@ -49,4 +50,12 @@ pub fn document() -> String {
     let mut doc = Document::openapi();
     doc.info.version = crate::VERSION.to_string();
     format!("{}\n", doc.to_pretty_json().unwrap_or_default())
+}
+
+/// This document.
+#[utoipa::path(get, path = "/openapi.json", tag = "operations", operation_id = "openapi", responses((status = 200, description = "The OpenAPI 3.1 document", content_type = "application/json", body = Object)))]
+pub async fn serve() -> HttpResponse {
+    HttpResponse::Ok()
+        .content_type("application/json")
+        .body(document())
 }

@@ -23,7 +23,7 @@ pub use covers::Covers;
 pub use graph::Head;
 
 use crate::artifact::spec::{ModelSpec, TreeEnsembleSpec};
-use crate::train::build::{TrainError, TrainingSpec};
+use crate::train::spec::{TrainError, TrainingSpec};
 use crate::train::{dataset, reference};
 use graph::Step;
 use serde_json::{json, Value};

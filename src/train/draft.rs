@@ -3,7 +3,7 @@
 //! Reason texts start with [`DRAFT_MARK`] and training refuses them until they are rewritten,
 //! since only people who know the product can state a reason specifically.
 
-use super::build::TrainError;
+use super::spec::TrainError;
 use serde_json::{json, Value};
 use std::collections::BTreeMap;
 

@@ -11,5 +11,6 @@ pub mod logistic;
 pub mod monotone;
 pub mod reference;
 mod rng;
+pub mod spec;
 
 pub use rng::Rng;

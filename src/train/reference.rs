@@ -4,7 +4,7 @@
 //! the spec's choice as primary (used by decisions) and the other as the alternate (for
 //! reviewers to compare), so switching later needs no retraining.
 
-use super::build::{ReferenceChoice, TrainError};
+use super::spec::{ReferenceChoice, TrainError};
 use crate::artifact::spec::Population;
 use serde_json::{json, Value};
 
