@@ -329,6 +329,21 @@ fn wrong_method_is_405_and_scheme_is_case_insensitive() {
         None,
     );
     assert_eq!((status, ct.as_str()), (405, "application/problem+json"));
+    // RFC 9110 15.5.6: a 405 names the methods the route takes.
+    let agent = ureq::AgentBuilder::new().build();
+    for (method, path, allow) in [
+        ("PUT", "/v1/decisions", "GET, POST"),
+        ("GET", "/v1/decisions/batch", "POST"),
+        ("DELETE", "/v1/models", "GET"),
+        ("GET", "/v1/decisions/x/final-action", "POST"),
+    ] {
+        match agent.request(method, &server.url(path)).call() {
+            Err(ureq::Error::Status(405, r)) => {
+                assert_eq!(r.header("allow"), Some(allow), "{method} {path}")
+            }
+            other => panic!("{method} {path}: {other:?}"),
+        }
+    }
     assert_eq!(
         send(
             "POST",

@@ -17,10 +17,10 @@ const MAX_PAGE: usize = 500;
 /// The access log, oldest first, a page at a time.
 #[utoipa::path(get, path = "/v1/admin/access", tag = "operations",
     params(
-        ("from" = Option<String>, Query, description = "inclusive: RFC 3339 UTC time or a date"),
-        ("to" = Option<String>, Query, description = "exclusive time, or a date (that whole day included)"),
-        ("cursor" = Option<String>, Query, description = "next_cursor of the previous page"),
-        ("limit" = Option<usize>, Query, description = "page size, 1-500 (default 100)"),
+        ("from" = Option<super::params::TimeParam>, Query, description = "inclusive: RFC 3339 UTC time or a date"),
+        ("to" = Option<super::params::TimeParam>, Query, description = "exclusive time, or a date (that whole day included)"),
+        ("cursor" = Option<super::params::CursorParam>, Query, description = "next_cursor of the previous page"),
+        ("limit" = Option<usize>, Query, minimum = 1, maximum = 500, description = "page size, 1-500 (default 100)"),
     ),
     responses(
         (status = 200, description = "A page of the access log: entries (access_id, at, caller, role, action, target, records, request_id) and next_cursor", content_type = "application/json"),

@@ -14,10 +14,13 @@ use serde_json::value::RawValue;
 use serde_json::Value;
 use utoipa::ToSchema;
 
-#[derive(ToSchema)]
+#[derive(serde::Deserialize, ToSchema)]
+#[serde(deny_unknown_fields)]
 #[allow(dead_code)]
 pub struct BatchRequestDoc {
-    /// Decision requests, each as for POST /v1/decisions.
+    /// Decision requests, each as for POST /v1/decisions (at most `--max-batch-items`, 1,000
+    /// by default). Each is checked on its own: a bad item gets its own problem in the 200.
+    #[schema(max_items = 1000)]
     items: Vec<DecisionRequest>,
 }
 

@@ -207,14 +207,14 @@ pub struct SearchPage {
 #[utoipa::path(get, path = "/v1/decisions", tag = "records",
     params(
         ("application_id" = Option<String>, Query, description = "the lender's application id"),
-        ("from" = Option<String>, Query, description = "inclusive: RFC 3339 UTC time or a date"),
-        ("to" = Option<String>, Query, description = "exclusive time, or a date (that whole day included)"),
-        ("outcome" = Option<String>, Query, description = "approve, refer or decline"),
+        ("from" = Option<super::params::TimeParam>, Query, description = "inclusive: RFC 3339 UTC time or a date"),
+        ("to" = Option<super::params::TimeParam>, Query, description = "exclusive time, or a date (that whole day included)"),
+        ("outcome" = Option<super::params::OutcomeParam>, Query, description = "approve, refer or decline"),
         ("model_id" = Option<String>, Query, description = "model id"),
         ("model_version" = Option<String>, Query, description = "model version"),
-        ("final_action" = Option<String>, Query, description = "pending (referred, none recorded), recorded, approve, decline or withdrawn"),
-        ("cursor" = Option<String>, Query, description = "next_cursor of the previous page"),
-        ("limit" = Option<usize>, Query, description = "page size, 1-500 (default 100)"),
+        ("final_action" = Option<super::params::FinalActionParam>, Query, description = "pending (referred, none recorded), recorded, approve, decline or withdrawn"),
+        ("cursor" = Option<super::params::CursorParam>, Query, description = "next_cursor of the previous page"),
+        ("limit" = Option<usize>, Query, minimum = 1, maximum = 500, description = "page size, 1-500 (default 100)"),
     ),
     responses(
         (status = 200, description = "A page of decisions, oldest first", body = SearchPage),
@@ -280,20 +280,25 @@ pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
 /// Every decision in a range as JSON lines (full records) or CSV (summaries), streamed as read.
 #[utoipa::path(get, path = "/v1/decisions/export", tag = "records",
     params(
-        ("format" = Option<String>, Query, description = "jsonl (default) or csv"),
-        ("from" = Option<String>, Query, description = "inclusive: RFC 3339 UTC time or a date"),
-        ("to" = Option<String>, Query, description = "exclusive time, or a date (that whole day included)"),
+        ("format" = Option<super::params::ExportFormat>, Query, description = "jsonl (default) or csv"),
+        ("from" = Option<super::params::TimeParam>, Query, description = "inclusive: RFC 3339 UTC time or a date"),
+        ("to" = Option<super::params::TimeParam>, Query, description = "exclusive time, or a date (that whole day included)"),
         ("application_id" = Option<String>, Query, description = "the lender's application id"),
-        ("outcome" = Option<String>, Query, description = "approve, refer or decline"),
+        ("outcome" = Option<super::params::OutcomeParam>, Query, description = "approve, refer or decline"),
         ("model_id" = Option<String>, Query, description = "model id"),
         ("model_version" = Option<String>, Query, description = "model version"),
-        ("final_action" = Option<String>, Query, description = "pending (referred, none recorded), recorded, approve, decline or withdrawn"),
+        ("final_action" = Option<super::params::FinalActionParam>, Query, description = "pending (referred, none recorded), recorded, approve, decline or withdrawn"),
     ),
     responses(
-        (status = 200, description = "Records oldest first, streamed", content_type = "application/x-ndjson"),
+        (status = 200, description = "Records oldest first, streamed: JSON lines of full records, or CSV summaries (`format=csv`)", content(
+            (String = "application/x-ndjson"),
+            (String = "text/csv"),
+        )),
         (status = 400, description = "A bad parameter", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "Only review keys may read records", body = Problem, content_type = "application/problem+json"),
+        (status = 429, description = "As many reports and exports as the service runs at once are running; retry after the Retry-After seconds", body = Problem, content_type = "application/problem+json",
+            headers(("Retry-After" = u64, description = "seconds to wait"))),
     ),
     security(("api_key" = [])))]
 pub async fn export(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {

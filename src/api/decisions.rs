@@ -13,14 +13,28 @@ use utoipa::ToSchema;
 pub(super) const DECIDERS: &[Role] = &[Role::Scoring];
 
 /// A decision request (documentation of the body; the server reads it as JSON and checks every
-/// field against the model's schema).
-#[derive(ToSchema)]
+/// field against the model's schema). The patterns say what `decide::envelope` checks: no control
+/// characters (Unicode category Cc).
+#[derive(serde::Deserialize, ToSchema)]
+#[serde(deny_unknown_fields)]
+#[schema(example = json!({"application_id": "FH-2026-000101", "applicant": {"requested_amount": 12000, "annual_income": 85000, "debt_to_income": 14.5, "revolving_utilization": 22, "months_since_oldest_account": 190, "delinquencies_24m": 0, "inquiries_6m": 1, "months_with_employer": 72, "housing": "mortgage", "loan_purpose": "home_improvement"}}))]
 #[allow(dead_code)]
 pub struct DecisionRequest {
-    /// The lender's id for the application, 1-128 characters.
-    #[schema(example = "FH-2026-000101")]
+    /// The lender's id for the application, 1-128 characters, no control characters.
+    #[schema(
+        example = "FH-2026-000101",
+        min_length = 1,
+        max_length = 128,
+        pattern = "^[^\\u0000-\\u001F\\u007F-\\u009F]*$"
+    )]
     application_id: String,
-    /// Optional key for safe retries (recorded with the decision once records exist).
+    /// Optional key for safe retries (recorded with the decision once records exist), 1-128
+    /// characters, no control characters.
+    #[schema(
+        min_length = 1,
+        max_length = 128,
+        pattern = "^[^\\u0000-\\u001F\\u007F-\\u009F]*$"
+    )]
     idempotency_key: Option<String>,
     /// Optional model selector; the champion when absent.
     model: Option<ModelSelectorDoc>,
@@ -29,10 +43,21 @@ pub struct DecisionRequest {
     applicant: Value,
 }
 
-#[derive(ToSchema)]
+#[derive(serde::Deserialize, ToSchema)]
+#[serde(deny_unknown_fields)]
 #[allow(dead_code)]
 pub struct ModelSelectorDoc {
+    #[schema(
+        min_length = 1,
+        max_length = 64,
+        pattern = "^[^\\u0000-\\u001F\\u007F-\\u009F]*$"
+    )]
     id: String,
+    #[schema(
+        min_length = 1,
+        max_length = 64,
+        pattern = "^[^\\u0000-\\u001F\\u007F-\\u009F]*$"
+    )]
     version: Option<String>,
 }
 
@@ -97,7 +122,12 @@ pub(super) fn outcome_label(outcome: &str) -> &'static str {
 /// Decide one application.
 #[utoipa::path(post, path = "/v1/decisions", tag = "decisions", request_body = DecisionRequest,
     responses(
-        (status = 200, description = "The decision: probability, score, outcome, reasons and exact contributions, plus `record` (RecordRef: decision_id, decided_at) once committed to the store. A retry with a recorded idempotency_key and the same body returns the stored bytes with header `x-response-from-record: true`", body = Decision),
+        (status = 200, description = "The decision: probability, score, outcome, reasons and exact contributions, plus `record` (RecordRef: decision_id, decided_at) once committed to the store. A retry with a recorded idempotency_key and the same body returns the stored bytes with header `x-response-from-record: true`", body = Decision,
+            links(
+                ("GetDecision" = (operation_id = "get_decision", parameters(("id" = "$response.body#/record/decision_id")), description = "The decision as recorded")),
+                ("AdverseAction" = (operation_id = "adverse_action", parameters(("id" = "$response.body#/record/decision_id")), description = "Its adverse-action content")),
+                ("FinalAction" = (operation_id = "post_final_action", parameters(("id" = "$response.body#/record/decision_id")), description = "An underwriter's final action on a referral")),
+            )),
         (status = 400, description = "Malformed JSON", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "The key's role may not decide", body = Problem, content_type = "application/problem+json"),

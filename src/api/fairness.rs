@@ -169,14 +169,18 @@ fn upload(r: &mut ReportRequest) -> Result<Vec<membership::Dimension>, Problem> 
 
 /// Build a screening report.
 #[utoipa::path(post, path = "/v1/fairness/reports", tag = "fairness", request_body = ReportRequest,
-    params(("format" = Option<String>, Query, description = "json (default) or html")),
+    params(("format" = Option<super::params::ReportFormat>, Query, description = "json (default) or html")),
     responses(
         (status = 200, description = "The report (JSON), or the same as a printable HTML page with SVG charts. A screening statistic, not a legal finding", content_type = "application/json"),
         (status = 400, description = "Malformed JSON, or a bad time range", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "Only review keys may build reports", body = Problem, content_type = "application/problem+json"),
+        (status = 408, description = "The upload arrived too slowly", body = Problem, content_type = "application/problem+json"),
         (status = 413, description = "Upload larger than the limit", body = Problem, content_type = "application/problem+json"),
+        (status = 415, description = "Content-Type is not application/json", body = Problem, content_type = "application/problem+json"),
         (status = 422, description = "A bad upload (naming the row) or setting", body = Problem, content_type = "application/problem+json"),
+        (status = 429, description = "As many reports and exports as the service runs at once are running; retry after the Retry-After seconds", body = Problem, content_type = "application/problem+json",
+            headers(("Retry-After" = u64, description = "seconds to wait"))),
     ),
     security(("api_key" = [])))]
 pub async fn create_report(

@@ -12,6 +12,7 @@ mod decisions;
 mod fairness;
 mod metrics;
 pub mod openapi;
+mod params;
 pub mod problem;
 mod recording;
 pub mod registry;
@@ -166,11 +167,11 @@ fn request_id(req: &actix_web::dev::ServiceRequest) -> String {
     }
 }
 
-/// A route that answers other methods with a 405 problem.
-fn resource(path: &str, route: actix_web::Route) -> actix_web::Resource {
+/// A route for `method` that answers other methods with a 405 problem and an `Allow` header.
+fn resource(path: &str, method: &'static str, route: actix_web::Route) -> actix_web::Resource {
     web::resource(path)
         .route(route)
-        .default_service(web::to(routes::method_not_allowed))
+        .default_service(routes::method_not_allowed(method))
 }
 
 /// Validates every model and binds the address; the returned server runs once awaited.
@@ -249,28 +250,30 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
                 web::resource("/v1/decisions")
                     .route(web::post().to(decisions::post_decision))
                     .route(web::get().to(compliance::search))
-                    .default_service(web::to(routes::method_not_allowed)),
+                    .default_service(routes::method_not_allowed("GET, POST")),
             )
-            .service(resource("/v1/decisions/batch", web::post().to(batch::post_batch)))
-            .service(resource("/v1/decisions/export", web::get().to(compliance::export)))
-            .service(resource("/v1/decisions/{id}", web::get().to(compliance::get_decision)))
+            .service(resource("/v1/decisions/batch", "POST", web::post().to(batch::post_batch)))
+            .service(resource("/v1/decisions/export", "GET", web::get().to(compliance::export)))
+            .service(resource("/v1/decisions/{id}", "GET", web::get().to(compliance::get_decision)))
             .service(resource(
                 "/v1/decisions/{id}/final-action",
+                "POST",
                 web::post().to(underwriting::post_final_action),
             ))
             .service(resource(
                 "/v1/decisions/{id}/adverse-action",
+                "GET",
                 web::get().to(compliance::adverse_action),
             ))
-            .service(resource("/v1/models", web::get().to(routes::get_models)))
-            .service(resource("/v1/models/{id}", web::get().to(routes::get_model)))
-            .service(resource("/v1/fairness/reports", web::post().to(fairness::create_report)))
-            .service(resource("/v1/admin/reload", web::post().to(routes::reload)))
-            .service(resource("/v1/admin/access", web::get().to(access::get_access)))
-            .service(resource("/health/live", web::get().to(routes::live)))
-            .service(resource("/health/ready", web::get().to(routes::ready)))
-            .service(resource("/metrics", web::get().to(routes::metrics)))
-            .service(resource("/openapi.json", web::get().to(openapi::serve)))
+            .service(resource("/v1/models", "GET", web::get().to(routes::get_models)))
+            .service(resource("/v1/models/{id}", "GET", web::get().to(routes::get_model)))
+            .service(resource("/v1/fairness/reports", "POST", web::post().to(fairness::create_report)))
+            .service(resource("/v1/admin/reload", "POST", web::post().to(routes::reload)))
+            .service(resource("/v1/admin/access", "GET", web::get().to(access::get_access)))
+            .service(resource("/health/live", "GET", web::get().to(routes::live)))
+            .service(resource("/health/ready", "GET", web::get().to(routes::ready)))
+            .service(resource("/metrics", "GET", web::get().to(routes::metrics)))
+            .service(resource("/openapi.json", "GET", web::get().to(openapi::serve)))
             .default_service(web::to(routes::not_found))
     })
     .workers(config.workers.max(1))

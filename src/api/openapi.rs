@@ -14,8 +14,8 @@ use utoipa::{Modify, OpenApi};
         license(name = "Apache-2.0")
     ),
     paths(decisions::post_decision, batch::post_batch, compliance::search, compliance::export, compliance::get_decision, compliance::adverse_action, underwriting::post_final_action, fairness::create_report, routes::get_models, routes::get_model, routes::live, routes::ready, routes::metrics, routes::reload, access::get_access, serve),
-    components(schemas(crate::decide::Decision, super::recording::RecordRef, super::problem::Problem, decisions::DecisionRequest, batch::BatchResponse, compliance::SearchPage, underwriting::FinalActionRequest)),
-    modifiers(&ApiKey),
+    components(schemas(crate::decide::Decision, super::params::TimeParam, super::params::CursorParam, super::params::OutcomeParam, super::params::FinalActionParam, super::params::ExportFormat, super::params::ReportFormat, super::recording::RecordRef, super::problem::Problem, decisions::DecisionRequest, batch::BatchResponse, compliance::SearchPage, underwriting::FinalActionRequest)),
+    modifiers(&ApiKey, &RecordOnDecision),
     tags(
         (name = "decisions", description = "Decide applications; each decision is recorded before it is sent"),
         (name = "records", description = "Recorded decisions for compliance review: look-up, adverse-action content, search, export (review role); final actions on referrals (underwriting role)"),
@@ -45,11 +45,37 @@ impl Modify for ApiKey {
     }
 }
 
+/// A decision as the service answers it carries `record` (its id and time in the store) once
+/// committed: the handler adds it beside the library's `Decision`, so the schema gets it here.
+struct RecordOnDecision;
+
+impl Modify for RecordOnDecision {
+    fn modify(&self, openapi: &mut utoipa::openapi::OpenApi) {
+        use utoipa::openapi::schema::Schema;
+        use utoipa::openapi::{Ref, RefOr};
+        let Some(components) = openapi.components.as_mut() else {
+            return;
+        };
+        if let Some(RefOr::T(Schema::Object(decision))) = components.schemas.get_mut("Decision") {
+            decision.properties.insert(
+                "record".into(),
+                RefOr::Ref(Ref::from_schema_name("RecordRef")),
+            );
+        }
+    }
+}
+
 /// The document as pretty JSON, with a trailing newline (as checked in).
 pub fn document() -> String {
     let mut doc = Document::openapi();
     doc.info.version = crate::VERSION.to_string();
-    format!("{}\n", doc.to_pretty_json().unwrap_or_default())
+    let text = doc.to_pretty_json().unwrap_or_default();
+    // utoipa 5.5 writes a Link object's fields in snake case; OpenAPI 3.1 (4.8.20) spells them
+    // `operationRef`, `operationId` and `requestBody`. No schema here has such a property.
+    let text = (text.replace("\"operation_id\": ", "\"operationId\": "))
+        .replace("\"operation_ref\": ", "\"operationRef\": ")
+        .replace("\"request_body\": ", "\"requestBody\": ");
+    format!("{text}\n")
 }
 
 /// This document.

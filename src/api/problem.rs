@@ -25,6 +25,9 @@ pub struct Problem {
     /// Seconds to wait before trying again, sent as the `Retry-After` header.
     #[serde(skip)]
     pub retry_after: Option<u64>,
+    /// The methods the route takes, sent as the `Allow` header of a 405.
+    #[serde(skip)]
+    pub allow: Option<&'static str>,
 }
 
 impl Problem {
@@ -41,6 +44,7 @@ impl Problem {
             detail: detail.into(),
             errors: Vec::new(),
             retry_after: None,
+            allow: None,
         }
     }
 
@@ -91,13 +95,15 @@ impl Problem {
         )
     }
 
-    pub fn method_not_allowed(method: &str, path: &str) -> Self {
-        Problem::new(
+    pub fn method_not_allowed(method: &str, path: &str, allow: &'static str) -> Self {
+        let mut p = Problem::new(
             StatusCode::METHOD_NOT_ALLOWED,
             "/problems/method-not-allowed",
             "Wrong method for this route",
-            format!("{method} is not allowed on {path}; see /openapi.json"),
-        )
+            format!("{method} is not allowed on {path} (it takes {allow}); see /openapi.json"),
+        );
+        p.allow = Some(allow);
+        p
     }
 
     pub fn unsupported_media_type(got: &str) -> Self {
@@ -380,6 +386,9 @@ impl Problem {
         let mut r = HttpResponse::build(self.status());
         if self.status == 401 {
             r.insert_header(("WWW-Authenticate", "Bearer"));
+        }
+        if let Some(methods) = self.allow {
+            r.insert_header(("Allow", methods));
         }
         if let Some(seconds) = self.retry_after {
             r.insert_header(("Retry-After", seconds.to_string()));

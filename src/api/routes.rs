@@ -104,7 +104,7 @@ fn summary(m: &LoadedModel, champion: bool) -> ModelSummary {
 
 /// The loaded models.
 #[utoipa::path(get, path = "/v1/models", tag = "models",
-    responses((status = 200, body = Vec<ModelSummary>), (status = 401, body = Problem, content_type = "application/problem+json")),
+    responses((status = 200, body = Vec<ModelSummary>), (status = 401, body = Problem, content_type = "application/problem+json"), (status = 403, description = "Only scoring and review keys may list models", body = Problem, content_type = "application/problem+json")),
     security(("api_key" = [])))]
 pub async fn get_models(
     state: web::Data<State>,
@@ -122,7 +122,7 @@ pub async fn get_models(
 
 /// One loaded model by id (the first-listed version when several are loaded).
 #[utoipa::path(get, path = "/v1/models/{id}", tag = "models", params(("id" = String, Path, description = "model id")),
-    responses((status = 200, body = ModelSummary), (status = 401, body = Problem, content_type = "application/problem+json"), (status = 404, body = Problem, content_type = "application/problem+json")),
+    responses((status = 200, body = ModelSummary), (status = 401, body = Problem, content_type = "application/problem+json"), (status = 403, description = "Only scoring and review keys may read models", body = Problem, content_type = "application/problem+json"), (status = 404, body = Problem, content_type = "application/problem+json")),
     security(("api_key" = [])))]
 pub async fn get_model(
     state: web::Data<State>,
@@ -220,8 +220,11 @@ pub async fn reload(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
     }))
 }
 
-pub async fn method_not_allowed(req: HttpRequest) -> HttpResponse {
-    Problem::method_not_allowed(req.method().as_str(), req.path()).response()
+/// The 405 answer of a route that takes only `allow` (RFC 9110 15.5.6: with an `Allow` header).
+pub fn method_not_allowed(allow: &'static str) -> actix_web::Route {
+    web::to(move |req: HttpRequest| async move {
+        Problem::method_not_allowed(req.method().as_str(), req.path(), allow).response()
+    })
 }
 
 pub async fn not_found(req: HttpRequest) -> HttpResponse {

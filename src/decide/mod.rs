@@ -46,6 +46,7 @@ pub struct Decision {
     pub rules_fired: Vec<FiredRule>,
     pub contributions: ContributionReport,
     /// Fields that were missing and what was done about each.
+    #[schema(value_type = Vec<MissingFieldDoc>)]
     pub missing: Vec<MissingField>,
 }
 
@@ -106,11 +107,24 @@ pub struct FieldContribution {
     pub standard_error: Option<f64>,
 }
 
-#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
+#[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct MissingField {
     pub field: String,
     #[serde(flatten)]
     pub treatment: MissingTreatment,
+}
+
+/// A missing field as the JSON shows it: one complete object per treatment (a flattened enum
+/// would be an `allOf` over a `oneOf`, which generated clients cannot type).
+#[derive(Serialize, utoipa::ToSchema)]
+#[serde(tag = "treatment", rename_all = "snake_case")]
+#[schema(as = MissingField)]
+#[allow(dead_code)]
+pub enum MissingFieldDoc {
+    /// Replaced by the artifact's stated value before scoring.
+    Imputed { field: String, value: Value },
+    /// Sent to each tree node's missing side.
+    TreeDefault { field: String },
 }
 
 /// Decides a request envelope (see [`Envelope`]) with this model; a `model` selector in the

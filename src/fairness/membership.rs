@@ -244,7 +244,7 @@ impl Builder {
         if let Some(i) = self.dim.groups.iter().position(|g| g == name) {
             return Ok(i as u16);
         }
-        if name.trim().is_empty() || name.len() > 64 {
+        if name.trim().is_empty() || name.chars().count() > 64 {
             return Err(err(
                 Some(row),
                 "group",

@@ -16,7 +16,7 @@ pub enum FieldValue {
 }
 
 /// How a missing value was handled, echoed in every decision so it is never silent.
-#[derive(Debug, Clone, PartialEq, Serialize, utoipa::ToSchema)]
+#[derive(Debug, Clone, PartialEq, Serialize)]
 #[serde(tag = "treatment", rename_all = "snake_case")]
 pub enum MissingTreatment {
     /// Replaced by the artifact's stated value before scoring.
