@@ -202,6 +202,34 @@ fn bad_report_requests_are_named() {
         report(&server, &json!({"groups": groups}), "", SCORING).0,
         403
     );
+    // Every broken field rule at once (validator 0.20), each naming its field and rule.
+    let (status, _, text) = report(
+        &server,
+        &json!({"groups": groups, "min_group_size": 0, "sum_tolerance": 0.7, "cutoffs": [0.3, 0.2], "refer_without_final_action": "excluded"}),
+        "",
+        REVIEW,
+    );
+    assert_eq!(status, 422, "{text}");
+    let problem: serde_json::Value = serde_json::from_str(&text).unwrap();
+    let named: Vec<(String, String)> = (problem["errors"].as_array().unwrap().iter())
+        .map(|e| {
+            (
+                e["field"].as_str().unwrap().into(),
+                e["rule"].as_str().unwrap().into(),
+            )
+        })
+        .collect();
+    let want = [
+        ("cutoffs", "cutoffs"),
+        ("min_group_size", "range"),
+        ("refer_without_final_action", "refer_final"),
+        ("sum_tolerance", "range"),
+    ];
+    assert_eq!(
+        named,
+        want.map(|(f, r)| (f.to_string(), r.to_string())),
+        "{text}"
+    );
     let (status, _, text) = report(&server, &json!({"groups": {"dimensions": []}}), "", REVIEW);
     assert_eq!(status, 422);
     assert!(text.contains("\"field\":\"groups.dimensions\""), "{text}");

@@ -10,14 +10,18 @@ use crate::fairness::{html, membership, Aggregator, DecisionRow, Refer, Settings
 use crate::features::InputError;
 use actix_web::{web, HttpRequest, HttpResponse};
 use serde::Deserialize;
+use validator::{Validate, ValidationError};
 
 const REVIEWERS: &[Role] = &[Role::Review];
 /// Most cutoffs in one sweep.
 pub const MAX_CUTOFFS: usize = 200;
 
 /// The request body (see the OpenAPI document).
-#[derive(Debug, Deserialize, utoipa::ToSchema)]
+/// The field rules are declared once per field: `validate` checks them (every broken one is
+/// named) and `schema` states the same bounds in the OpenAPI document.
+#[derive(Debug, Deserialize, Validate, utoipa::ToSchema)]
 #[serde(deny_unknown_fields)]
+#[validate(schema(function = "fallback_needs_final", skip_on_field_errors = false))]
 pub struct ReportRequest {
     /// JSON upload: `{"dimensions": [{"name", "rows": [{"application_id", "group"} or
     /// {"application_id", "probabilities": {"G": p}}]}]}`.
@@ -26,6 +30,8 @@ pub struct ReportRequest {
     /// CSV upload instead: `application_id,group` or `application_id,G1,G2,...`.
     pub groups_csv: Option<String>,
     /// Name of the dimension a CSV upload describes (default `group`).
+    #[validate(length(min = 1, max = 64, message = "1 to 64 characters"))]
+    #[schema(min_length = 1, max_length = 64)]
     pub dimension: Option<String>,
     /// Decided at or after (RFC 3339 UTC or a date).
     pub from: Option<String>,
@@ -44,11 +50,68 @@ pub struct ReportRequest {
     /// (default) or `excluded`.
     #[schema(value_type = Option<String>)]
     pub refer_without_final_action: Option<Fallback>,
+    /// Smallest group (effective applications) compared; default 30.
+    #[validate(range(min = 1.0, message = "must be at least 1"))]
+    #[schema(minimum = 1)]
     pub min_group_size: Option<f64>,
+    /// How far a row's probabilities may sum from 1; default 0.001.
+    #[validate(range(min = 0.0, exclusive_max = 0.5, message = "must be from 0 to 0.5"))]
+    #[schema(minimum = 0, exclusive_maximum = 0.5)]
     pub sum_tolerance: Option<f64>,
-    /// Approve cutoffs (probability of default) for the sweep; default 0.02 to 0.30.
+    /// Approve cutoffs (probability of default) for the sweep, increasing, each in (0, 1];
+    /// default 0.02 to 0.30.
     #[serde(default, deserialize_with = "at_most_max_cutoffs")]
+    #[validate(custom(function = "increasing_probabilities"))]
+    #[schema(min_items = 1, max_items = 200)]
     pub cutoffs: Option<Vec<f64>>,
+}
+
+/// 1 to [`MAX_CUTOFFS`] increasing probabilities in (0, 1].
+fn increasing_probabilities(c: &[f64]) -> Result<(), ValidationError> {
+    let fine = !c.is_empty()
+        && c.len() <= MAX_CUTOFFS
+        && c.iter().all(|x| x.is_finite() && *x > 0.0 && *x <= 1.0)
+        && c.windows(2).all(|w| w[0] < w[1]);
+    fine.then_some(()).ok_or_else(|| {
+        ValidationError::new("cutoffs")
+            .with_message(format!("1 to {MAX_CUTOFFS} increasing probabilities in (0, 1]").into())
+    })
+}
+
+/// `refer_without_final_action` says how `refer: final` counts a referral without one.
+fn fallback_needs_final(r: &ReportRequest) -> Result<(), ValidationError> {
+    if r.refer != Some(Refer::Final) && r.refer_without_final_action.is_some() {
+        return Err(
+            ValidationError::new("refer_final").with_message("only with refer: final".into())
+        );
+    }
+    Ok(())
+}
+
+/// Every broken field rule as a 422, fields in name order (a schema-level rule is named by the
+/// field it is about).
+fn rules_broken(e: validator::ValidationErrors) -> Problem {
+    let mut errors: Vec<crate::features::FieldError> = Vec::new();
+    for (field, list) in e.field_errors() {
+        for v in list.iter() {
+            let (field, rule) = match v.code.as_ref() {
+                "refer_final" => ("refer_without_final_action".to_string(), "refer_final"),
+                "cutoffs" => (field.to_string(), "cutoffs"),
+                "range" => (field.to_string(), "range"),
+                "length" => (field.to_string(), "length"),
+                _ => (field.to_string(), "invalid"),
+            };
+            let message =
+                (v.message.as_ref()).map_or_else(|| v.code.to_string(), |m| m.to_string());
+            errors.push(crate::features::FieldError {
+                field,
+                rule,
+                message,
+            });
+        }
+    }
+    errors.sort_by(|a, b| a.field.cmp(&b.field));
+    Problem::invalid(InputError { errors })
 }
 
 /// The cutoff list, refused while it is read once it passes [`MAX_CUTOFFS`] (so a long list
@@ -100,31 +163,10 @@ fn settings(r: &ReportRequest) -> Result<Settings, Problem> {
         },
         ..Settings::default()
     };
-    if s.refer != Refer::Final && r.refer_without_final_action.is_some() {
-        return Err(invalid(
-            "refer_without_final_action",
-            "refer_final",
-            "only with refer: final",
-        ));
-    }
     if let Some(m) = r.min_group_size {
-        if !(m.is_finite() && m >= 1.0) {
-            return Err(invalid("min_group_size", "range", "must be at least 1"));
-        }
         s.min_group_size = m;
     }
     if let Some(c) = &r.cutoffs {
-        if c.is_empty()
-            || c.len() > MAX_CUTOFFS
-            || c.iter().any(|x| !(x.is_finite() && *x > 0.0 && *x <= 1.0))
-            || c.windows(2).any(|w| w[0] >= w[1])
-        {
-            return Err(invalid(
-                "cutoffs",
-                "cutoffs",
-                format!("1 to {MAX_CUTOFFS} increasing probabilities in (0, 1]"),
-            ));
-        }
         s.cutoffs = c.clone();
     }
     Ok(s)
@@ -132,9 +174,6 @@ fn settings(r: &ReportRequest) -> Result<Settings, Problem> {
 
 fn upload(r: &mut ReportRequest) -> Result<Vec<membership::Dimension>, Problem> {
     let tolerance = r.sum_tolerance.unwrap_or(membership::SUM_TOLERANCE);
-    if !(tolerance.is_finite() && (0.0..0.5).contains(&tolerance)) {
-        return Err(invalid("sum_tolerance", "range", "must be from 0 to 0.5"));
-    }
     let named = |e: membership::UploadError| {
         let dim = e.dimension.map(|d| format!("dimensions[{d}]."));
         let at = match (dim, e.row) {
@@ -211,6 +250,7 @@ pub async fn create_report(
         },
     )
     .await?;
+    request.validate().map_err(rules_broken)?;
     let settings = settings(&request)?;
     let get = |name: &str| match name {
         "from" => request.from.as_deref(),
