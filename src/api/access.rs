@@ -10,9 +10,6 @@ use actix_web::{web, HttpRequest, HttpResponse};
 use std::collections::HashMap;
 
 const ADMINS: &[Role] = &[Role::Admin];
-/// Entries per page when `limit` is not given, and at most.
-const DEFAULT_PAGE: usize = 100;
-const MAX_PAGE: usize = 500;
 
 /// The access log, oldest first, a page at a time.
 #[utoipa::path(get, path = "/v1/admin/access", tag = "operations",
@@ -63,18 +60,7 @@ pub async fn get_access(
             Problem::bad_query("cursor", "cursor", "not a cursor this service gave")
         })?),
     };
-    let limit = match params.get("limit") {
-        None => DEFAULT_PAGE,
-        Some(v) => (v.parse::<usize>().ok())
-            .filter(|n| (1..=MAX_PAGE).contains(n))
-            .ok_or_else(|| {
-                Problem::bad_query(
-                    "limit",
-                    "range",
-                    format!("a whole number from 1 to {MAX_PAGE}"),
-                )
-            })?,
-    };
+    let limit = super::compliance::page_size(&params)?;
     let read = store.clone();
     let mut entries = web::block(move || {
         let after = after

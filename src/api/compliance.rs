@@ -147,6 +147,31 @@ pub async fn adverse_action(
 }
 
 /// The filters of a query string; `extra` lists further parameters the route reads itself.
+/// The page size of the records routes: its rule declared once, with the same bounds as the
+/// OpenAPI parameter (`minimum = 1, maximum = 500`).
+#[derive(validator::Validate)]
+struct PageSize {
+    #[validate(range(min = 1, max = crate::records::MAX_PAGE))]
+    limit: usize,
+}
+
+/// `limit` from the query (default [`DEFAULT_PAGE`]), or a 400 naming it.
+pub(super) fn page_size(params: &HashMap<String, String>) -> Result<usize, Problem> {
+    use validator::Validate;
+    let Some(text) = params.get("limit") else {
+        return Ok(DEFAULT_PAGE);
+    };
+    let page = (text.parse().ok()).map(|limit| PageSize { limit });
+    match page {
+        Some(p) if p.validate().is_ok() => Ok(p.limit),
+        _ => Err(Problem::bad_query(
+            "limit",
+            "range",
+            format!("a whole number from 1 to {}", crate::records::MAX_PAGE),
+        )),
+    }
+}
+
 /// Unknown parameters are named in a 400 rather than ignored.
 fn parse_query(
     req: &HttpRequest,
@@ -227,20 +252,7 @@ pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
     // Underwriters search too: `final_action=pending` is their work queue.
     let (store, caller) = store_for(&state, &req, READERS_OF_ONE)?;
     let (query, params) = parse_query(&req, &["limit"])?;
-    let limit = match params.get("limit") {
-        None => DEFAULT_PAGE,
-        Some(v) => v
-            .parse::<usize>()
-            .ok()
-            .filter(|n| (1..=crate::records::MAX_PAGE).contains(n))
-            .ok_or_else(|| {
-                Problem::bad_query(
-                    "limit",
-                    "range",
-                    format!("a whole number from 1 to {}", crate::records::MAX_PAGE),
-                )
-            })?,
-    };
+    let limit = page_size(&params)?;
     let read = store.clone();
     let page = blocking(move || read.search(&query, limit)).await?;
     let entry = access(

@@ -14,6 +14,7 @@ use actix_web::{web, HttpRequest, HttpResponse};
 use serde::Deserialize;
 use serde_json::{json, Value};
 use utoipa::ToSchema;
+use validator::{Validate, ValidationError};
 
 const UNDERWRITERS: &[Role] = &[Role::Underwriting];
 /// Longest note kept with a final action.
@@ -71,7 +72,7 @@ pub struct FinalActionRequest {
     /// The caller's own reference for this request (1 to 128 printable characters), recorded
     /// with the final action. A repeat is recognised by its content: the decision takes one
     /// final action, and the same body again returns it.
-    #[schema(min_length = 1, max_length = 128)]
+    #[schema(min_length = 1, max_length = 128, pattern = "^[!-~]+$")]
     pub idempotency_key: Option<String>,
 }
 
@@ -94,6 +95,32 @@ fn fault(
         rule,
         message: message.into(),
     });
+}
+
+/// [`MAX_NOTE`] and [`MAX_KEY`] as validator takes them.
+const NOTE_CHARS: u64 = MAX_NOTE as u64;
+const KEY_CHARS: u64 = MAX_KEY as u64;
+
+/// The text rules of a final action, declared once with validator (FinalActionRequest's schema
+/// states the same bounds).
+#[derive(Validate)]
+struct TextRules<'a> {
+    #[validate(length(max = NOTE_CHARS))]
+    note: Option<&'a str>,
+    #[validate(length(min = 1, max = KEY_CHARS), custom(function = "graphic_ascii"))]
+    idempotency_key: Option<&'a str>,
+}
+
+/// Printable ASCII without spaces (`!` to `~`).
+fn graphic_ascii(key: &str) -> Result<(), ValidationError> {
+    (key.chars().all(|c| c.is_ascii_graphic()))
+        .then_some(())
+        .ok_or_else(|| ValidationError::new("pattern"))
+}
+
+/// Whether `field` already has a fault.
+fn broken_text(errors: &[FieldError], field: &str) -> bool {
+    errors.iter().any(|e| e.field == field)
 }
 
 /// Reads the body's shape, naming every field at fault. A `null` is the same as absent.
@@ -171,45 +198,48 @@ fn check(body: &Value) -> Result<Checked, InputError> {
             "must be a list of reason codes",
         ),
     }
-    let note = match &body["note"] {
-        Value::Null => String::new(),
-        Value::String(s) if s.chars().count() > MAX_NOTE => {
+    let text = |key: &str| match &body[key] {
+        Value::Null => Ok(None),
+        Value::String(s) => Ok(Some(s.as_str())),
+        _ => Err(()),
+    };
+    let (note, idempotency_key) = (text("note"), text("idempotency_key"));
+    for (name, given) in [("note", &note), ("idempotency_key", &idempotency_key)] {
+        if given.is_err() {
+            fault(&mut errors, name, "type", "must be a string");
+        }
+    }
+    let rules = TextRules {
+        note: note.ok().flatten(),
+        idempotency_key: idempotency_key.ok().flatten(),
+    };
+    if let Err(broken) = rules.validate() {
+        let fields = broken.field_errors();
+        if fields.contains_key("note") {
             fault(
                 &mut errors,
                 "note",
                 "max_length",
                 format!("at most {MAX_NOTE} characters"),
             );
-            String::new()
         }
-        Value::String(s) => s.clone(),
-        _ => {
-            fault(&mut errors, "note", "type", "must be a string");
-            String::new()
-        }
-    };
-    let idempotency_key = match &body["idempotency_key"] {
-        Value::Null => None,
-        Value::String(k)
-            if (1..=MAX_KEY).contains(&k.chars().count())
-                && k.chars().all(|c| c.is_ascii_graphic()) =>
-        {
-            Some(k.clone())
-        }
-        Value::String(_) => {
+        if fields.contains_key("idempotency_key") {
             fault(
                 &mut errors,
                 "idempotency_key",
                 "pattern",
                 format!("1 to {MAX_KEY} printable ASCII characters without spaces"),
             );
-            None
         }
-        _ => {
-            fault(&mut errors, "idempotency_key", "type", "must be a string");
-            None
-        }
+    }
+    let note = if broken_text(&errors, "note") {
+        String::new()
+    } else {
+        rules.note.unwrap_or_default().to_string()
     };
+    let idempotency_key = (!broken_text(&errors, "idempotency_key"))
+        .then(|| rules.idempotency_key.map(str::to_string))
+        .flatten();
     match (action, reasons.len()) {
         (Some(Action::Decline), 0) if !errors.iter().any(|e| e.field.starts_with("reasons")) => {
             fault(
