@@ -8,6 +8,7 @@
 use crate::features::{kind_of, FieldError, InputError};
 use crate::LoadedModel;
 use serde_json::{Map, Value};
+use validator::{Validate, ValidationError};
 
 /// Longest application id accepted.
 pub const MAX_APPLICATION_ID: usize = 128;
@@ -59,37 +60,77 @@ fn error(field: &str, rule: &'static str, message: impl Into<String>) -> FieldEr
     }
 }
 
-/// A non-empty printable string of at most `max` characters, or the problem with it.
+const APPLICATION_ID_CHARS: u64 = MAX_APPLICATION_ID as u64;
+const IDEMPOTENCY_KEY_CHARS: u64 = MAX_IDEMPOTENCY_KEY as u64;
+/// Longest model id or version in a selector.
+pub const MAX_SELECTOR: usize = 64;
+const SELECTOR_CHARS: u64 = MAX_SELECTOR as u64;
+
+/// The envelope's text rules, declared once with validator; the OpenAPI schema of a decision
+/// request states the same bounds. One field is set at a time (see [`text`]).
+#[derive(Default, Validate)]
+struct TextRules<'a> {
+    #[validate(length(min = 1, max = APPLICATION_ID_CHARS), custom(function = "no_control"))]
+    application_id: Option<&'a str>,
+    #[validate(length(min = 1, max = IDEMPOTENCY_KEY_CHARS), custom(function = "no_control"))]
+    idempotency_key: Option<&'a str>,
+    #[validate(length(min = 1, max = SELECTOR_CHARS), custom(function = "no_control"))]
+    id: Option<&'a str>,
+    #[validate(length(min = 1, max = SELECTOR_CHARS), custom(function = "no_control"))]
+    version: Option<&'a str>,
+}
+
+fn no_control(s: &str) -> Result<(), ValidationError> {
+    match s.chars().any(char::is_control) {
+        true => Err(ValidationError::new("control")),
+        false => Ok(()),
+    }
+}
+
+/// A non-empty printable string of at most `max` characters (as [`TextRules`] declares for
+/// `key`), or the problem with it.
 fn text(
     obj: &Map<String, Value>,
     key: &str,
     max: usize,
     errors: &mut Vec<FieldError>,
 ) -> Option<String> {
-    match obj.get(key) {
-        None | Some(Value::Null) => None,
-        Some(Value::String(s)) if s.is_empty() || s.chars().count() > max => {
-            errors.push(error(
-                key,
-                "format",
-                format!("must be 1 to {max} characters"),
-            ));
-            None
-        }
-        Some(Value::String(s)) if s.chars().any(char::is_control) => {
-            errors.push(error(key, "format", "must not contain control characters"));
-            None
-        }
-        Some(Value::String(s)) => Some(s.clone()),
+    let s = match obj.get(key) {
+        None | Some(Value::Null) => return None,
+        Some(Value::String(s)) => s.as_str(),
         Some(v) => {
             errors.push(error(
                 key,
                 "type",
                 format!("expected a string, got {}", kind_of(v)),
             ));
-            None
+            return None;
         }
+    };
+    let mut rules = TextRules::default();
+    match key {
+        "application_id" => rules.application_id = Some(s),
+        "idempotency_key" => rules.idempotency_key = Some(s),
+        "id" => rules.id = Some(s),
+        _ => rules.version = Some(s),
     }
+    let Err(broken) = rules.validate() else {
+        return Some(s.to_string());
+    };
+    let codes: Vec<&str> = (broken.field_errors().values())
+        .flat_map(|list| list.iter().map(|e| e.code.as_ref()))
+        .collect();
+    // One problem per field, the length first.
+    if codes.contains(&"length") {
+        errors.push(error(
+            key,
+            "format",
+            format!("must be 1 to {max} characters"),
+        ));
+    } else {
+        errors.push(error(key, "format", "must not contain control characters"));
+    }
+    None
 }
 
 impl<'a> Envelope<'a> {
@@ -126,8 +167,8 @@ impl<'a> Envelope<'a> {
                     ));
                 }
                 let mut inner = Vec::new();
-                let id = text(m, "id", 64, &mut inner);
-                let version = text(m, "version", 64, &mut inner);
+                let id = text(m, "id", MAX_SELECTOR, &mut inner);
+                let version = text(m, "version", MAX_SELECTOR, &mut inner);
                 errors.extend(inner.into_iter().map(|e| FieldError {
                     field: format!("model.{}", e.field),
                     ..e
