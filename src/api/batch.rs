@@ -131,9 +131,10 @@ impl<'de> Visitor<'de> for Items {
     }
     fn visit_map<A: MapAccess<'de>>(self, mut map: A) -> Result<Self::Value, A::Error> {
         let mut items = None;
-        while let Some(key) = map.next_key::<&str>()? {
+        // Owned: a key may be written with escapes (`"it\u0065ms"`), which cannot be borrowed.
+        while let Some(key) = map.next_key::<String>()? {
             if key != "items" || items.is_some() {
-                return Err(serde::de::Error::unknown_field(key, &["items"]));
+                return Err(serde::de::Error::unknown_field(&key, &["items"]));
             }
             items = Some(map.next_value_seed(ItemList { most: self.most })?);
         }
