@@ -15,6 +15,7 @@ pub mod artifact;
 pub mod cli;
 pub mod decide;
 pub mod evaluate;
+pub mod exit;
 pub mod explain;
 pub mod fairness;
 pub mod features;

@@ -384,5 +384,145 @@ fn the_service_speaks_tls_and_replay_checks_its_certificate() {
     );
 }
 
+/// `plumbline serve` exits with the status of its cause (README, "Exit statuses"): the
+/// operator's own files and flags are bad input (2), the machine and the network are failures
+/// (1), so a supervisor can tell a restart from a page.
+#[test]
+fn serve_exit_statuses_follow_the_cause() {
+    let dir = TempDir::new();
+    let keys = dir.0.join("keys.json");
+    std::fs::write(
+        &keys,
+        r#"[{"name": "x", "role": "scoring", "sha256": "abc"}]"#,
+    )
+    .unwrap();
+    let bad_keys = plumbline(&["serve", "--keys", keys.to_str().unwrap(), "--no-store"]);
+    assert_eq!(bad_keys.status.code(), Some(2), "{}", stderr(&bad_keys));
+    assert!(
+        stderr(&bad_keys).contains("key file entry 0 (x)"),
+        "{}",
+        stderr(&bad_keys)
+    );
+    let bad_limit = plumbline(&["serve", "--no-auth", "--no-store", "--max-reports", "0"]);
+    assert_eq!(bad_limit.status.code(), Some(2), "{}", stderr(&bad_limit));
+    assert!(stderr(&bad_limit).contains("--max-reports must be 1 to 64"));
+    // Nothing listens on port 1: the store is out of reach, not mistyped.
+    let unreachable = plumbline(&[
+        "serve",
+        "--keys",
+        "models/demo-keys.json",
+        "--addr",
+        "127.0.0.1:0",
+        "--store",
+        "postgres://plumbline@127.0.0.1:1/records?sslmode=disable",
+    ]);
+    assert_eq!(
+        unreachable.status.code(),
+        Some(1),
+        "{}",
+        stderr(&unreachable)
+    );
+    assert!(
+        stderr(&unreachable).contains("decision store"),
+        "{}",
+        stderr(&unreachable)
+    );
+    // The port is taken.
+    let taken = std::net::TcpListener::bind("127.0.0.1:0").unwrap();
+    let addr = taken.local_addr().unwrap().to_string();
+    let listen = plumbline(&["serve", "--no-auth", "--no-store", "--addr", &addr]);
+    assert_eq!(listen.status.code(), Some(1), "{}", stderr(&listen));
+    assert!(
+        stderr(&listen).contains(&format!("cannot listen on {addr}")),
+        "{}",
+        stderr(&listen)
+    );
+}
+
+/// A 5xx is logged once, by the request middleware, with its cause under the request's id; the
+/// client gets the problem document without the store's own words.
+#[test]
+fn a_failed_request_is_logged_once_with_its_cause() {
+    use std::io::BufRead;
+    let dir = TempDir::new();
+    let db = dir.0.join("records.sqlite3");
+    let location = format!("sqlite:{}", db.display());
+    let mut child = Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args([
+            "serve",
+            "--keys",
+            "models/demo-keys.json",
+            "--addr",
+            "127.0.0.1:0",
+        ])
+        .args(["--store", &location, "--commit-timeout-ms", "300"])
+        .env("PLUMBLINE_LOG", "info")
+        .stdout(Stdio::null())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut lines = std::io::BufReader::new(child.stderr.take().unwrap()).lines();
+    let base = loop {
+        let line = lines.next().unwrap().unwrap();
+        if let Some(url) = line.strip_prefix("plumbline listening on ") {
+            break url.trim().to_string();
+        }
+    };
+    // Another writer holds the store's lock, so the decision cannot be committed in time.
+    let holder = rusqlite::Connection::open(&db).unwrap();
+    holder.execute_batch("BEGIN IMMEDIATE").unwrap();
+    let body = std::fs::read_to_string("demo-requests/01-approve-typical.json").unwrap();
+    let request: serde_json::Value = serde_json::from_str(&body).unwrap();
+    let response = ureq::post(&format!("{base}/v1/decisions"))
+        .set(
+            "Authorization",
+            &format!("Bearer {}", common::server::SCORING),
+        )
+        .set("x-request-id", "edge-check-503")
+        .send_json(&request["request"]["body"]);
+    let Err(ureq::Error::Status(503, response)) = response else {
+        panic!("expected a 503: {response:?}");
+    };
+    let problem = response.into_string().unwrap();
+    assert!(problem.contains("/problems/not-recorded"), "{problem}");
+    assert!(
+        !problem.contains("locked"),
+        "the store's words reached the client: {problem}"
+    );
+    holder.execute_batch("ROLLBACK").unwrap();
+    // The request line, then the failure line with its cause, both under the request id.
+    let mut failed = Vec::new();
+    for line in lines.by_ref() {
+        let line = line.unwrap();
+        if line.contains("request failed") {
+            failed.push(line.clone());
+        }
+        if line.contains("\"message\":\"request\"") && line.contains("edge-check-503") {
+            break;
+        }
+    }
+    let next = lines.next().unwrap().unwrap();
+    if next.contains("request failed") {
+        failed.push(next);
+    }
+    child.kill().unwrap();
+    let _ = child.wait();
+    failed.extend(
+        lines
+            .map_while(Result::ok)
+            .filter(|l| l.contains("request failed")),
+    );
+    assert_eq!(failed.len(), 1, "{failed:?}");
+    let line = &failed[0];
+    assert!(
+        line.contains("\"request_id\":\"edge-check-503\"") && line.contains("\"status\":503"),
+        "{line}"
+    );
+    assert!(
+        line.contains("not recorded") && line.contains("store"),
+        "the cause: {line}"
+    );
+}
+
 #[path = "edges/memory.rs"]
 mod memory;

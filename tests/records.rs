@@ -21,7 +21,7 @@ fn record(n: usize, key: Option<&str>, decided_at: &str, outcome: &str) -> Recor
         model_sha256: "ab".repeat(32),
         plumbline_version: plumbline::VERSION.into(),
         request_sha256: format!("{n:064x}"),
-        outcome: outcome.into(),
+        outcome: records::Outcome::from_name(outcome).expect("a test outcome"),
         probability: 0.1 + n as f64 / 1e4,
         score: 600 - n as i64,
         // Unicode, escapes and key order must survive byte for byte.
@@ -132,7 +132,7 @@ fn suite(location: &str) {
 
     // Filters: application, outcome, model version, and a half-open time range.
     let q = Query {
-        outcome: Some("decline".into()),
+        outcome: Some(records::Outcome::Decline),
         model_version: Some("0.1.0".into()),
         ..Query::default()
     };
@@ -141,7 +141,7 @@ fn suite(location: &str) {
     assert!(page
         .records
         .iter()
-        .all(|r| r.outcome == "decline" && r.model_version == "0.1.0"));
+        .all(|r| r.outcome == records::Outcome::Decline && r.model_version == "0.1.0"));
     let q = Query {
         from: Some(time(30)),
         to: Some(time(40)),
@@ -277,7 +277,7 @@ fn upgrades_in_place(location: &str) {
         .unwrap()
         .expect("the old record is kept");
     assert_eq!(
-        (old.outcome.as_str(), old.final_action.as_ref()),
+        (old.outcome.name(), old.final_action.as_ref()),
         ("refer", None)
     );
     let action = records::FinalAction {

@@ -5,6 +5,7 @@
 use plumbline::artifact::spec::Population;
 use plumbline::train::build::{train, TrainingSpec};
 use plumbline::train::demo_data::applications_csv;
+use plumbline::train::spec::ModelKind;
 use plumbline::LoadedModel;
 use serde_json::Value;
 use std::process::Command;
@@ -183,7 +184,8 @@ fn a_slope_against_the_stated_risk_direction_is_refused() {
 fn a_draft_spec_is_inferred_and_refused_until_its_texts_are_written() {
     let (csv, _) = applications_csv(3_000, 35);
     let (draft, notes) =
-        plumbline::train::draft::draft(&csv, "defaulted", "draft-model", "logistic").unwrap();
+        plumbline::train::draft::draft(&csv, "defaulted", "draft-model", ModelKind::Logistic)
+            .unwrap();
     assert!(
         notes.iter().any(|n| n.contains("left out application_id")),
         "{notes:?}"

@@ -6,7 +6,7 @@ use serde::Deserialize;
 use sha2::{Digest, Sha256};
 
 /// What a key may do.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, serde::Serialize, clap::ValueEnum)]
 #[serde(rename_all = "snake_case")]
 pub enum Role {
     /// Loan-origination systems: decide, list models.
@@ -46,23 +46,31 @@ pub struct Key {
     digest: [u8; 32],
 }
 
+/// A key file that does not parse, naming the entry at fault.
+#[derive(Debug, thiserror::Error)]
+pub enum KeyFileError {
+    #[error("key file: {0}")]
+    Json(#[from] serde_json::Error),
+    #[error("key file entry {entry} ({name}): sha256 must be 64 hex digits")]
+    Digest { entry: usize, name: String },
+}
+
 /// The keys the service accepts; `None` inside [`Auth`] means auth was turned off on purpose.
 #[derive(Debug, Clone)]
 pub struct Keys(Vec<Key>);
 
 impl Keys {
     /// Parses a key file's JSON; errors name the entry.
-    pub fn from_json(text: &str) -> Result<Keys, String> {
-        let specs: Vec<KeySpec> =
-            serde_json::from_str(text).map_err(|e| format!("key file: {e}"))?;
+    pub fn from_json(text: &str) -> Result<Keys, KeyFileError> {
+        let specs: Vec<KeySpec> = serde_json::from_str(text)?;
         let mut keys = Vec::new();
-        for (i, s) in specs.into_iter().enumerate() {
-            let bytes = hex32(&s.sha256).ok_or_else(|| {
-                format!(
-                    "key file entry {i} ({}): sha256 must be 64 hex digits",
-                    s.name
-                )
-            })?;
+        for (entry, s) in specs.into_iter().enumerate() {
+            let Some(bytes) = hex32(&s.sha256) else {
+                return Err(KeyFileError::Digest {
+                    entry,
+                    name: s.name,
+                });
+            };
             keys.push(Key {
                 name: s.name,
                 role: s.role,

@@ -2,11 +2,12 @@
 //! pool, recorded in one group, and reported one by one; a bad item never fails the others.
 
 use super::body::read_bytes;
-use super::decisions::{decide_value, outcome_label, DecisionRequest, DECIDERS};
+use super::decisions::{decide_value, DecisionRequest, DECIDERS};
 use super::json;
 use super::problem::Problem;
 use super::{recording, State};
 use crate::decide::Decision;
+use crate::policy::Outcome;
 use actix_web::{web, HttpRequest, HttpResponse};
 use serde::de::{DeserializeSeed, Deserializer, MapAccess, SeqAccess, Visitor};
 use serde::Serialize;
@@ -82,7 +83,8 @@ pub async fn post_batch(
     })
     .await
     .map_err(|_| Problem::internal("the batch worker stopped"))??;
-    Ok(json(&batch_response(&state, decided).await?))
+    let request_id = super::request_id_of(&req);
+    Ok(json(&batch_response(&state, decided, &request_id).await?))
 }
 
 /// Each item in order: decided and among the records to write, decided with records off, or
@@ -195,16 +197,19 @@ fn decide_batch(
             decide_value(state, &item).map(|d| (d, item))
         })
         .map(|decided| match decided {
-            Ok((d, item)) if state.recorder.is_some() => {
-                records.push(recording::record_for(
-                    &d.decision,
-                    d.idempotency_key,
-                    &item,
-                    received_at.clone(),
-                    requested_by,
-                ));
-                Slot::Recorded
-            }
+            Ok((d, item)) if state.recorder.is_some() => match recording::record_for(
+                &d.decision,
+                d.idempotency_key,
+                &item,
+                received_at.clone(),
+                requested_by,
+            ) {
+                Ok(record) => {
+                    records.push(record);
+                    Slot::Recorded
+                }
+                Err(p) => Slot::Failed(p),
+            },
             Ok((d, _)) => Slot::Bare(Box::new(d.decision)),
             Err(p) => Slot::Failed(p),
         })
@@ -217,6 +222,7 @@ fn decide_batch(
 async fn batch_response(
     state: &State,
     (slots, records): (Vec<Slot>, Vec<crate::records::Record>),
+    request_id: &str,
 ) -> Result<BatchResponse, Problem> {
     let mut written = match (&state.recorder, records.is_empty()) {
         (Some(recorder), false) => (recorder.record(records).await)
@@ -240,25 +246,24 @@ async fn batch_response(
                 recording::settle(record, outcome)
                     .map(|g| (g.body, g.outcome, (!g.replayed).then_some(model)))
             }
-            Slot::Bare(d) => Ok((
-                serde_json::to_string(&d).unwrap_or_default(),
-                d.outcome.name().to_string(),
-                Some((d.model.id.clone(), d.model.version.clone())),
-            )),
+            Slot::Bare(d) => (serde_json::to_string(&d))
+                .map_err(|e| recording::unwritable(&e))
+                .map(|body| {
+                    let model = (d.model.id.clone(), d.model.version.clone());
+                    (body, d.outcome, Some(model))
+                }),
             Slot::Failed(p) => Err(p),
         };
         response.results.push(match given {
             Ok((body, outcome, counted)) => {
-                match outcome.as_str() {
-                    "approve" => response.approved += 1,
-                    "refer" => response.referred += 1,
-                    _ => response.declined += 1,
+                match outcome {
+                    Outcome::Approve => response.approved += 1,
+                    Outcome::Refer => response.referred += 1,
+                    Outcome::Decline => response.declined += 1,
                 }
                 // New decisions count in the metrics as single ones do; replayed ones do not.
                 if let Some((model, version)) = counted {
-                    state
-                        .metrics
-                        .observe_decision(&model, &version, outcome_label(&outcome));
+                    (state.metrics).observe_decision(&model, &version, outcome.name());
                 }
                 BatchItem {
                     index,
@@ -269,6 +274,11 @@ async fn batch_response(
             }
             Err(problem) => {
                 response.failed += 1;
+                // An item's 5xx travels inside the 200, past the middleware: its cause is
+                // logged here, once.
+                if let (true, Some(cause)) = (problem.status >= 500, &problem.cause) {
+                    tracing::error!(request_id, item = index, status = problem.status, cause = %cause, "batch item failed");
+                }
                 BatchItem {
                     index,
                     status: problem.status,

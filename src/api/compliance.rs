@@ -271,7 +271,7 @@ pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
                 decision_id: r.decision_id.clone(),
                 application_id: r.application_id.clone(),
                 decided_at: r.decided_at.clone(),
-                outcome: r.outcome.clone(),
+                outcome: r.outcome.name().to_string(),
                 probability_of_default: r.probability,
                 score: r.score,
                 model_id: r.model_id.clone(),

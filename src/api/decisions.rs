@@ -6,6 +6,7 @@ use super::body::read_json;
 use super::problem::Problem;
 use super::{json, recording, State};
 use crate::decide::{decide_envelope, Decision, Envelope};
+use crate::policy::Outcome;
 use actix_web::{web, HttpRequest, HttpResponse};
 use serde_json::Value;
 use utoipa::ToSchema;
@@ -67,8 +68,14 @@ pub(super) struct Decided {
     pub idempotency_key: Option<String>,
 }
 
+/// Decides a batch item: its envelope parsed, then as [`decide_parsed`].
 pub(super) fn decide_value(state: &State, request: &Value) -> Result<Decided, Problem> {
     let envelope = Envelope::parse(request).map_err(Problem::invalid)?;
+    decide_parsed(state, &envelope)
+}
+
+/// Decides a parsed request with the model it selects (the champion when it names none).
+pub(super) fn decide_parsed(state: &State, envelope: &Envelope<'_>) -> Result<Decided, Problem> {
     let set = state.registry.current();
     let Some(model) = set.select(envelope.model.as_ref()) else {
         let what = envelope
@@ -88,35 +95,22 @@ pub(super) fn decide_value(state: &State, request: &Value) -> Result<Decided, Pr
         });
         return Err(Problem::invalid(crate::InputError { errors }));
     };
-    let decision = decide_envelope(&model, &envelope).map_err(Problem::invalid)?;
+    let decision = decide_envelope(&model, envelope).map_err(Problem::invalid)?;
     Ok(Decided {
         decision,
-        idempotency_key: envelope.idempotency_key,
+        idempotency_key: envelope.idempotency_key.clone(),
     })
 }
 
 /// Whether the model a request selects explains by enumerating coalitions (milliseconds).
-fn slow_to_explain(state: &State, request: &Value) -> bool {
-    let Ok(envelope) = Envelope::parse(request) else {
-        return false;
-    };
+fn slow_to_explain(state: &State, envelope: &Envelope<'_>) -> bool {
     let set = state.registry.current();
-    set.select(envelope.model.as_ref())
+    (set.select(envelope.model.as_ref()))
         .is_some_and(|m| matches!(m.explainer, crate::explain::Explainer::Shapley(_)))
 }
 
-pub(super) fn observe(state: &State, decision: &Decision, outcome: &str) {
-    let outcome = outcome_label(outcome);
-    (state.metrics).observe_decision(&decision.model.id, &decision.model.version, outcome);
-}
-
-/// The metrics label of an outcome.
-pub(super) fn outcome_label(outcome: &str) -> &'static str {
-    match outcome {
-        "approve" => "approve",
-        "refer" => "refer",
-        _ => "decline",
-    }
+pub(super) fn observe(state: &State, decision: &Decision, outcome: Outcome) {
+    (state.metrics).observe_decision(&decision.model.id, &decision.model.version, outcome.name());
 }
 
 /// Decide one application.
@@ -154,9 +148,12 @@ pub async fn post_decision(
         state.limits.body_timeout,
     )
     .await?;
+    // Parsed once, here; a bad envelope is refused before the records are asked anything.
+    let envelope = Envelope::parse(&request).map_err(Problem::invalid)?;
     // A recorded key answers before anything is decided: a retry gets the stored response even
     // if its model has since been unloaded, and a different body is a conflict first.
-    if let Some(given) = recording::earlier(&state, &caller.name, &request).await? {
+    let key = envelope.idempotency_key.as_deref();
+    if let Some(given) = recording::earlier(&state, &caller.name, key, &request).await? {
         return Ok(HttpResponse::Ok()
             .insert_header(("x-response-from-record", "true"))
             .content_type("application/json")
@@ -167,16 +164,16 @@ pub async fn post_decision(
     let Decided {
         decision,
         idempotency_key,
-    } = if slow_to_explain(&state, &request) {
-        let (s, r) = (state.clone(), request.clone());
-        web::block(move || decide_value(&s, &r))
+    } = if slow_to_explain(&state, &envelope) {
+        let (s, e) = (state.clone(), envelope.into_owned());
+        web::block(move || decide_parsed(&s, &e))
             .await
             .map_err(|_| Problem::internal("the decision's worker thread failed"))??
     } else {
-        decide_value(&state, &request)?
+        decide_parsed(&state, &envelope)?
     };
     let Some(recorder) = &state.recorder else {
-        observe(&state, &decision, decision.outcome.name());
+        observe(&state, &decision, decision.outcome);
         return Ok(json(&decision));
     };
     let record = recording::record_for(
@@ -185,7 +182,7 @@ pub async fn post_decision(
         &request,
         received_at,
         &caller.name,
-    );
+    )?;
     let mut written =
         (recorder.record(vec![record]).await).map_err(|e| Problem::not_recorded(&e))?;
     let (record, outcome) = written
@@ -193,7 +190,7 @@ pub async fn post_decision(
         .ok_or_else(|| Problem::internal("the store gave no outcome"))?;
     let given = recording::settle(record, outcome)?;
     if !given.replayed {
-        observe(&state, &decision, &given.outcome);
+        observe(&state, &decision, given.outcome);
     }
     let mut response = HttpResponse::Ok();
     if given.replayed {

@@ -289,7 +289,7 @@ pub async fn create_report(
         let decisions = read.export(&query, &mut |r| {
             agg.add(&DecisionRow {
                 application_id: &r.application_id,
-                outcome: &r.outcome,
+                outcome: r.outcome.name(),
                 final_action: r.final_action.as_ref().map(|f| f.action.as_str()),
                 probability: r.probability,
                 score: r.score as f64,

@@ -17,6 +17,7 @@ pub mod problem;
 mod recording;
 pub mod registry;
 mod routes;
+mod startup;
 mod underwriting;
 
 use actix_web::dev::{ServerHandle, Service};
@@ -28,6 +29,7 @@ use std::time::{Duration, Instant};
 
 pub use auth::{Auth, Keys, Role};
 pub use registry::Registry;
+pub use startup::StartError;
 
 /// Request limits. Defaults: 64 KiB per decision, 8 MiB and 1,000 items per batch, 64 MiB per
 /// group-membership upload (60 s to arrive), 5 s for a body to arrive, 5 s for a client to send
@@ -116,11 +118,17 @@ impl State {
     }
 }
 
-/// A 200 with `value` as JSON.
+/// A 200 with `value` as JSON; a 500 problem (its cause logged) if `value` cannot be written,
+/// never an empty 200.
 fn json<T: serde::Serialize>(value: &T) -> actix_web::HttpResponse {
-    actix_web::HttpResponse::Ok()
-        .content_type("application/json")
-        .body(serde_json::to_string(value).unwrap_or_default())
+    match serde_json::to_string(value) {
+        Ok(body) => actix_web::HttpResponse::Ok()
+            .content_type("application/json")
+            .body(body),
+        Err(e) => problem::Problem::internal("the response could not be written")
+            .caused_by(format_args!("serialising a response failed: {e}"))
+            .response(),
+    }
 }
 
 /// A started server: where it listens and how to stop it.
@@ -143,9 +151,6 @@ pub fn request_id_of(req: &actix_web::HttpRequest) -> String {
     use actix_web::HttpMessage;
     (req.extensions().get::<RequestId>()).map_or_else(String::new, |r| r.0.clone())
 }
-
-/// How [`start`] words a failure to bind, so callers can tell it from a bad model.
-pub const LISTEN_FAILED: &str = "cannot listen on";
 
 /// A caller's `x-request-id` if it is short and printable, else a new one.
 fn request_id(req: &actix_web::dev::ServiceRequest) -> String {
@@ -175,10 +180,10 @@ fn resource(path: &str, method: &'static str, route: actix_web::Route) -> actix_
 }
 
 /// Validates every model and binds the address; the returned server runs once awaited.
-pub fn start(config: ServeConfig) -> Result<Running, String> {
+pub fn start(config: ServeConfig) -> Result<Running, StartError> {
     let registry = Registry::new(config.models.clone())?;
     let tls = match &config.tls {
-        Some((cert, key)) => Some(crate::tls::server_config(cert, key)?),
+        Some((cert, key)) => Some(crate::tls::server_config(cert, key).map_err(StartError::Tls)?),
         None => None,
     };
     let recorder = match &config.store {
@@ -186,16 +191,15 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
             // On its own thread: the PostgreSQL client blocks on a runtime of its own, which
             // cannot start inside the caller's async context.
             let at = location.clone();
+            let redacted = || crate::records::redacted(location);
             let store = std::thread::spawn(move || crate::records::open(&at))
                 .join()
-                .map_err(|_| {
-                    format!(
-                        "decision store {}: opening it panicked",
-                        crate::records::redacted(location)
-                    )
+                .map_err(|_| StartError::StorePanicked {
+                    location: redacted(),
                 })?
-                .map_err(|e| {
-                    format!("decision store {}: {e}", crate::records::redacted(location))
+                .map_err(|source| StartError::Store {
+                    location: redacted(),
+                    source,
                 })?;
             tracing::info!(store = %store.describe(), "recording decisions");
             Some(crate::records::Recorder::start(
@@ -240,6 +244,12 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
                         None => (String::new(), "none"),
                     };
                     tracing::info!(request_id = %id, method = %method, route = %route, status, micros = (seconds * 1e6) as u64, caller = %caller, role, "request");
+                    // Every 5xx once, with its cause; the client saw only the problem document.
+                    if status >= 500 {
+                        let cause = res.response().extensions().get::<problem::Cause>().map(|c| c.0.clone());
+                        let cause = cause.as_deref().unwrap_or("no cause was given");
+                        tracing::error!(request_id = %id, method = %method, route = %route, status, cause, "request failed");
+                    }
                     if let Ok(v) = actix_web::http::header::HeaderValue::from_str(&id) {
                         res.headers_mut().insert(actix_web::http::header::HeaderName::from_static("x-request-id"), v);
                     }
@@ -287,7 +297,10 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
         Some(tls) => server.bind_rustls_0_23(config.addr, tls),
         None => server.bind(config.addr),
     }
-    .map_err(|e| format!("{LISTEN_FAILED} {}: {e}", config.addr))?;
+    .map_err(|source| StartError::Listen {
+        addr: config.addr,
+        source,
+    })?;
     let addr = server.addrs().first().copied().unwrap_or(config.addr);
     let server = server.run();
     Ok(Running {
@@ -300,7 +313,7 @@ pub fn start(config: ServeConfig) -> Result<Running, String> {
 
 /// Starts the service and runs it until SIGINT / SIGTERM (then stops accepting, finishes
 /// in-flight requests and exits).
-pub fn serve(config: ServeConfig) -> Result<(), String> {
+pub fn serve(config: ServeConfig) -> Result<(), StartError> {
     let system = actix_web::rt::System::new();
     system.block_on(async move {
         let no_auth = config.auth.0.is_none();
@@ -312,6 +325,6 @@ pub fn serve(config: ServeConfig) -> Result<(), String> {
         }
         tracing::info!(addr = %running.addr, "listening");
         eprintln!("plumbline listening on {}://{}", running.scheme, running.addr);
-        running.server.await.map_err(|e| e.to_string())
+        running.server.await.map_err(StartError::Run)
     })
 }

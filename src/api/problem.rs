@@ -28,7 +28,20 @@ pub struct Problem {
     /// The methods the route takes, sent as the `Allow` header of a 405.
     #[serde(skip)]
     pub allow: Option<&'static str>,
+    /// What went wrong inside, for the service log only (never sent): the request middleware
+    /// logs it once, with the request id, for every 5xx.
+    #[serde(skip)]
+    pub cause: Option<String>,
 }
+
+/// The cause of a 5xx, carried on the response from [`Problem::response`] to the request
+/// middleware, which logs it.
+#[derive(Debug, Clone)]
+pub struct Cause(pub String);
+
+/// Sent if a problem document itself could not be written (it cannot: every field is text or a
+/// number), so that even then the client gets a problem and not an empty body.
+const UNWRITABLE: &str = r#"{"type":"/problems/internal","title":"The service failed","status":500,"detail":"the problem document could not be written; the service log holds the cause under this request's id"}"#;
 
 impl Problem {
     fn new(
@@ -45,7 +58,14 @@ impl Problem {
             errors: Vec::new(),
             retry_after: None,
             allow: None,
+            cause: None,
         }
+    }
+
+    /// The same problem with `cause` for the log.
+    pub fn caused_by(mut self, cause: impl std::fmt::Display) -> Self {
+        self.cause = Some(cause.to_string());
+        self
     }
 
     fn with(mut self, field: &str, rule: &'static str, message: impl Into<String>) -> Self {
@@ -197,6 +217,7 @@ impl Problem {
             "The service failed",
             detail,
         )
+        .caused_by(detail)
     }
 
     pub fn reload_failed(detail: String) -> Self {
@@ -218,17 +239,15 @@ impl Problem {
         .with("idempotency_key", "same_request", "a retry must repeat the original request exactly")
     }
 
-    /// The decision could not be committed, so it is not given (nothing unrecorded leaves).
-    /// A decision whose record was not committed, so it is not given. The store's own words go
-    /// to the log (with the request id), never to the caller.
+    /// A decision whose record was not committed, so it is not given (nothing unrecorded
+    /// leaves). The store's own words go to the log (with the request id), never to the caller.
     pub fn not_recorded(e: &crate::records::StoreError) -> Self {
         use crate::records::StoreError as E;
-        tracing::error!(error = %e, "a decision was not recorded, so it was not given");
         let why = match e {
             E::Timeout(_) => "the decision store did not commit it in time",
             E::Unavailable(_) => "the decision store cannot be reached",
             E::Failed(_) => "the decision store refused the record",
-            E::Unknown(_) => return Problem::record_outcome_unknown(),
+            E::Unknown(_) => return Problem::record_outcome_unknown().caused_by(e),
         };
         Problem::new(
             StatusCode::SERVICE_UNAVAILABLE,
@@ -236,6 +255,7 @@ impl Problem {
             "The decision could not be recorded, so it was not given",
             format!("{why}; nothing of it is in the store; retry (with the same idempotency_key, if one was sent)"),
         )
+        .caused_by(format_args!("a decision was not recorded, so it was not given: {e}"))
     }
 
     /// The one answer that cannot say whether a decision was recorded: the database connection
@@ -261,13 +281,13 @@ impl Problem {
 
     /// The store failed a read or a final action. Its own words go to the log only.
     pub fn store_failed(e: &crate::records::StoreError) -> Self {
-        tracing::error!(error = %e, "the decision store failed");
         Problem::new(
             StatusCode::SERVICE_UNAVAILABLE,
             "/problems/store-unavailable",
             "The decision records cannot be read or written just now",
             "the decision store did not answer as expected; the service log holds the cause under this request's id",
         )
+        .caused_by(format_args!("the decision store failed: {e}"))
     }
 
     pub fn records_off() -> Self {
@@ -311,7 +331,8 @@ impl Problem {
         )
     }
 
-    pub fn not_a_referral(id: &str, outcome: &str) -> Self {
+    pub fn not_a_referral(id: &str, outcome: crate::policy::Outcome) -> Self {
+        use crate::policy::Outcome;
         Problem::new(
             StatusCode::CONFLICT,
             "/problems/not-a-referral",
@@ -319,9 +340,9 @@ impl Problem {
             format!(
                 "decision {id} was {}, which is itself the action taken",
                 match outcome {
-                    "approve" => "an approval",
-                    "decline" => "a decline",
-                    other => other,
+                    Outcome::Approve => "an approval",
+                    Outcome::Decline => "a decline",
+                    Outcome::Refer => "a referral",
                 }
             ),
         )
@@ -393,8 +414,23 @@ impl Problem {
         if let Some(seconds) = self.retry_after {
             r.insert_header(("Retry-After", seconds.to_string()));
         }
-        r.content_type("application/problem+json")
-            .body(serde_json::to_string(self).unwrap_or_default())
+        let body = serde_json::to_string(self);
+        let cause = match (&body, &self.cause) {
+            (Err(e), _) => Some(format!("problem document not written ({e}): {self}")),
+            (Ok(_), Some(c)) => Some(c.clone()),
+            (Ok(_), None) if self.status >= 500 => Some(self.detail.clone()),
+            (Ok(_), None) => None,
+        };
+        let mut response = match body {
+            Ok(body) => r.content_type("application/problem+json").body(body),
+            Err(_) => HttpResponse::InternalServerError()
+                .content_type("application/problem+json")
+                .body(UNWRITABLE),
+        };
+        if let Some(cause) = cause {
+            response.extensions_mut().insert(Cause(cause));
+        }
+        response
     }
 }
 

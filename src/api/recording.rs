@@ -24,14 +24,15 @@ struct Recorded<'a> {
     record: RecordRef<'a>,
 }
 
-/// A decision made from `request`, as a record ready to write (response bytes included).
+/// A decision made from `request`, as a record ready to write (response bytes included). A
+/// response that cannot be written fails the decision (500): a record never holds empty text.
 pub fn record_for(
     decision: &Decision,
     idempotency_key: Option<String>,
     request: &Value,
     received_at: String,
     requested_by: &str,
-) -> Record {
+) -> Result<Record, Problem> {
     let canonical = crate::artifact::canonical_json(request);
     let decision_id = ids::new_decision_id();
     let decided_at = crate::records::now();
@@ -42,8 +43,8 @@ pub fn record_for(
             decided_at: &decided_at,
         },
     })
-    .unwrap_or_default();
-    Record {
+    .map_err(|e| unwritable(&e))?;
+    Ok(Record {
         decision_id,
         application_id: decision.application_id.clone(),
         idempotency_key,
@@ -53,29 +54,36 @@ pub fn record_for(
         model_version: decision.model.version.clone(),
         model_sha256: decision.model.sha256.clone(),
         plumbline_version: crate::VERSION.to_string(),
-        request_sha256: crate::artifact::sha256_hex(&canonical),
-        outcome: decision.outcome.name().to_string(),
+        request_sha256: crate::artifact::sha256_hex(canonical.as_bytes()),
+        outcome: decision.outcome,
         probability: decision.probability_of_default,
         score: decision.score,
-        request: String::from_utf8(canonical).unwrap_or_default(),
+        request: canonical,
         response,
         requested_by: requested_by.to_string(),
         final_action: None,
-    }
+    })
 }
 
-/// The stored response for a request whose idempotency key `requested_by` already used (`None`
-/// when it has not, or the service keeps no records); a 409 when that caller used the key for
-/// another body. Keys are the caller's own: another caller's never match.
+/// A decision whose response could not be written: refused, never recorded half-written.
+pub fn unwritable(e: &serde_json::Error) -> Problem {
+    Problem::internal(
+        "the decision's response could not be written, so it was neither recorded nor given",
+    )
+    .caused_by(format_args!("serialising a decision failed: {e}"))
+}
+
+/// The stored response for a request whose idempotency key (`key`, as its parsed envelope
+/// holds it) `requested_by` already used (`None` when it has not, or the service keeps no
+/// records); a 409 when that caller used the key for another body. Keys are the caller's own:
+/// another caller's never match.
 pub async fn earlier(
     state: &super::State,
     requested_by: &str,
+    key: Option<&str>,
     request: &Value,
 ) -> Result<Option<String>, Problem> {
-    let (Some(recorder), Some(key)) = (
-        &state.recorder,
-        request.get("idempotency_key").and_then(Value::as_str),
-    ) else {
+    let (Some(recorder), Some(key)) = (&state.recorder, key) else {
         return Ok(None);
     };
     let (store, key) = (recorder.store().clone(), key.to_string());
@@ -87,7 +95,7 @@ pub async fn earlier(
     let Some(existing) = found else {
         return Ok(None);
     };
-    let digest = crate::artifact::sha256_hex(&crate::artifact::canonical_json(request));
+    let digest = crate::artifact::sha256_hex(crate::artifact::canonical_json(request).as_bytes());
     if existing.request_sha256 == digest {
         Ok(Some(existing.response))
     } else {
@@ -101,7 +109,7 @@ pub async fn earlier(
 /// What is sent for a written record.
 pub struct Given {
     pub body: String,
-    pub outcome: String,
+    pub outcome: crate::records::Outcome,
     /// The stored response of an earlier identical request (nothing new was written).
     pub replayed: bool,
 }

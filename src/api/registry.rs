@@ -6,6 +6,24 @@ use crate::LoadedModel;
 use std::path::PathBuf;
 use std::sync::{Arc, RwLock};
 
+/// Why a set of model files does not load; the current set stays in service on a reload.
+#[derive(Debug, thiserror::Error)]
+pub enum ModelSetError {
+    #[error("no model files given")]
+    NoModels,
+    #[error("model {}: {source}", path.display())]
+    Load {
+        path: PathBuf,
+        source: crate::ArtifactError,
+    },
+    #[error("model {}: {model_id} version {version} is loaded twice", path.display())]
+    LoadedTwice {
+        path: PathBuf,
+        model_id: String,
+        version: String,
+    },
+}
+
 /// An immutable set of loaded models.
 #[derive(Debug)]
 pub struct ModelSet {
@@ -16,23 +34,25 @@ pub struct ModelSet {
 
 impl ModelSet {
     /// Loads and validates every file; any failure names the file and the JSON path.
-    pub fn load(paths: &[PathBuf]) -> Result<ModelSet, String> {
+    pub fn load(paths: &[PathBuf]) -> Result<ModelSet, ModelSetError> {
         if paths.is_empty() {
-            return Err("no model files given".into());
+            return Err(ModelSetError::NoModels);
         }
         let mut models: Vec<Arc<LoadedModel>> = Vec::new();
         for p in paths {
-            let m = LoadedModel::from_path(p).map_err(|e| format!("model {}: {e}", p.display()))?;
+            let m = LoadedModel::from_path(p).map_err(|source| ModelSetError::Load {
+                path: p.clone(),
+                source,
+            })?;
             if models.iter().any(|x| {
                 x.identity.model_id == m.identity.model_id
                     && x.identity.version == m.identity.version
             }) {
-                return Err(format!(
-                    "model {}: {} version {} is loaded twice",
-                    p.display(),
-                    m.identity.model_id,
-                    m.identity.version
-                ));
+                return Err(ModelSetError::LoadedTwice {
+                    path: p.clone(),
+                    model_id: m.identity.model_id.clone(),
+                    version: m.identity.version.clone(),
+                });
             }
             models.push(Arc::new(m));
         }
@@ -60,7 +80,7 @@ pub struct Registry {
 }
 
 impl Registry {
-    pub fn new(paths: Vec<PathBuf>) -> Result<Registry, String> {
+    pub fn new(paths: Vec<PathBuf>) -> Result<Registry, ModelSetError> {
         let set = ModelSet::load(&paths)?;
         Ok(Registry {
             reloading: std::sync::Mutex::new(()),
@@ -77,7 +97,7 @@ impl Registry {
     }
 
     /// Loads the files again; on success swaps the new set in, on failure keeps the old one.
-    pub fn reload(&self) -> Result<Arc<ModelSet>, String> {
+    pub fn reload(&self) -> Result<Arc<ModelSet>, ModelSetError> {
         // One reload at a time: two racing would each validate, and the slower could swap in
         // files older than the faster one read.
         let _one = self.reloading.lock().unwrap_or_else(|e| e.into_inner());

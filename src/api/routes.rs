@@ -172,8 +172,8 @@ pub async fn ready(state: web::Data<State>) -> Result<HttpResponse, Problem> {
             .await
             .map_err(|_| Problem::internal("the store worker stopped"))?
             .map_err(|e| {
-                tracing::warn!(error = %e, "readiness: the store cannot take writes");
                 Problem::not_ready("the decision store cannot take writes")
+                    .caused_by(format_args!("readiness: the store cannot take writes: {e}"))
             })?;
     }
     Ok(json(&Health {
@@ -209,7 +209,7 @@ pub struct Reloaded {
     security(("api_key" = [])))]
 pub async fn reload(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
     state.admit(&req, ADMINS)?;
-    let set = state.registry.reload().map_err(Problem::reload_failed)?;
+    let set = (state.registry.reload()).map_err(|e| Problem::reload_failed(e.to_string()))?;
     tracing::info!(models = set.models.len(), "models reloaded");
     Ok(json(&Reloaded {
         models: set

@@ -293,9 +293,10 @@ fn reasons_of(model: &LoadedModel, codes: &[String]) -> Result<Vec<GivenReason>,
             .filter(|rule| Some(rule.reason) == table)
             .map(|rule| rule.action)
             .collect();
-        let source = match table {
-            Some(_) if by_field => "model",
-            Some(_) if rules.contains(&RuleAction::Decline) => "rule",
+        let review = model.review_reasons.iter().find(|r| &r.code == code);
+        let (source, reason) = match table {
+            Some(r) if by_field => ("model", &model.reasons[r]),
+            Some(r) if rules.contains(&RuleAction::Decline) => ("rule", &model.reasons[r]),
             Some(_) => {
                 fault(
                     &mut errors,
@@ -305,24 +306,22 @@ fn reasons_of(model: &LoadedModel, codes: &[String]) -> Result<Vec<GivenReason>,
                 );
                 continue;
             }
-            None if model.review_reasons.iter().any(|r| &r.code == code) => "review",
-            None => {
-                fault(
-                    &mut errors,
-                    &at,
-                    "reason_table",
-                    format!("{code} is not in the model's reason table or its review reasons"),
-                );
-                continue;
-            }
+            None => match review {
+                Some(r) => ("review", r),
+                None => {
+                    fault(
+                        &mut errors,
+                        &at,
+                        "reason_table",
+                        format!("{code} is not in the model's reason table or its review reasons"),
+                    );
+                    continue;
+                }
+            },
         };
-        let text = (model.reasons.reasons.iter().chain(&model.review_reasons))
-            .find(|r| &r.code == code)
-            .map(|r| r.text.clone())
-            .unwrap_or_default();
         given.push(GivenReason {
             code: code.clone(),
-            text,
+            text: reason.text.clone(),
             source: source.into(),
         });
     }
@@ -370,8 +369,8 @@ pub async fn post_final_action(
     let request = check(&body).map_err(Problem::invalid)?;
     let id = id.into_inner();
     let record = look_up(store.clone(), id.clone()).await?;
-    if record.outcome != "refer" {
-        return Err(Problem::not_a_referral(&id, &record.outcome));
+    if record.outcome != crate::records::Outcome::Refer {
+        return Err(Problem::not_a_referral(&id, record.outcome));
     }
     // A decline's reasons come from the decision's own model; an approval or a withdrawal
     // needs none, so it can be recorded after that model was unloaded.
@@ -395,7 +394,9 @@ pub async fn post_final_action(
         decided_by,
         decided_at: crate::records::now(),
         idempotency_key: request.idempotency_key,
-        body_sha256: crate::artifact::sha256_hex(&crate::artifact::canonical_json(&content)),
+        body_sha256: crate::artifact::sha256_hex(
+            crate::artifact::canonical_json(&content).as_bytes(),
+        ),
     };
     let to_write = action.clone();
     let written = web::block(move || store.insert_final_action(&to_write))

@@ -197,7 +197,7 @@ mod tests {
         let value: serde_json::Value = serde_json::from_str(text).unwrap();
         assert_eq!(
             canonicalize(text.as_bytes()).unwrap(),
-            super::super::canonical_json(&value)
+            super::super::canonical_json(&value).into_bytes()
         );
     }
 

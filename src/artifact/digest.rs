@@ -7,45 +7,47 @@
 use serde_json::Value;
 use sha2::{Digest, Sha256};
 
-pub fn canonical_json(value: &Value) -> Vec<u8> {
-    let mut out = Vec::new();
+/// The canonical text of `value` (text by type, so a record's request can never be empty
+/// beside a real digest).
+pub fn canonical_json(value: &Value) -> String {
+    let mut out = String::new();
     write(value, &mut out);
     out
 }
 
-fn write(value: &Value, out: &mut Vec<u8>) {
+fn write(value: &Value, out: &mut String) {
     match value {
         Value::Object(map) => {
             let mut keys: Vec<&String> = map.keys().collect();
             keys.sort();
-            out.push(b'{');
+            out.push('{');
             for (i, k) in keys.into_iter().enumerate() {
                 if i > 0 {
-                    out.push(b',');
+                    out.push(',');
                 }
                 write_string(k, out);
-                out.push(b':');
+                out.push(':');
                 write(&map[k], out);
             }
-            out.push(b'}');
+            out.push('}');
         }
         Value::Array(items) => {
-            out.push(b'[');
+            out.push('[');
             for (i, v) in items.iter().enumerate() {
                 if i > 0 {
-                    out.push(b',');
+                    out.push(',');
                 }
                 write(v, out);
             }
-            out.push(b']');
+            out.push(']');
         }
         Value::String(s) => write_string(s, out),
-        other => out.extend_from_slice(other.to_string().as_bytes()),
+        other => out.push_str(&other.to_string()),
     }
 }
 
-fn write_string(s: &str, out: &mut Vec<u8>) {
-    out.extend_from_slice(Value::String(s.to_string()).to_string().as_bytes());
+fn write_string(s: &str, out: &mut String) {
+    out.push_str(&Value::String(s.to_string()).to_string());
 }
 
 pub fn sha256_hex(bytes: &[u8]) -> String {
@@ -66,7 +68,7 @@ mod tests {
         let b: Value = serde_json::from_str(r#"{"a":{"x":null,"y":"x"},"b":[1,2.5]}"#).unwrap();
         assert_eq!(canonical_json(&a), canonical_json(&b));
         assert_eq!(
-            String::from_utf8(canonical_json(&a)).unwrap(),
+            canonical_json(&a),
             r#"{"a":{"x":null,"y":"x"},"b":[1,2.5]}"#
         );
     }

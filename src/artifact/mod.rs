@@ -95,7 +95,7 @@ impl LoadedModel {
 
     /// Digests and validates an already-parsed artifact.
     pub fn from_value(value: &serde_json::Value) -> Result<Self, ArtifactError> {
-        Self::from_slice(&canonical_json(value))
+        Self::from_slice(canonical_json(value).as_bytes())
     }
 
     /// Number of encoded model columns.

@@ -281,11 +281,24 @@ pub struct ReferenceSpec {
 }
 
 /// The two example methods of Regulation B, Official Interpretation comment 9(b)(2)-5.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, utoipa::ToSchema)]
+#[derive(
+    Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, utoipa::ToSchema, clap::ValueEnum,
+)]
 #[serde(rename_all = "snake_case")]
+#[value(rename_all = "snake_case")]
 pub enum Population {
     AllApplicants,
     NearApproveCutoff,
+}
+
+impl Population {
+    /// The name an artifact and `--reference` use.
+    pub fn name(self) -> &'static str {
+        match self {
+            Population::AllApplicants => "all_applicants",
+            Population::NearApproveCutoff => "near_approve_cutoff",
+        }
+    }
 }
 
 #[derive(Debug, Clone, Serialize, Deserialize)]

@@ -239,7 +239,7 @@ fn text(model: &LoadedModel) -> String {
             ),
         };
         let reason = f.reason.map_or("policy only".to_string(), |r| {
-            format!("reason {}", model.reasons.reasons[r].code)
+            format!("reason {}", model.reasons[r].code)
         });
         let unit = if f.unit.is_empty() {
             String::new()
@@ -313,8 +313,8 @@ fn text(model: &LoadedModel) -> String {
         let _ = writeln!(
             s,
             "  rule {}: {} {} {} -> {}",
-            model.reasons.reasons[r.reason].code,
-            model.schema.fields[r.field].name,
+            model.reasons[r.reason].code,
+            model.schema[r.field].name,
             json_name(&r.test),
             value.map_or(String::new(), |v| v.to_string()),
             json_name(&r.action)
@@ -354,7 +354,7 @@ fn summary(model: &LoadedModel) -> serde_json::Value {
         "fields": model.schema.fields.iter().map(|f| json!({
             "name": f.name, "kind": f.ty.name(), "unit": f.unit, "min": f.min, "max": f.max,
             "missing": missing_text(&f.missing), "scored": f.scored,
-            "reason": f.reason.map(|r| model.reasons.reasons[r].code.clone()),
+            "reason": f.reason.map(|r| model.reasons[r].code.clone()),
             "columns": model.schema.columns[f.columns.clone()].iter().map(|c| c.name.clone()).collect::<Vec<_>>(),
         })).collect::<Vec<_>>(),
         "model": model_lines(model),

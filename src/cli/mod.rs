@@ -46,8 +46,8 @@ pub enum Command {
         /// Explain against this reference population (`all_applicants` or
         /// `near_approve_cutoff`) instead of the artifact's primary one, for review; it must be
         /// the primary or the artifact's alternate.
-        #[arg(long)]
-        reference: Option<String>,
+        #[arg(long, value_enum)]
+        reference: Option<crate::artifact::spec::Population>,
     },
     /// Run the decision service (HTTP): by default the bundled demo model on 127.0.0.1:8080;
     /// needs --keys FILE (or PLUMBLINE_KEYS), or --no-auth for a local trial.
@@ -78,9 +78,9 @@ pub enum Command {
         /// Outcome column (1 = defaulted, 0 = repaid).
         #[arg(long, default_value = "defaulted")]
         target: String,
-        /// `logistic` or `forest`.
-        #[arg(long, default_value = "logistic")]
-        kind: String,
+        /// The kind of model the spec is for.
+        #[arg(long, value_enum, default_value_t = crate::train::spec::ModelKind::Logistic)]
+        kind: crate::train::spec::ModelKind,
     },
     /// Fit a logistic model or a random forest from a CSV of past applications and a training
     /// spec; writes the artifact only if it validates.
@@ -168,16 +168,16 @@ pub enum Command {
         /// Name of the key's holder, e.g. `los-production`.
         #[arg(long)]
         name: String,
-        /// scoring, review, underwriting or admin.
-        #[arg(long)]
-        role: String,
+        /// What the key may do.
+        #[arg(long, value_enum)]
+        role: crate::api::Role,
     },
 }
 
-/// Exit status for bad input.
-pub const EXIT_BAD_INPUT: i32 = 2;
-/// Exit status for other failures.
-pub const EXIT_FAILURE: i32 = 1;
+/// Exit status for bad input ([`crate::exit::BAD_INPUT`]).
+pub const EXIT_BAD_INPUT: i32 = crate::exit::BAD_INPUT;
+/// Exit status for other failures ([`crate::exit::FAILURE`]).
+pub const EXIT_FAILURE: i32 = crate::exit::FAILURE;
 
 /// Runs a parsed command; returns the process exit status.
 pub fn run(cli: Cli) -> i32 {
@@ -187,12 +187,12 @@ pub fn run(cli: Cli) -> i32 {
             model,
             input,
             reference,
-        } => score::run(&model, input.as_deref(), reference.as_deref()),
+        } => score::run(&model, input.as_deref(), reference),
         Command::Serve(args) => serve::run(args),
         Command::Records(args) => records::run(args),
         Command::Fairness(args) => fairness::run(args),
         Command::Replay(args) => replay::run(args),
-        Command::HashKey { name, role } => serve::hash_key(&name, &role),
+        Command::HashKey { name, role } => serve::hash_key(&name, role),
         Command::Evaluate {
             model,
             data,
@@ -231,7 +231,7 @@ pub fn run(cli: Cli) -> i32 {
             background: background.as_deref(),
             approximate,
         }),
-        Command::DraftSpec { data, target, kind } => train::draft_spec(&data, &target, &kind),
+        Command::DraftSpec { data, target, kind } => train::draft_spec(&data, &target, kind),
         Command::DemoData {
             rows,
             seed,

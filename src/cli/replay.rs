@@ -8,7 +8,7 @@ use serde_json::Value;
 use std::path::{Path, PathBuf};
 
 /// Exit status when a replay finds changes beyond tolerance.
-pub const EXIT_CHANGED: i32 = 3;
+pub const EXIT_CHANGED: i32 = crate::exit::CHANGED;
 
 #[derive(Debug, Args)]
 pub struct ReplayArgs {

@@ -1,20 +1,20 @@
 //! `plumbline score`: decisions as JSON lines on stdout, problems on stderr.
 
 use super::{load, EXIT_BAD_INPUT, EXIT_FAILURE};
+use crate::artifact::spec::Population;
 use std::io::{Read, Write};
 use std::path::Path;
 
-pub fn run(model: &Path, input: Option<&Path>, reference: Option<&str>) -> i32 {
+pub fn run(model: &Path, input: Option<&Path>, reference: Option<Population>) -> i32 {
     let mut model = match load(model) {
         Ok(m) => m,
         Err(code) => return code,
     };
-    if let Some(name) = reference {
-        let population = serde_json::from_value(serde_json::Value::String(name.to_string()));
-        let swapped = population.ok().and_then(|p| model.explained_against(p));
-        match swapped {
+    if let Some(population) = reference {
+        match model.explained_against(population) {
             Some(m) => model = m,
             None => {
+                let name = population.name();
                 eprintln!("error: --reference {name}: the artifact carries no such reference population (it has {})", carried(&model));
                 return EXIT_BAD_INPUT;
             }
@@ -94,14 +94,13 @@ fn leading_newlines(s: &str) -> usize {
 
 /// The reference populations an artifact carries, for error messages.
 fn carried(model: &crate::LoadedModel) -> String {
-    let name = |p| {
-        serde_json::to_value(p)
-            .ok()
-            .and_then(|v| v.as_str().map(String::from))
-    };
-    std::iter::once(name(model.reference.population))
-        .chain(model.alternate.iter().map(|a| name(a.reference.population)))
-        .flatten()
+    std::iter::once(model.reference.population.name())
+        .chain(
+            model
+                .alternate
+                .iter()
+                .map(|a| a.reference.population.name()),
+        )
         .collect::<Vec<_>>()
         .join(" and ")
 }

@@ -1,7 +1,7 @@
 //! `plumbline serve` and `plumbline hash-key`.
 
 use super::{EXIT_BAD_INPUT, EXIT_FAILURE};
-use crate::api::{Auth, Keys, Limits, ServeConfig};
+use crate::api::{Auth, Keys, Limits, Role, ServeConfig, StartError};
 use clap::Args;
 use std::io::Read;
 use std::path::PathBuf;
@@ -77,33 +77,32 @@ pub struct ServeArgs {
     no_store: bool,
 }
 
-fn keys(args: &ServeArgs) -> Result<Auth, String> {
+fn keys(args: &ServeArgs) -> Result<Auth, StartError> {
     if args.no_auth {
         // Without keys anyone who reaches the port decides and reads records: only this machine.
         if !args.addr.ip().is_loopback() {
-            return Err(format!(
-                "--no-auth is only for a local trial: {} is not a loopback address (use 127.0.0.1 or ::1, or give --keys)",
-                args.addr.ip()
-            ));
+            return Err(StartError::OpenOffLoopback(args.addr.ip()));
         }
         return Ok(Auth(None));
     }
     let text = match (&args.keys, std::env::var("PLUMBLINE_KEYS")) {
-        (Some(path), _) => std::fs::read_to_string(path)
-            .map_err(|e| format!("cannot read key file {}: {e}", path.display()))?,
-        (None, Ok(text)) => text,
-        (None, Err(_)) => {
-            return Err("no API keys: pass --keys FILE (or set PLUMBLINE_KEYS), or --no-auth for a local trial".into());
+        (Some(path), _) => {
+            std::fs::read_to_string(path).map_err(|source| StartError::KeyFileUnreadable {
+                path: path.clone(),
+                source,
+            })?
         }
+        (None, Ok(text)) => text,
+        (None, Err(_)) => return Err(StartError::NoKeys),
     };
     let keys = Keys::from_json(&text)?;
     if keys.is_empty() {
-        return Err("the key file holds no keys".into());
+        return Err(StartError::EmptyKeyFile);
     }
     Ok(Auth(Some(keys)))
 }
 
-fn check_limits(args: &ServeArgs) -> Result<(), String> {
+fn check_limits(args: &ServeArgs) -> Result<(), StartError> {
     let rules = [
         (
             args.max_body_bytes >= 1024 && args.max_body_bytes <= 16 << 20,
@@ -139,7 +138,7 @@ fn check_limits(args: &ServeArgs) -> Result<(), String> {
         ),
     ];
     match rules.iter().find(|(ok, _)| !ok) {
-        Some((_, msg)) => Err(msg.to_string()),
+        Some((_, msg)) => Err(StartError::Limit(msg)),
         None => Ok(()),
     }
 }
@@ -152,17 +151,19 @@ pub fn run(args: ServeArgs) -> i32 {
         .with_env_filter(filter)
         .with_writer(std::io::stderr)
         .try_init();
-    if let Err(e) = check_limits(&args) {
-        eprintln!("error: {e}");
-        return EXIT_BAD_INPUT;
-    }
-    let auth = match keys(&args) {
-        Ok(a) => a,
+    match start(args) {
+        Ok(()) => 0,
         Err(e) => {
             eprintln!("error: {e}");
-            return EXIT_BAD_INPUT;
+            e.exit_code()
         }
-    };
+    }
+}
+
+/// Checks the flags and key file, then runs the service until it is stopped.
+fn start(args: ServeArgs) -> Result<(), StartError> {
+    check_limits(&args)?;
+    let auth = keys(&args)?;
     if args.no_store {
         let banner = "RECORDS ARE OFF (--no-store): decisions are given but not recorded, so no notice or examiner can recover them";
         tracing::warn!("{banner}");
@@ -189,25 +190,10 @@ pub fn run(args: ServeArgs) -> i32 {
             .workers
             .unwrap_or_else(|| std::thread::available_parallelism().map_or(2, |n| n.get())),
     };
-    match crate::api::serve(config) {
-        Ok(()) => 0,
-        Err(e) => {
-            eprintln!("error: {e}");
-            // A bad model or key file is bad input; failing to bind or run is not.
-            if e.starts_with(crate::api::LISTEN_FAILED) {
-                EXIT_FAILURE
-            } else {
-                EXIT_BAD_INPUT
-            }
-        }
-    }
+    crate::api::serve(config)
 }
 
-pub fn hash_key(name: &str, role: &str) -> i32 {
-    if !matches!(role, "scoring" | "review" | "underwriting" | "admin") {
-        eprintln!("error: --role must be scoring, review, underwriting or admin");
-        return EXIT_BAD_INPUT;
-    }
+pub fn hash_key(name: &str, role: Role) -> i32 {
     let mut key = String::new();
     if std::io::stdin().read_to_string(&mut key).is_err() {
         return EXIT_FAILURE;
@@ -217,7 +203,7 @@ pub fn hash_key(name: &str, role: &str) -> i32 {
         eprintln!("error: a key must be at least 16 characters");
         return EXIT_BAD_INPUT;
     }
-    let entry = serde_json::json!({"name": name, "role": role, "sha256": crate::api::auth::key_digest_hex(key)});
+    let entry = serde_json::json!({"name": name, "role": role.name(), "sha256": crate::api::auth::key_digest_hex(key)});
     println!("{entry}");
     0
 }

@@ -2,6 +2,7 @@
 //! artifact, or to a first spec to edit; and the demo lender's invented data.
 
 use super::{EXIT_BAD_INPUT, EXIT_FAILURE};
+use crate::train::spec::ModelKind;
 
 pub fn train(
     data: &std::path::Path,
@@ -108,11 +109,7 @@ pub fn demo_data(
     0
 }
 
-pub fn draft_spec(data: &std::path::Path, target: &str, kind: &str) -> i32 {
-    if !matches!(kind, "logistic" | "forest") {
-        eprintln!("error: --kind must be logistic or forest");
-        return EXIT_BAD_INPUT;
-    }
+pub fn draft_spec(data: &std::path::Path, target: &str, kind: ModelKind) -> i32 {
     let csv = match std::fs::read_to_string(data) {
         Ok(t) => t,
         Err(e) => {
@@ -136,7 +133,7 @@ pub fn draft_spec(data: &std::path::Path, target: &str, kind: &str) -> i32 {
             for note in notes {
                 eprintln!("note: {note}");
             }
-            if kind == "forest" {
+            if kind == ModelKind::Forest {
                 spec["forest"] =
                     serde_json::json!({"trees": 100, "max_depth": 8, "min_samples_leaf": 20});
             }

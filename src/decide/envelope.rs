@@ -8,6 +8,7 @@
 use crate::features::{kind_of, FieldError, InputError};
 use crate::LoadedModel;
 use serde_json::{Map, Value};
+use std::borrow::Cow;
 use validator::{Validate, ValidationError};
 
 /// Longest application id accepted.
@@ -42,13 +43,14 @@ impl ModelSelector {
 }
 
 /// A parsed envelope. Problems with the envelope are collected in `errors`, so they can be
-/// reported together with the applicant's.
+/// reported together with the applicant's. The applicant is borrowed from the request, or owned
+/// once the envelope must outlive it ([`Envelope::into_owned`]).
 #[derive(Debug, Clone)]
 pub struct Envelope<'a> {
     pub application_id: Option<String>,
     pub idempotency_key: Option<String>,
     pub model: Option<ModelSelector>,
-    pub applicant: Option<&'a Value>,
+    pub applicant: Option<Cow<'a, Value>>,
     pub errors: Vec<FieldError>,
 }
 
@@ -201,7 +203,7 @@ impl<'a> Envelope<'a> {
                 errors.push(error("applicant", "required", "is required"));
                 None
             }
-            Some(v) => Some(v),
+            Some(v) => Some(Cow::Borrowed(v)),
         };
         Ok(Envelope {
             application_id,
@@ -210,5 +212,16 @@ impl<'a> Envelope<'a> {
             applicant,
             errors,
         })
+    }
+
+    /// The envelope with its applicant copied out of the request, to send to another thread.
+    pub fn into_owned(self) -> Envelope<'static> {
+        Envelope {
+            applicant: self.applicant.map(|a| Cow::Owned(a.into_owned())),
+            application_id: self.application_id,
+            idempotency_key: self.idempotency_key,
+            model: self.model,
+            errors: self.errors,
+        }
     }
 }

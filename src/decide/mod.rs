@@ -8,7 +8,7 @@ use crate::explain::{self, Method};
 use crate::features::{FieldError, InputError, MissingTreatment};
 use crate::model::Space;
 use crate::policy::Outcome;
-use crate::reasons::{PrincipalReason, ReasonLimits};
+use crate::reasons::{PrincipalReason, ReasonIndex, ReasonLimits};
 use serde::Serialize;
 use serde_json::Value;
 
@@ -154,8 +154,7 @@ pub fn decide_envelope(
     envelope: &Envelope<'_>,
 ) -> Result<Decision, InputError> {
     let mut errors = envelope.errors.clone();
-    let result = envelope
-        .applicant
+    let result = (envelope.applicant.as_deref())
         .map(|a| decide(model, envelope.application_id.as_deref().unwrap_or(""), a));
     if let Some(Err(e)) = &result {
         errors.extend(e.errors.iter().cloned());
@@ -210,7 +209,7 @@ pub fn decide(
 
     let schema = &model.schema;
     let mut fields = Vec::new();
-    let mut by_code = vec![0.0; model.reasons.reasons.len()];
+    let mut by_code = model.reasons.zero_sums();
     for f in schema.fields.iter().filter(|f| f.scored) {
         let c: f64 = by_column[f.columns.clone()].iter().sum();
         if let Some(r) = f.reason {
@@ -228,7 +227,7 @@ pub fn decide(
     let fired = policy.fired(&encoded.values);
     let outcome = fired
         .iter()
-        .map(|&r| Outcome::from(policy.rules[r].action))
+        .map(|&r| Outcome::from(policy[r].action))
         .fold(policy.model_outcome(probability), Outcome::max);
     let score_factors = if outcome == Outcome::Approve {
         Vec::new()
@@ -238,7 +237,7 @@ pub fn decide(
     let reasons = if outcome == Outcome::Approve {
         Vec::new()
     } else {
-        let rule_codes: Vec<usize> = fired.iter().map(|&r| policy.rules[r].reason).collect();
+        let rule_codes: Vec<ReasonIndex> = fired.iter().map(|&r| policy[r].reason).collect();
         let limits = ReasonLimits {
             max_reasons: policy.max_reasons,
             inquiry_extra: policy.inquiry_extra,
@@ -268,10 +267,10 @@ pub fn decide(
         rules_fired: fired
             .iter()
             .map(|&r| {
-                let rule = &policy.rules[r];
+                let rule = &policy[r];
                 FiredRule {
-                    code: model.reasons.reasons[rule.reason].code.clone(),
-                    field: schema.fields[rule.field].name.clone(),
+                    code: model.reasons[rule.reason].code.clone(),
+                    field: schema[rule.field].name.clone(),
                     action: rule.action,
                 }
             })
@@ -292,7 +291,7 @@ pub fn decide(
             .missing
             .into_iter()
             .map(|(i, treatment)| MissingField {
-                field: schema.fields[i].name.clone(),
+                field: schema[i].name.clone(),
                 treatment,
             })
             .collect(),

@@ -1,6 +1,6 @@
 //! Applicant JSON -> checked field values -> encoded model columns.
 
-use super::schema::{FieldType, Missing, Schema};
+use super::schema::{FieldIndex, FieldType, Missing, Schema};
 use super::{FieldError, InputError};
 use serde::Serialize;
 use serde_json::{Map, Value};
@@ -33,7 +33,7 @@ pub struct Encoded {
     /// One value per schema field, as given (before imputation).
     pub values: Vec<FieldValue>,
     /// Fields that were missing, in schema order, with what was done.
-    pub missing: Vec<(usize, MissingTreatment)>,
+    pub missing: Vec<(FieldIndex, MissingTreatment)>,
 }
 
 impl Schema {
@@ -61,7 +61,7 @@ impl Schema {
             }
         }
         let mut values = Vec::with_capacity(self.fields.len());
-        for i in 0..self.fields.len() {
+        for (i, _) in self.indexed_fields() {
             match self.check_field(i, obj, path) {
                 Ok(v) => values.push(v),
                 Err(e) => {
@@ -78,11 +78,11 @@ impl Schema {
 
     fn check_field(
         &self,
-        i: usize,
+        i: FieldIndex,
         obj: &Map<String, Value>,
         path: &str,
     ) -> Result<FieldValue, FieldError> {
-        let field = &self.fields[i];
+        let field = &self[i];
         let at = || format!("{path}.{}", field.name);
         match obj.get(&field.name) {
             None | Some(Value::Null) => {
@@ -107,8 +107,12 @@ impl Schema {
     }
 
     /// Checks one present value against field `i`'s type and range.
-    pub fn check_value(&self, i: usize, v: &Value) -> Result<FieldValue, (&'static str, String)> {
-        let field = &self.fields[i];
+    pub fn check_value(
+        &self,
+        i: FieldIndex,
+        v: &Value,
+    ) -> Result<FieldValue, (&'static str, String)> {
+        let field = &self[i];
         match &field.ty {
             FieldType::Number | FieldType::Count => {
                 let Some(x) = v.as_f64() else {
@@ -153,8 +157,8 @@ impl Schema {
     fn encode(&self, values: Vec<FieldValue>) -> Encoded {
         let mut columns = vec![0.0; self.columns.len()];
         let mut missing = Vec::new();
-        for (i, field) in self.fields.iter().enumerate() {
-            let mut value = values[i];
+        for (i, field) in self.indexed_fields() {
+            let mut value = values[i.get()];
             if value == FieldValue::Missing {
                 match &field.missing {
                     Missing::Impute(v) => {

@@ -5,7 +5,7 @@ mod encode;
 mod schema;
 
 pub use encode::{kind_of, Encoded, FieldValue, MissingTreatment};
-pub use schema::{Column, Field, FieldType, Missing, Schema};
+pub use schema::{Column, Field, FieldIndex, FieldType, Missing, Schema};
 
 use serde::Serialize;
 

@@ -1,7 +1,8 @@
 //! Decision policy: probability cutoffs, score scaling and rule checks -> outcome.
 
 use crate::artifact::spec::{RuleAction, RuleTest};
-use crate::features::FieldValue;
+use crate::features::{FieldIndex, FieldValue};
+use crate::reasons::ReasonIndex;
 use serde::Serialize;
 
 /// Outcome of one application, ordered by severity (approve < refer < decline).
@@ -19,6 +20,16 @@ impl Outcome {
             Outcome::Approve => "approve",
             Outcome::Refer => "refer",
             Outcome::Decline => "decline",
+        }
+    }
+
+    /// The outcome a recorded or queried name stands for.
+    pub fn from_name(name: &str) -> Option<Outcome> {
+        match name {
+            "approve" => Some(Outcome::Approve),
+            "refer" => Some(Outcome::Refer),
+            "decline" => Some(Outcome::Decline),
+            _ => None,
         }
     }
 }
@@ -82,10 +93,10 @@ impl Scaling {
 /// A compiled rule check.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Rule {
-    /// Index into the reason table.
-    pub reason: usize,
-    /// Index into the schema's fields.
-    pub field: usize,
+    /// Its code in the reason table.
+    pub reason: ReasonIndex,
+    /// The field it reads.
+    pub field: FieldIndex,
     pub test: RuleTest,
     /// The compared value, checked against the field's type at load.
     pub value: FieldValue,
@@ -127,6 +138,17 @@ pub struct Policy {
     pub rules: Vec<Rule>,
 }
 
+/// A rule's place in the policy (artifact order). Its own type, like a field's and a reason's.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub struct RuleIndex(usize);
+
+impl std::ops::Index<RuleIndex> for Policy {
+    type Output = Rule;
+    fn index(&self, r: RuleIndex) -> &Rule {
+        &self.rules[r.0]
+    }
+}
+
 impl Policy {
     /// The model's own outcome from the probability of default.
     pub fn model_outcome(&self, p: f64) -> Outcome {
@@ -139,10 +161,11 @@ impl Policy {
         }
     }
 
-    /// Indices of the rules that fire on these field values, in rule order.
-    pub fn fired(&self, values: &[FieldValue]) -> Vec<usize> {
-        (0..self.rules.len())
-            .filter(|&i| self.rules[i].fires(values[self.rules[i].field]))
+    /// The rules that fire on these field values (one per schema field), in rule order.
+    pub fn fired(&self, values: &[FieldValue]) -> Vec<RuleIndex> {
+        (self.rules.iter().enumerate())
+            .filter(|(_, rule)| rule.fires(values[rule.field]))
+            .map(|(i, _)| RuleIndex(i))
             .collect()
     }
 }
@@ -196,8 +219,8 @@ mod tests {
     #[test]
     fn rules_fire_as_written() {
         let r = Rule {
-            reason: 0,
-            field: 0,
+            reason: ReasonIndex::new(0),
+            field: FieldIndex::new(0),
             test: RuleTest::Greater,
             value: FieldValue::Number(40000.0),
             given: None,

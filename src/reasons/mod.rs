@@ -20,6 +20,55 @@ pub struct ReasonTable {
     pub reasons: Vec<Reason>,
 }
 
+/// A reason's place in the reason table. Its own type, so that a field's or a rule's place
+/// cannot be used where a reason's is meant.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub struct ReasonIndex(usize);
+
+impl ReasonIndex {
+    /// The reason at place `i` (tests; the table itself hands places out).
+    #[cfg(test)]
+    pub(crate) fn new(i: usize) -> Self {
+        ReasonIndex(i)
+    }
+
+    /// The place as a number, for messages.
+    pub fn get(self) -> usize {
+        self.0
+    }
+}
+
+impl std::ops::Index<ReasonIndex> for ReasonTable {
+    type Output = Reason;
+    fn index(&self, r: ReasonIndex) -> &Reason {
+        &self.reasons[r.0]
+    }
+}
+
+/// One sum per reason code (its fields' contributions), read by reason place.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ReasonSums(Vec<f64>);
+
+impl ReasonSums {
+    /// Sums in table order (one per reason).
+    pub fn from_table_order(sums: Vec<f64>) -> Self {
+        ReasonSums(sums)
+    }
+}
+
+impl std::ops::Index<ReasonIndex> for ReasonSums {
+    type Output = f64;
+    fn index(&self, r: ReasonIndex) -> &f64 {
+        &self.0[r.0]
+    }
+}
+
+impl std::ops::IndexMut<ReasonIndex> for ReasonSums {
+    fn index_mut(&mut self, r: ReasonIndex) -> &mut f64 {
+        &mut self.0[r.0]
+    }
+}
+
 /// Why a reason is on the list.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, utoipa::ToSchema)]
 #[serde(rename_all = "snake_case")]
@@ -56,8 +105,21 @@ pub struct ReasonLimits {
 }
 
 impl ReasonTable {
-    pub fn index(&self, code: &str) -> Option<usize> {
-        self.reasons.iter().position(|r| r.code == code)
+    pub fn index(&self, code: &str) -> Option<ReasonIndex> {
+        self.reasons
+            .iter()
+            .position(|r| r.code == code)
+            .map(ReasonIndex)
+    }
+
+    /// Each reason with its place.
+    pub fn indexed(&self) -> impl Iterator<Item = (ReasonIndex, &Reason)> {
+        (self.reasons.iter().enumerate()).map(|(i, r)| (ReasonIndex(i), r))
+    }
+
+    /// A zero sum for every reason, to add contributions into.
+    pub fn zero_sums(&self) -> ReasonSums {
+        ReasonSums(vec![0.0; self.reasons.len()])
     }
 
     /// Ranks reasons for a decision that was not approved.
@@ -67,11 +129,11 @@ impl ReasonTable {
     /// reasons follow by contribution, largest first, ties broken by code so output is stable.
     pub fn principal(
         &self,
-        by_code: &[f64],
-        rule_codes: &[usize],
+        by_code: &ReasonSums,
+        rule_codes: &[ReasonIndex],
         limits: ReasonLimits,
     ) -> Vec<PrincipalReason> {
-        let mut chosen: Vec<(usize, ReasonSource)> = Vec::new();
+        let mut chosen: Vec<(ReasonIndex, ReasonSource)> = Vec::new();
         for &r in rule_codes {
             if chosen.len() < limits.max_reasons && !chosen.iter().any(|c| c.0 == r) {
                 chosen.push((r, ReasonSource::Rule));
@@ -89,7 +151,7 @@ impl ReasonTable {
         if limits.inquiry_extra {
             let extra = adverse
                 .iter()
-                .find(|&&r| self.reasons[r].inquiry && !chosen.iter().any(|c| c.0 == r));
+                .find(|&&r| self[r].inquiry && !chosen.iter().any(|c| c.0 == r));
             if let Some(&r) = extra {
                 chosen.push((r, ReasonSource::InquiryExtra));
             }
@@ -102,38 +164,43 @@ impl ReasonTable {
     /// [`KEY_FACTORS`], and the inquiries factor beyond them where it was adverse but not among
     /// them (1681g(f)(9)). Policy rules are not score factors and take no place here, unlike
     /// among the principal reasons.
-    pub fn score_factors(&self, by_code: &[f64]) -> Vec<PrincipalReason> {
+    pub fn score_factors(&self, by_code: &ReasonSums) -> Vec<PrincipalReason> {
         let adverse = self.adverse(by_code);
-        let mut chosen: Vec<(usize, ReasonSource)> = (adverse.iter().take(KEY_FACTORS))
+        let mut chosen: Vec<(ReasonIndex, ReasonSource)> = (adverse.iter().take(KEY_FACTORS))
             .map(|&r| (r, ReasonSource::Model))
             .collect();
-        if let Some(&r) = (adverse.iter().skip(KEY_FACTORS)).find(|&&r| self.reasons[r].inquiry) {
+        if let Some(&r) = (adverse.iter().skip(KEY_FACTORS)).find(|&&r| self[r].inquiry) {
             chosen.push((r, ReasonSource::InquiryExtra));
         }
         self.listed(chosen, by_code)
     }
 
     /// Codes whose summed contribution pushes toward default, largest first, ties by code.
-    fn adverse(&self, by_code: &[f64]) -> Vec<usize> {
-        let mut adverse: Vec<usize> = (0..self.reasons.len())
+    fn adverse(&self, by_code: &ReasonSums) -> Vec<ReasonIndex> {
+        let mut adverse: Vec<ReasonIndex> = (self.indexed())
+            .map(|(i, _)| i)
             .filter(|&i| by_code[i] > 0.0)
             .collect();
         adverse.sort_by(|&a, &b| {
             by_code[b]
                 .total_cmp(&by_code[a])
-                .then_with(|| self.reasons[a].code.cmp(&self.reasons[b].code))
+                .then_with(|| self[a].code.cmp(&self[b].code))
         });
         adverse
     }
 
-    fn listed(&self, chosen: Vec<(usize, ReasonSource)>, by_code: &[f64]) -> Vec<PrincipalReason> {
+    fn listed(
+        &self,
+        chosen: Vec<(ReasonIndex, ReasonSource)>,
+        by_code: &ReasonSums,
+    ) -> Vec<PrincipalReason> {
         chosen
             .into_iter()
             .enumerate()
             .map(|(i, (r, source))| PrincipalReason {
                 rank: i + 1,
-                code: self.reasons[r].code.clone(),
-                text: self.reasons[r].text.clone(),
+                code: self[r].code.clone(),
+                text: self[r].text.clone(),
                 source,
                 contribution: (source != ReasonSource::Rule).then_some(by_code[r]),
             })
@@ -200,7 +267,7 @@ mod tests {
     // Regulation B comment 9(b)(2)-1: more than four reasons are not likely helpful.
     #[test]
     fn at_most_four_adverse_only_ranked() {
-        let by = [0.5, -0.3, 0.9, 0.1, 0.2, 0.05, 0.0];
+        let by = ReasonSums(vec![0.5, -0.3, 0.9, 0.1, 0.2, 0.05, 0.0]);
         let got = table().principal(&by, &[], FOUR);
         assert_eq!(codes(&got), ["C", "A", "E", "D"]);
         assert!(got.iter().all(|r| r.contribution.unwrap() > 0.0));
@@ -211,12 +278,12 @@ mod tests {
     // (9) for inquiries; a rule reason is not a factor of the score and takes no place.
     #[test]
     fn score_factors_are_four_model_factors_then_inquiries() {
-        let by = [0.5, 0.4, 0.9, 0.3, 0.2, 0.01, 0.0];
+        let by = ReasonSums(vec![0.5, 0.4, 0.9, 0.3, 0.2, 0.01, 0.0]);
         let got = table().score_factors(&by);
         assert_eq!(codes(&got), ["C", "A", "B", "D", "INQ"]);
         assert_eq!(got[4].source, ReasonSource::InquiryExtra);
         // Inquiries among the four: no extra; fewer than four adverse: fewer listed.
-        let by = [0.5, -0.4, 0.0, 0.0, 0.0, 0.7, 0.0];
+        let by = ReasonSums(vec![0.5, -0.4, 0.0, 0.0, 0.0, 0.7, 0.0]);
         let got = table().score_factors(&by);
         assert_eq!(codes(&got), ["INQ", "A"]);
         assert!(got.iter().all(|r| r.source == ReasonSource::Model));
@@ -224,14 +291,14 @@ mod tests {
 
     #[test]
     fn ties_break_by_code() {
-        let by = [0.2, 0.2, 0.2, 0.0, 0.0, 0.0, 0.0];
+        let by = ReasonSums(vec![0.2, 0.2, 0.2, 0.0, 0.0, 0.0, 0.0]);
         assert_eq!(codes(&table().principal(&by, &[], FOUR)), ["A", "B", "C"]);
     }
 
     #[test]
     fn rule_reason_comes_first_and_counts_toward_limit() {
-        let by = [0.5, 0.4, 0.9, 0.1, 0.2, 0.0, 0.0];
-        let got = table().principal(&by, &[6], FOUR);
+        let by = ReasonSums(vec![0.5, 0.4, 0.9, 0.1, 0.2, 0.0, 0.0]);
+        let got = table().principal(&by, &[ReasonIndex(6)], FOUR);
         assert_eq!(codes(&got), ["RULE", "C", "A", "B"]);
         assert_eq!(got[0].source, ReasonSource::Rule);
         assert_eq!(got[0].contribution, None);
@@ -244,17 +311,17 @@ mod tests {
             max_reasons: 4,
             inquiry_extra: true,
         };
-        let by = [0.5, 0.4, 0.9, 0.3, 0.2, 0.01, 0.0];
+        let by = ReasonSums(vec![0.5, 0.4, 0.9, 0.3, 0.2, 0.01, 0.0]);
         let got = table().principal(&by, &[], limits);
         assert_eq!(codes(&got), ["C", "A", "B", "D", "INQ"]);
         assert_eq!(got[4].source, ReasonSource::InquiryExtra);
-        let by = [0.5, 0.4, 0.9, 0.3, 0.2, -0.01, 0.0];
+        let by = ReasonSums(vec![0.5, 0.4, 0.9, 0.3, 0.2, -0.01, 0.0]);
         assert_eq!(table().principal(&by, &[], limits).len(), 4);
     }
 
     #[test]
     fn nothing_adverse_gives_nothing() {
-        let by = [-0.5, -0.4, 0.0, 0.0, 0.0, 0.0, 0.0];
+        let by = ReasonSums(vec![-0.5, -0.4, 0.0, 0.0, 0.0, 0.0, 0.0]);
         assert!(table().principal(&by, &[], FOUR).is_empty());
     }
 

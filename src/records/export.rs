@@ -49,7 +49,7 @@ impl Format {
                     r.model_id.clone(),
                     r.model_version.clone(),
                     r.model_sha256.clone(),
-                    r.outcome.clone(),
+                    r.outcome.name().to_string(),
                     format!("{}", r.probability),
                     r.score.to_string(),
                     reason_codes(r).join(";"),

@@ -17,6 +17,8 @@ pub mod recorder;
 mod sql;
 pub mod sqlite;
 
+/// The outcome a record holds: the pipeline's own type, stored by its name.
+pub use crate::policy::Outcome;
 pub use cursor::Cursor;
 pub use recorder::Recorder;
 
@@ -39,7 +41,7 @@ pub struct Record {
     pub plumbline_version: String,
     /// SHA-256 of `request`: what an idempotent retry must match.
     pub request_sha256: String,
-    pub outcome: String,
+    pub outcome: Outcome,
     pub probability: f64,
     pub score: i64,
     pub request: String,
@@ -150,7 +152,7 @@ pub struct Query {
     pub application_id: Option<String>,
     pub from: Option<String>,
     pub to: Option<String>,
-    pub outcome: Option<String>,
+    pub outcome: Option<Outcome>,
     pub model_id: Option<String>,
     pub model_version: Option<String>,
     pub final_action: Option<FinalFilter>,
@@ -210,15 +212,13 @@ pub fn parse_query<'a>(get: impl Fn(&str) -> Option<&'a str>) -> Result<Query, Q
             ));
         }
     }
-    if let Some(o) = get("outcome") {
-        if !matches!(o, "approve" | "refer" | "decline") {
-            return Err(query_error(
-                "outcome",
-                "one_of",
-                "approve, refer or decline",
-            ));
-        }
-    }
+    let outcome = match get("outcome") {
+        None => None,
+        Some(o) => Some(
+            Outcome::from_name(o)
+                .ok_or_else(|| query_error("outcome", "one_of", "approve, refer or decline"))?,
+        ),
+    };
     let final_action = match get("final_action") {
         None => None,
         Some("pending") => Some(FinalFilter::Pending),
@@ -248,7 +248,7 @@ pub fn parse_query<'a>(get: impl Fn(&str) -> Option<&'a str>) -> Result<Query, Q
         application_id: text("application_id"),
         from,
         to,
-        outcome: text("outcome"),
+        outcome,
         model_id: text("model_id"),
         model_version: text("model_version"),
         final_action,
@@ -441,7 +441,7 @@ pub struct RecordView<'a> {
     pub model: ModelRef<'a>,
     pub plumbline_version: &'a str,
     pub request_sha256: &'a str,
-    pub outcome: &'a str,
+    pub outcome: Outcome,
     pub probability_of_default: f64,
     pub score: i64,
     pub request: &'a serde_json::value::RawValue,
@@ -531,7 +531,7 @@ impl Record {
             },
             plumbline_version: &self.plumbline_version,
             request_sha256: &self.request_sha256,
-            outcome: &self.outcome,
+            outcome: self.outcome,
             probability_of_default: self.probability,
             score: self.score,
             request: raw(&self.request, &self.decision_id)?,

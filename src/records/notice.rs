@@ -176,9 +176,9 @@ fn action_taken(record: &Record, reasons: &[(Reason, From)]) -> Result<Action, N
             })
         }
         None => {
-            let is_final = record.outcome != "refer";
+            let is_final = record.outcome != super::Outcome::Refer;
             Ok(Action {
-                outcome: record.outcome.clone(),
+                outcome: record.outcome.name().to_string(),
                 decided_at: record.decided_at.clone(),
                 is_final,
                 note: if is_final { DECLINE_NOTE } else { REFER_NOTE },
@@ -190,7 +190,7 @@ fn action_taken(record: &Record, reasons: &[(Reason, From)]) -> Result<Action, N
 
 /// The content for `record`, or why there is none.
 pub fn adverse_action(record: &Record) -> Result<AdverseAction, NoNotice> {
-    if record.outcome == "approve" {
+    if record.outcome == super::Outcome::Approve {
         return Err(NoNotice::Approved);
     }
     let response: Value = serde_json::from_str(&record.response)

@@ -148,7 +148,12 @@ fn row_to_record(r: &Row) -> Result<Record, StoreError> {
         model_sha256: get(7)?,
         plumbline_version: get(8)?,
         request_sha256: get(9)?,
-        outcome: get(10)?,
+        outcome: {
+            let name = get(10)?;
+            super::Outcome::from_name(&name).ok_or_else(|| {
+                StoreError::Failed(format!("outcome {name:?} is not approve, refer or decline"))
+            })?
+        },
         probability: r.try_get(11).map_err(failed)?,
         score: r.try_get(12).map_err(failed)?,
         request: get(13)?,
@@ -174,6 +179,15 @@ fn text_params(params: &[String]) -> Vec<&(dyn ToSql + Sync)> {
     params.iter().map(|p| p as &(dyn ToSql + Sync)).collect()
 }
 
+/// The stored name of an outcome, as a parameter that lives as long as the record's others.
+fn outcome_name(o: super::Outcome) -> &'static &'static str {
+    match o {
+        super::Outcome::Approve => &"approve",
+        super::Outcome::Refer => &"refer",
+        super::Outcome::Decline => &"decline",
+    }
+}
+
 fn record_params(r: &Record) -> [&(dyn ToSql + Sync); 16] {
     [
         &r.decision_id,
@@ -186,7 +200,7 @@ fn record_params(r: &Record) -> [&(dyn ToSql + Sync); 16] {
         &r.model_sha256,
         &r.plumbline_version,
         &r.request_sha256,
-        &r.outcome,
+        outcome_name(r.outcome),
         &r.probability,
         &r.score,
         &r.request,

@@ -203,8 +203,8 @@ pub fn filter(query: &super::Query) -> (String, Vec<String>) {
     if let Some(v) = &query.to {
         push("d.decided_at < #", &[v]);
     }
-    if let Some(v) = &query.outcome {
-        push("d.outcome = #", &[v]);
+    if let Some(v) = query.outcome {
+        push("d.outcome = #", &[&v.name().to_string()]);
     }
     if let Some(v) = &query.model_id {
         push("d.model_id = #", &[v]);

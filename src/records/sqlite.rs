@@ -91,6 +91,15 @@ fn create_private(path: &Path) -> Result<(), StoreError> {
     Ok(())
 }
 
+/// The outcome in column `i`, refused (as a conversion failure) if it is not one of the three.
+fn outcome_at(r: &rusqlite::Row, i: usize) -> rusqlite::Result<super::Outcome> {
+    let name: String = r.get(i)?;
+    super::Outcome::from_name(&name).ok_or_else(|| {
+        let why = format!("outcome {name:?} is not approve, refer or decline");
+        rusqlite::Error::FromSqlConversionFailure(i, rusqlite::types::Type::Text, why.into())
+    })
+}
+
 fn row_to_record(r: &rusqlite::Row) -> rusqlite::Result<Record> {
     Ok(Record {
         decision_id: r.get(0)?,
@@ -103,7 +112,7 @@ fn row_to_record(r: &rusqlite::Row) -> rusqlite::Result<Record> {
         model_sha256: r.get(7)?,
         plumbline_version: r.get(8)?,
         request_sha256: r.get(9)?,
-        outcome: r.get(10)?,
+        outcome: outcome_at(r, 10)?,
         probability: r.get(11)?,
         score: r.get(12)?,
         request: r.get(13)?,
@@ -224,7 +233,7 @@ impl Store for SqliteStore {
                         r.model_sha256,
                         r.plumbline_version,
                         r.request_sha256,
-                        r.outcome,
+                        r.outcome.name(),
                         r.probability,
                         r.score,
                         r.request,

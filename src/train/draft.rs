@@ -4,6 +4,7 @@
 //! since only people who know the product can state a reason specifically.
 
 use super::spec::TrainError;
+use crate::train::spec::ModelKind;
 use serde_json::{json, Value};
 use std::collections::BTreeMap;
 
@@ -25,7 +26,7 @@ pub fn draft(
     csv: &str,
     target: &str,
     model_id: &str,
-    kind: &str,
+    kind: ModelKind,
 ) -> Result<(Value, Vec<String>), TrainError> {
     let table = crate::tabular::read(csv).map_err(|e| TrainError::Data(e.to_string()))?;
     let owned_header = table.header.clone();
@@ -98,7 +99,7 @@ pub fn draft(
         "score_provider": format!("{DRAFT_MARK} who provides the score, as disclosures name it (the lender, or the model's owner)"),
         "created_at": crate::records::now().get(..19).map(|t| format!("{t}Z")),
         "target": target,
-        "kind": kind,
+        "kind": kind.name(),
         "features": features,
         "reasons": reasons,
         "policy": {

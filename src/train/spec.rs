@@ -36,12 +36,22 @@ pub struct TrainingSpec {
     pub forest: Option<super::forest::ForestParams>,
 }
 
-#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Deserialize)]
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Deserialize, clap::ValueEnum)]
 #[serde(rename_all = "snake_case")]
 pub enum ModelKind {
     #[default]
     Logistic,
     Forest,
+}
+
+impl ModelKind {
+    /// The name a training spec and `--kind` use.
+    pub fn name(self) -> &'static str {
+        match self {
+            ModelKind::Logistic => "logistic",
+            ModelKind::Forest => "forest",
+        }
+    }
 }
 
 #[derive(Debug, Clone, Deserialize)]

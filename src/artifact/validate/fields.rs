@@ -5,6 +5,7 @@ use super::reasons::compile_reasons;
 use super::{fail, Result, MAX_COLUMNS};
 use crate::artifact::spec::*;
 use crate::artifact::ArtifactError;
+use crate::features::FieldIndex;
 use crate::features::{Column, Field, FieldType, Missing, Schema};
 use crate::reasons::ReasonTable;
 
@@ -83,7 +84,7 @@ pub(super) fn compile_schema(
             for (name, level) in Schema::column_names(&f.name, &ty) {
                 columns.push(Column {
                     name,
-                    field: i,
+                    field: FieldIndex::new(i),
                     level,
                 });
             }
@@ -123,9 +124,11 @@ pub(super) fn compile_schema(
                     "the imputed value must not be null",
                 );
             }
-            schema.check_value(i, v).map_err(|(rule, msg)| {
-                ArtifactError::new(format!("$.features[{i}].missing.value"), rule, msg)
-            })?;
+            schema
+                .check_value(FieldIndex::new(i), v)
+                .map_err(|(rule, msg)| {
+                    ArtifactError::new(format!("$.features[{i}].missing.value"), rule, msg)
+                })?;
         }
     }
     if schema.columns.is_empty() {

@@ -133,8 +133,9 @@ pub(super) fn check_reason_use(
     schema: &Schema,
     reasons: &ReasonTable,
 ) -> Result<()> {
-    for (i, r) in reasons.reasons.iter().enumerate() {
-        let by_field = schema.fields.iter().any(|f| f.reason == Some(i));
+    for (place, r) in reasons.indexed() {
+        let i = place.get();
+        let by_field = schema.fields.iter().any(|f| f.reason == Some(place));
         let by_rule = spec.policy.rules.iter().any(|x| x.code == r.code);
         if !by_field && !by_rule {
             return fail(
