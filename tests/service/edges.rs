@@ -2,9 +2,8 @@
 //! authentication off loopback, passwords never printed, a mistyped store path never becomes a
 //! new empty store, new store files private to their owner.
 
-mod common;
-
-use common::stores::TempDir;
+use crate::common;
+use crate::common::stores::TempDir;
 use std::process::{Command, Output, Stdio};
 
 fn plumbline(args: &[&str]) -> Output {
@@ -384,5 +383,4 @@ fn the_service_speaks_tls_and_replay_checks_its_certificate() {
     );
 }
 
-#[path = "edges/memory.rs"]
 mod memory;
