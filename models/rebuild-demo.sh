@@ -2,7 +2,7 @@
 # Rebuilds the trained demo models from generated data, deterministically:
 #   models/fernhill-logistic-trained.json   logistic, near-cutoff reference (Regulation B 9(b)(2)-5)
 #   models/fernhill-forest.json             100-tree random forest, path-dependent TreeSHAP
-# tests/demo_models.rs rebuilds them the same way and fails if a byte differs.
+# tests/pipeline/demo_models.rs rebuilds them the same way and fails if a byte differs.
 set -euo pipefail
 cd "$(dirname "${BASH_SOURCE[0]}")/.."
 mkdir -p target/demo

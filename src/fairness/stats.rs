@@ -1,6 +1,7 @@
 //! The screening statistics: Fisher's exact test (two-sided), the pooled two-proportion z test,
 //! a confidence interval for a ratio of rates, and the standardized mean difference. Checked
-//! against scipy `fisher_exact` and statsmodels `proportions_ztest` (tests/reference_fairness.rs).
+//! against scipy `fisher_exact` and statsmodels `proportions_ztest`
+//! (tests/references/reference_fairness.rs).
 
 /// ln(n!) by the log-gamma function (libm, accurate to a few ulps).
 fn ln_factorial(n: u64) -> f64 {

@@ -278,7 +278,7 @@ impl Page {
     }
 }
 
-/// The store interface; both back ends pass the same test suite (tests/records.rs).
+/// The store interface; both back ends pass the same test suite (tests/service/records.rs).
 pub trait Store: Send + Sync {
     /// Writes the records in one transaction, committed before this returns. A record whose
     /// idempotency key is already recorded (earlier, or earlier in the same group) is not written;

@@ -1,7 +1,7 @@
 """Fair-lending reference fixture: Fisher's exact test (scipy.stats.fisher_exact, two-sided) and
 the pooled two-proportion z test (statsmodels proportions_ztest) on 2x2 approval tables, and, for
 small groups significantly below their control, the fewest extra approvals that bring Fisher's p
-to 0.05 or more. Written by tests/reference/regen.sh; read by tests/reference_fairness.rs.
+to 0.05 or more. Written by tests/reference/regen.sh; read by tests/references/reference_fairness.rs.
 
 Each case: group approvals a of n, control approvals ac of nc.
 """

@@ -1,7 +1,7 @@
 //! Models kept as ONNX graphs (neural networks, support-vector machines): evaluated, not read
 //! into trees or coefficients. Standard-domain operators run in tract, a pure-Rust ONNX runtime;
 //! the ai.onnx.ml operators it lacks (Scaler, Normalizer, SVMClassifier) run natively, written to
-//! compute what onnxruntime computes and checked against it (tests/onnx_import.rs).
+//! compute what onnxruntime computes and checked against it (tests/pipeline/onnx_import.rs).
 //!
 //! A graph is a chain of stages from the input to the probability tensor; the runtime's input is
 //! float32, so rows are cast as onnxruntime's callers cast them. Output: the class-1 probability,

@@ -4,7 +4,7 @@
 //! names a field), never a panic. Runs are bounded here (`FUZZ_CASES`, default below); the
 //! longer run is `bench/fuzz.sh`. A finding is fixed and kept below as a named regression case.
 
-use super::common;
+use crate::common;
 use plumbline::fairness::membership;
 use plumbline::records::{self, Cursor};
 use plumbline::LoadedModel;

@@ -1,12 +1,10 @@
 //! `plumbline import` as a model developer runs it: the binary imports an exported model,
 //! `inspect` shows where it came from, and the service started from the binary decides with it,
 //! byte for byte as `score` does and with onnxruntime's probability (fixture of
-//! tests/onnx_import.rs, written by tests/reference/make_onnx.py).
+//! tests/pipeline/onnx_import.rs, written by tests/reference/make_onnx.py).
 
-mod common;
-
-use common::server::{send, SCORING};
-use common::stores::TempDir;
+use crate::common::server::{send, SCORING};
+use crate::common::stores::TempDir;
 use std::io::{BufRead, BufReader};
 use std::process::{Child, Command, Output, Stdio};
 

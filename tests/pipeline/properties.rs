@@ -2,9 +2,7 @@
 //! (base + sum = model output within 1e-9) and deterministic (same input, same bits); and the
 //! fuzzing of every parser that takes outside input (`fuzz`).
 
-mod common;
-
-use common::{random_ensemble, random_row, Rng};
+use crate::common::{random_ensemble, random_row, Rng};
 use plumbline::artifact::spec::Aggregation;
 use plumbline::explain::{is_additive, InterventionalExplainer, PathExplainer};
 use proptest::prelude::*;
@@ -45,5 +43,4 @@ proptest! {
     }
 }
 
-#[path = "properties/fuzz.rs"]
 mod fuzz;

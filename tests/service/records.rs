@@ -3,9 +3,7 @@
 //! migrations that apply once (also when several replicas open the database together), and a
 //! store from before final actions upgraded in place.
 
-mod common;
-
-use common::stores;
+use crate::common::stores;
 use plumbline::records::{self, Cursor, Insert, Query, Record, Store};
 use std::sync::Arc;
 

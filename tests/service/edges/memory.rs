@@ -3,7 +3,7 @@
 //! grow by at most twice the body's size, whatever the body's shape, for batches and
 //! fair-lending uploads alike.
 
-use super::common;
+use crate::common;
 use std::io::Write;
 
 const MIB: usize = 1024 * 1024;

@@ -1,9 +1,7 @@
 //! POST /v1/fairness/reports over the service's recorded decisions: the JSON report, the HTML
 //! page (and what a person sees of it in headless Chromium), and bad uploads named by row.
 
-mod common;
-
-use common::server::{send, TestServer, REVIEW, SCORING};
+use crate::common::server::{send, TestServer, REVIEW, SCORING};
 use serde_json::{json, Value};
 
 fn applicant(approvable: bool) -> Value {
@@ -282,7 +280,7 @@ fn bad_report_requests_are_named() {
 /// says, and their count in the report.
 #[test]
 fn referrals_count_as_the_final_actions_recorded() {
-    use common::server::UNDERWRITING;
+    use crate::common::server::UNDERWRITING;
     let server = TestServer::demo();
     let refer: Value = serde_json::from_str(
         &std::fs::read_to_string("demo-requests/03-refer-amount-rule.json").unwrap(),

@@ -1,9 +1,8 @@
 //! The service over real HTTP on a loopback port: same bytes as the command line, roles, limits,
 //! models, probes, metrics, OpenAPI, reload under load, graceful shutdown with requests in flight.
 
-mod common;
-
-use common::server::{send, TestServer, ADMIN, REVIEW, SCORING};
+use crate::common;
+use crate::common::server::{send, TestServer, ADMIN, REVIEW, SCORING};
 use plumbline::api::{Auth, Limits};
 use serde_json::{json, Value};
 use std::path::PathBuf;
@@ -240,7 +239,7 @@ fn checked_in_openapi_document_is_current() {
         std::fs::read_to_string("openapi/plumbline.json").expect("openapi/plumbline.json");
     assert!(
         generated == checked_in,
-        "openapi/plumbline.json is stale: run PLUMBLINE_BLESS=1 cargo test --test api"
+        "openapi/plumbline.json is stale: run PLUMBLINE_BLESS=1 cargo test --test service api::checked_in_openapi"
     );
     let doc: Value = serde_json::from_str(&generated).unwrap();
     assert!(doc["openapi"].as_str().unwrap().starts_with("3.1"));

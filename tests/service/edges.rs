@@ -2,9 +2,8 @@
 //! authentication off loopback, passwords never printed, a mistyped store path never becomes a
 //! new empty store, new store files private to their owner.
 
-mod common;
-
-use common::stores::TempDir;
+use crate::common;
+use crate::common::stores::TempDir;
 use std::process::{Command, Output, Stdio};
 
 fn plumbline(args: &[&str]) -> Output {
@@ -524,5 +523,4 @@ fn a_failed_request_is_logged_once_with_its_cause() {
     );
 }
 
-#[path = "edges/memory.rs"]
 mod memory;

@@ -3,10 +3,9 @@
 //! store, byte for byte, and no record is partial. Two servers sharing one PostgreSQL database
 //! receive the same idempotency keys at once: one record per key, one response for both.
 
-mod common;
-
-use common::server::SCORING;
-use common::stores;
+use crate::common;
+use crate::common::server::SCORING;
+use crate::common::stores;
 use plumbline::records::{self, Query};
 use std::process::Child;
 use std::sync::atomic::{AtomicBool, Ordering};

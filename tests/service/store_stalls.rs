@@ -5,11 +5,9 @@
 //! commit, before or after the server commits. Afterwards the store holds exactly the decisions
 //! answered 200.
 
-mod common;
-
-use common::proxy::{AtCommit, Proxy};
-use common::server::{send, spawn_binary, SCORING};
-use common::stores;
+use crate::common::proxy::{AtCommit, Proxy};
+use crate::common::server::{send, spawn_binary, SCORING};
+use crate::common::stores;
 use serde_json::{json, Value};
 use std::time::{Duration, Instant};
 

@@ -2,9 +2,8 @@
 //! The champion against its own records changes nothing; a challenger with a lower approve
 //! cutoff flips exactly the recorded approvals whose probability reaches the new cutoff.
 
-mod common;
-
-use common::server::{send, TestServer, REVIEW, SCORING};
+use crate::common;
+use crate::common::server::{send, TestServer, REVIEW, SCORING};
 use serde_json::Value;
 use std::process::{Command, Output};
 

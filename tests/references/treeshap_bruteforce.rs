@@ -10,9 +10,7 @@
 //!
 //! Shapley's formula (Shapley 1953) then gives each column's value; TreeSHAP must agree to 1e-12.
 
-mod common;
-
-use common::{random_ensemble, random_row, Rng};
+use crate::common::{random_ensemble, random_row, Rng};
 use plumbline::artifact::spec::Aggregation;
 use plumbline::explain::{InterventionalExplainer, PathExplainer};
 use plumbline::model::{Ensemble, Node};

@@ -2,9 +2,7 @@
 //! and compares status, content type and body exactly. `PLUMBLINE_BLESS=1` records the current
 //! responses instead (review the diff before committing).
 
-mod common;
-
-use common::server::{key_for, send, TestServer};
+use crate::common::server::{key_for, send, TestServer};
 use serde_json::Value;
 
 #[test]

@@ -2,10 +2,8 @@
 //! adverse-action content comes from the record, retries are idempotent, searches page with
 //! cursors and exports stream JSON lines or CSV. Run on SQLite and on PostgreSQL.
 
-mod common;
-
-use common::server::{demo_auth, send, TestServer, REVIEW, SCORING};
-use common::stores;
+use crate::common::server::{demo_auth, send, TestServer, REVIEW, SCORING};
+use crate::common::stores;
 use plumbline::api::Limits;
 use serde_json::{json, Value};
 use std::path::PathBuf;
@@ -445,7 +443,7 @@ fn adverse_action_content_as_the_law_reads_it() {
 /// Final actions on referrals (12 CFR 1002.9(a): the underwriter's decision is the action taken),
 /// recorded append-only beside the decision, on both stores.
 fn final_actions(store: Option<String>) {
-    use common::server::UNDERWRITING;
+    use crate::common::server::UNDERWRITING;
     let server = match store {
         Some(s) => TestServer::start_with(
             vec![PathBuf::from("models/fernhill-logistic.json")],
@@ -705,7 +703,7 @@ fn final_actions_on_postgres() {
 /// model was unloaded; a decline needs the model's reasons and says so.
 #[test]
 fn referrals_close_after_their_model_is_gone() {
-    use common::server::UNDERWRITING;
+    use crate::common::server::UNDERWRITING;
     let (location, _dir) = stores::sqlite();
     let first = TestServer::start_with(
         vec![PathBuf::from("models/fernhill-logistic.json")],
@@ -754,7 +752,7 @@ fn referrals_close_after_their_model_is_gone() {
 /// request id), readable by admin keys only; idempotency keys are the caller's own, so another
 /// key's retry of the same key is a decision of its own, never a 409 showing the first.
 fn access_and_keys(store: Option<String>) {
-    use common::server::ADMIN;
+    use crate::common::server::ADMIN;
     let server = match store {
         Some(s) => TestServer::start_with(
             vec![PathBuf::from("models/fernhill-logistic.json")],
