@@ -27,6 +27,7 @@ pub mod progress;
 pub mod reasons;
 pub mod records;
 pub mod replay;
+pub mod rng;
 pub mod tabular;
 pub mod tls;
 pub mod train;

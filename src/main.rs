@@ -1,3 +1,5 @@
+//! The `plumbline` command: parses the command line and exits with the status the command gives.
+
 use clap::Parser;
 
 fn main() {

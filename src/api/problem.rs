@@ -6,7 +6,7 @@ use actix_web::HttpResponse;
 use serde::Serialize;
 
 /// How long a caller refused for want of a free report slot is asked to wait.
-pub const BUSY_RETRY_SECONDS: u64 = 5;
+pub const BUSY_RETRY_SECONDS: u32 = 5;
 
 /// `application/problem+json` body. `type` is a stable identifier for the class of problem.
 #[derive(Debug, Clone, Serialize, utoipa::ToSchema)]
@@ -24,14 +24,15 @@ pub struct Problem {
     pub errors: Vec<FieldError>,
     /// Seconds to wait before trying again, sent as the `Retry-After` header.
     #[serde(skip)]
-    pub retry_after: Option<u64>,
+    pub retry_after: Option<u32>,
     /// The methods the route takes, sent as the `Allow` header of a 405.
     #[serde(skip)]
     pub allow: Option<&'static str>,
     /// What went wrong inside, for the service log only (never sent): the request middleware
     /// logs it once, with the request id, for every 5xx.
+    /// (Boxed: a problem travels in every handler's `Result`, and this is rarely set.)
     #[serde(skip)]
-    pub cause: Option<String>,
+    pub cause: Option<Box<String>>,
 }
 
 /// The cause of a 5xx, carried on the response from [`Problem::response`] to the request
@@ -64,7 +65,7 @@ impl Problem {
 
     /// The same problem with `cause` for the log.
     pub fn caused_by(mut self, cause: impl std::fmt::Display) -> Self {
-        self.cause = Some(cause.to_string());
+        self.cause = Some(Box::new(cause.to_string()));
         self
     }
 
@@ -417,7 +418,7 @@ impl Problem {
         let body = serde_json::to_string(self);
         let cause = match (&body, &self.cause) {
             (Err(e), _) => Some(format!("problem document not written ({e}): {self}")),
-            (Ok(_), Some(c)) => Some(c.clone()),
+            (Ok(_), Some(c)) => Some(c.to_string()),
             (Ok(_), None) if self.status >= 500 => Some(self.detail.clone()),
             (Ok(_), None) => None,
         };

@@ -105,7 +105,7 @@ impl ShapleyExplainer {
         let orders = match &mode {
             Mode::Exact => Vec::new(),
             Mode::Sampled { permutations, seed } => {
-                let mut rng = crate::train::Rng::new(*seed);
+                let mut rng = crate::rng::Rng::new(*seed);
                 let mut out = Vec::new();
                 for _ in 0..permutations.div_ceil(2) {
                     let mut p: Vec<usize> = (0..groups.len()).collect();

@@ -99,7 +99,7 @@ pub fn stratified(members: &[usize], defaulted: &[bool], size: usize, seed: u64)
     let (pos, neg): (Vec<usize>, Vec<usize>) = members.iter().partition(|&&i| defaulted[i]);
     let want_pos = ((size as f64 * pos.len() as f64 / members.len() as f64).round() as usize)
         .clamp(usize::from(!pos.is_empty()), pos.len().min(size));
-    let mut rng = crate::train::Rng::new(seed);
+    let mut rng = crate::rng::Rng::new(seed);
     let mut take = |mut v: Vec<usize>, k: usize| {
         for i in (1..v.len()).rev() {
             let j = (rng.next_u64() % (i as u64 + 1)) as usize;

@@ -2,7 +2,7 @@
 //! loans), drawn from a documented data-generating process (models/README.md). For demos and
 //! tests only: nothing here describes real borrowers.
 
-use super::rng::Rng;
+use crate::rng::Rng;
 use std::fmt::Write;
 
 /// Column order of the generated CSV.

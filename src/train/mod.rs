@@ -10,7 +10,6 @@ pub mod forest;
 pub mod logistic;
 pub mod monotone;
 pub mod reference;
-mod rng;
 pub mod spec;
 
-pub use rng::Rng;
+pub use crate::rng::Rng;

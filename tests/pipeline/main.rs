@@ -1,6 +1,6 @@
 //! Test binary `pipeline`: deciding and explaining in the library — the demo model end to end,
 //! the shipped trained demo models, the bad-artifact corpus, ONNX import, the fair-lending
-//! report, and the property tests and fuzzers (`cargo test --test pipeline`; one file with e.g.
+//! report, the property tests and fuzzers, and the code map checked against the imports (`cargo test --test pipeline`; one file with e.g.
 //! `cargo test --test pipeline onnx_import::`, the fuzzers with `properties::fuzz::`).
 //!
 //! Grouped into one binary so that the link of plumbline's heavy dependencies (actix-web,
@@ -10,6 +10,7 @@
 #[path = "../common/mod.rs"]
 mod common;
 
+mod architecture;
 mod bad_artifacts;
 mod decide_demo;
 mod demo_models;

@@ -1,5 +1,6 @@
-//! A small seeded random source for generated data: SplitMix64 plus the few distributions the
-//! demo generator needs. Same seed, same numbers, on every platform.
+//! A small seeded random source: SplitMix64 plus the few distributions the demo generator, the
+//! stratified background sample and sampled Shapley estimates need. Same seed, same numbers, on
+//! every platform.
 
 pub struct Rng(u64);
 
