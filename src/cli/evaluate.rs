@@ -74,8 +74,7 @@ pub fn run(model: &Path, data: &Path, target: Option<&str>, costs: (f64, f64), j
             report: &r,
             stability: &shifts,
         };
-        println!("{}", serde_json::to_string_pretty(&out).unwrap_or_default());
-        return 0;
+        return super::print_pretty(&out).map_or_else(|code| code, |()| 0);
     }
     let mut s = String::new();
     let _ = writeln!(

@@ -56,7 +56,9 @@ pub fn run(args: FairnessArgs) -> i32 {
                 }
             }
             if args.json {
-                println!("{}", serde_json::to_string_pretty(&r).unwrap_or_default());
+                if let Err(code) = super::print_pretty(&r) {
+                    return code;
+                }
             } else {
                 print!("{}", text(&r));
             }

@@ -15,10 +15,9 @@ pub fn run(path: &Path, as_json: bool) -> i32 {
         Err(code) => return code,
     };
     if as_json {
-        println!(
-            "{}",
-            serde_json::to_string_pretty(&summary(&model)).expect("summary serialises")
-        );
+        if let Err(code) = super::print_pretty(&summary(&model)) {
+            return code;
+        }
     } else {
         print!("{}", text(&model));
     }

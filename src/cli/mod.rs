@@ -248,6 +248,31 @@ pub fn run(cli: Cli) -> i32 {
     }
 }
 
+/// `value` as pretty JSON and a newline. A value that cannot be written is a failure with its
+/// cause (exit 1), never empty output that exits 0.
+fn pretty<T: serde::Serialize>(value: &T) -> Result<String, (i32, String)> {
+    (serde_json::to_string_pretty(value).map(|text| text + "\n")).map_err(|e| {
+        (
+            EXIT_FAILURE,
+            format!("cannot write the output as JSON: {e}"),
+        )
+    })
+}
+
+/// Prints `value` as pretty JSON on stdout; on failure prints why and gives the exit status.
+fn print_pretty<T: serde::Serialize>(value: &T) -> Result<(), i32> {
+    match pretty(value) {
+        Ok(text) => {
+            print!("{text}");
+            Ok(())
+        }
+        Err((code, message)) => {
+            eprintln!("error: {message}");
+            Err(code)
+        }
+    }
+}
+
 fn load(path: &std::path::Path) -> Result<crate::LoadedModel, i32> {
     crate::LoadedModel::from_path(path).map_err(|e| {
         eprintln!("error: model {}: {e}", path.display());

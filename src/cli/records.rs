@@ -192,7 +192,7 @@ fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, Strin
         }
         RecordsCommand::AdverseAction { decision_id } => {
             match notice::adverse_action(&found(decision_id, "adverse_action")?) {
-                Ok(n) => write(&(serde_json::to_string_pretty(&n).unwrap_or_default() + "\n")),
+                Ok(n) => write(&super::pretty(&n)?),
                 Err(notice::NoNotice::Approved) => Err(bad(format!(
                     "decision {decision_id} was an approval; no adverse action was taken"
                 ))),
@@ -228,7 +228,7 @@ fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, Strin
                 .collect::<Result<_, _>>()
                 .map_err(failed)?;
             let body = serde_json::json!({"decisions": views, "next_cursor": page.next.map(|c| c.encode())});
-            write(&(serde_json::to_string_pretty(&body).unwrap_or_default() + "\n"))
+            write(&super::pretty(&body)?)
         }
         RecordsCommand::Export { filters, format } => {
             let format =
@@ -280,11 +280,7 @@ fn run_on(store: &dyn Store, command: &RecordsCommand) -> Result<(), (i32, Strin
                 &format!("from={from}&to={to}"),
                 Some(entries.len() as i64),
             )?;
-            write(
-                &(serde_json::to_string_pretty(&serde_json::json!({"entries": entries}))
-                    .unwrap_or_default()
-                    + "\n"),
-            )
+            write(&super::pretty(&serde_json::json!({"entries": entries}))?)
         }
     };
     result?;

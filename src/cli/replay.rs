@@ -216,10 +216,9 @@ pub fn run(args: ReplayArgs) -> i32 {
         }
     }
     if args.json {
-        println!(
-            "{}",
-            serde_json::to_string_pretty(&report).unwrap_or_default()
-        );
+        if let Err(code) = super::print_pretty(&report) {
+            return code;
+        }
     } else {
         print!("{}", report.summary());
     }

@@ -137,10 +137,9 @@ pub fn draft_spec(data: &std::path::Path, target: &str, kind: ModelKind) -> i32 
                 spec["forest"] =
                     serde_json::json!({"trees": 100, "max_depth": 8, "min_samples_leaf": 20});
             }
-            println!(
-                "{}",
-                serde_json::to_string_pretty(&spec).unwrap_or_default()
-            );
+            if let Err(code) = super::print_pretty(&spec) {
+                return code;
+            }
             eprintln!(
                 "draft printed: check every kind, range, level and missing-value policy; rewrite each \"{}\" text; set the cutoffs and scaling the product's policy gives; then run train",
                 crate::train::draft::DRAFT_MARK
