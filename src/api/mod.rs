@@ -8,6 +8,7 @@ pub mod auth;
 mod batch;
 mod body;
 mod compliance;
+mod console;
 mod decisions;
 mod fairness;
 mod metrics;
@@ -284,6 +285,8 @@ pub fn start(config: ServeConfig) -> Result<Running, StartError> {
             .service(resource("/health/ready", "GET", web::get().to(routes::ready)))
             .service(resource("/metrics", "GET", web::get().to(routes::metrics)))
             .service(resource("/openapi.json", "GET", web::get().to(openapi::serve)))
+            .service(resource("/console", "GET", web::get().to(console::redirect)))
+            .service(resource("/console/{file:.*}", "GET", web::get().to(console::file)))
             .default_service(web::to(routes::not_found))
     })
     .workers(config.workers.max(1))

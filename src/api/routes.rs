@@ -11,7 +11,8 @@ use actix_web::{web, HttpRequest, HttpResponse};
 use serde::Serialize;
 use utoipa::ToSchema;
 
-const READERS: &[Role] = &[Role::Scoring, Role::Review];
+/// Underwriters read models too: a final action's reasons come from the decision's model.
+const READERS: &[Role] = &[Role::Scoring, Role::Review, Role::Underwriting];
 const ADMINS: &[Role] = &[Role::Admin];
 
 /// What a loaded model is: identity, digest, fields, cutoffs and reasons.
@@ -30,6 +31,21 @@ pub struct ModelSummary {
     pub decline_at_or_above: f64,
     pub fields: Vec<FieldSummary>,
     pub reasons: Vec<ReasonSummary>,
+    /// Most principal reasons a decision or a final decline gives.
+    pub max_reasons: usize,
+    /// The codes an underwriter's final decline may give, in table order then the manual-review
+    /// reasons: a field's reason (`model`), a decline rule's (`rule`), or the artifact's
+    /// `review_reasons` (`review`). A refer rule's code says why an application was referred,
+    /// not why it was declined, and is not among them.
+    pub decline_reasons: Vec<DeclineReason>,
+}
+
+#[derive(Serialize, ToSchema)]
+pub struct DeclineReason {
+    pub code: String,
+    pub text: String,
+    /// `model`, `rule` or `review`.
+    pub source: &'static str,
 }
 
 #[derive(Serialize, ToSchema)]
@@ -99,12 +115,20 @@ fn summary(m: &LoadedModel, champion: bool) -> ModelSummary {
                 text: r.text.clone(),
             })
             .collect(),
+        max_reasons: m.policy.max_reasons,
+        decline_reasons: (super::underwriting::decline_reasons(m).into_iter())
+            .map(|(r, source)| DeclineReason {
+                code: r.code.clone(),
+                text: r.text.clone(),
+                source,
+            })
+            .collect(),
     }
 }
 
 /// The loaded models.
 #[utoipa::path(get, path = "/v1/models", tag = "models",
-    responses((status = 200, body = Vec<ModelSummary>), (status = 401, body = Problem, content_type = "application/problem+json"), (status = 403, description = "Only scoring and review keys may list models", body = Problem, content_type = "application/problem+json")),
+    responses((status = 200, body = Vec<ModelSummary>), (status = 401, body = Problem, content_type = "application/problem+json"), (status = 403, description = "Only scoring, review and underwriting keys may list models", body = Problem, content_type = "application/problem+json")),
     security(("api_key" = [])))]
 pub async fn get_models(
     state: web::Data<State>,
@@ -122,7 +146,7 @@ pub async fn get_models(
 
 /// One loaded model by id (the first-listed version when several are loaded).
 #[utoipa::path(get, path = "/v1/models/{id}", tag = "models", params(("id" = String, Path, description = "model id")),
-    responses((status = 200, body = ModelSummary), (status = 401, body = Problem, content_type = "application/problem+json"), (status = 403, description = "Only scoring and review keys may read models", body = Problem, content_type = "application/problem+json"), (status = 404, body = Problem, content_type = "application/problem+json")),
+    responses((status = 200, body = ModelSummary), (status = 401, body = Problem, content_type = "application/problem+json"), (status = 403, description = "Only scoring, review and underwriting keys may read models", body = Problem, content_type = "application/problem+json"), (status = 404, body = Problem, content_type = "application/problem+json")),
     security(("api_key" = [])))]
 pub async fn get_model(
     state: web::Data<State>,

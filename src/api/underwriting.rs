@@ -268,6 +268,25 @@ fn check(body: &Value) -> Result<Checked, InputError> {
     }
 }
 
+/// Every reason a final decline may give, with where it comes from: the reason table's codes
+/// that a field or a decline rule carries, then the manual-review reasons (the checks of
+/// [`reasons_of`] read the other way).
+pub(super) fn decline_reasons(model: &LoadedModel) -> Vec<(&crate::reasons::Reason, &'static str)> {
+    let mut out = Vec::new();
+    for (place, reason) in model.reasons.indexed() {
+        let by_field = model.schema.fields.iter().any(|f| f.reason == Some(place));
+        let by_decline_rule = (model.policy.rules.iter())
+            .any(|rule| rule.reason == place && rule.action == RuleAction::Decline);
+        if by_field {
+            out.push((reason, "model"));
+        } else if by_decline_rule {
+            out.push((reason, "rule"));
+        }
+    }
+    out.extend(model.review_reasons.iter().map(|r| (r, "review")));
+    out
+}
+
 /// A decline's reasons against the decision's own model: each code with its text and where it
 /// comes from, or every code at fault.
 fn reasons_of(model: &LoadedModel, codes: &[String]) -> Result<Vec<GivenReason>, InputError> {

@@ -27,7 +27,7 @@ fn p_value(v: Option<f64>) -> String {
     }
 }
 
-const STYLE: &str = "body{font-family:system-ui,sans-serif;margin:2rem;color:#111;max-width:64rem}
+pub const STYLE: &str = "body{font-family:system-ui,sans-serif;margin:2rem;color:#111;max-width:64rem}
 h1{font-size:1.4rem}h2{font-size:1.15rem;margin-top:2rem;border-top:1px solid #999;padding-top:1rem}
 table{border-collapse:collapse;margin:.5rem 0}th,td{border:1px solid #bbb;padding:.25rem .5rem;text-align:right}
 th:first-child,td:first-child{text-align:left}.caution{border:2px solid #333;padding:.75rem;background:#f4f4f4}
@@ -89,52 +89,91 @@ fn rate_chart(d: &DimensionResult) -> String {
     s
 }
 
-/// Approval rate per group against the approve cutoff.
+/// Approval rate per group against the approve cutoff. Each group's line has its own dash
+/// pattern and width (told apart in greyscale print), a legend names them below the axis, and
+/// the names at the lines' ends are spread apart so that no two overlap.
 fn sweep_chart(d: &DimensionResult) -> String {
-    let (w, h, left, bottom) = (640.0, 260.0, 48.0, 36.0);
+    const LABEL_GAP: f64 = 13.0;
+    let (w, plot_h, left, bottom, right) = (640.0, 260.0, 48.0, 36.0, 110.0);
+    let legend_rows = d.groups.len().div_ceil(3);
+    let h = plot_h + 10.0 + 18.0 * legend_rows as f64;
     let cutoffs: Vec<f64> = d.sweep.iter().map(|p| p.cutoff).collect();
     let (lo, hi) = (
         cutoffs.first().copied().unwrap_or(0.0),
         cutoffs.last().copied().unwrap_or(1.0),
     );
-    let x = |c: f64| left + (c - lo) / (hi - lo).max(1e-9) * (w - left - 90.0);
-    let y = |r: f64| h - bottom - r * (h - bottom - 10.0);
-    let dashes = ["", "6 3", "2 3", "8 3 2 3", "1 2", "10 4"];
-    let mut s = format!("<svg role=\"img\" aria-label=\"Approval rate by cutoff\" width=\"{w}\" height=\"{h}\" viewBox=\"0 0 {w} {h}\">");
+    let x = |c: f64| left + (c - lo) / (hi - lo).max(1e-9) * (w - left - right);
+    let y = |r: f64| plot_h - bottom - r * (plot_h - bottom - 10.0);
+    let dashes = ["", "7 3", "2 3", "9 3 2 3", "1 2", "12 4"];
+    let widths = [2.2, 1.6, 1.6, 1.4, 2.0, 1.2];
+    let style = |gi: usize| (dashes[gi % dashes.len()], widths[gi % widths.len()]);
+    let mut s = format!("<svg role=\"img\" aria-label=\"Approval rate by cutoff, one line per group\" width=\"{w}\" height=\"{h}\" viewBox=\"0 0 {w} {h}\">");
     for t in [0.0, 0.5, 1.0] {
-        let _ = write!(s, "<line x1=\"{left}\" x2=\"{}\" y1=\"{yy}\" y2=\"{yy}\" stroke=\"#ddd\"/><text x=\"{}\" y=\"{}\" text-anchor=\"end\">{:.0}%</text>", w - 90.0, left - 4.0, y(t) + 4.0, 100.0 * t, yy = y(t));
+        let _ = write!(s, "<line x1=\"{left}\" x2=\"{}\" y1=\"{yy}\" y2=\"{yy}\" stroke=\"#ddd\"/><text x=\"{}\" y=\"{}\" text-anchor=\"end\">{:.0}%</text>", w - right, left - 4.0, y(t) + 4.0, 100.0 * t, yy = y(t));
     }
     for c in cutoffs.iter().step_by((cutoffs.len() / 6).max(1)) {
         let _ = write!(
             s,
             "<text x=\"{:.1}\" y=\"{}\" text-anchor=\"middle\">{c:.2}</text>",
             x(*c),
-            h - bottom + 14.0
+            plot_h - bottom + 14.0
         );
     }
-    let _ = write!(s, "<text x=\"{:.1}\" y=\"{}\" text-anchor=\"middle\">approve below this probability of default</text>", left + (w - left - 90.0) / 2.0, h - 4.0);
-    for (gi, name) in d.groups.iter().map(|g| &g.group).enumerate() {
-        let points: Vec<String> = d
-            .sweep
-            .iter()
-            .filter_map(|p| {
-                p.groups
-                    .get(gi)?
-                    .approval_rate
-                    .map(|r| format!("{:.1},{:.1}", x(p.cutoff), y(r)))
-            })
+    let _ = write!(s, "<text x=\"{:.1}\" y=\"{}\" text-anchor=\"middle\">approve below this probability of default</text>", left + (w - left - right) / 2.0, plot_h - 4.0);
+    // Each line, and where it ends (the end label's wanted height).
+    let mut ends: Vec<(f64, f64, usize)> = Vec::new();
+    for (gi, _) in d.groups.iter().enumerate() {
+        let points: Vec<(f64, f64)> = (d.sweep.iter())
+            .filter_map(|p| Some((x(p.cutoff), y(p.groups.get(gi)?.approval_rate?))))
             .collect();
-        if let Some(last) = points.last() {
-            let dash = dashes[gi % dashes.len()];
-            let _ = write!(s, "<polyline points=\"{}\" fill=\"none\" stroke=\"#222\" stroke-dasharray=\"{dash}\"/>", points.join(" "));
-            let (lx, ly) = last.split_once(',').unwrap_or(("0", "0"));
-            let _ = write!(
-                s,
-                "<text x=\"{}\" y=\"{ly}\">{}</text>",
-                lx.parse::<f64>().unwrap_or(0.0) + 4.0,
-                esc(name)
-            );
+        let Some(&(lx, ly)) = points.last() else {
+            continue;
+        };
+        let (dash, width) = style(gi);
+        let list: Vec<String> = points
+            .iter()
+            .map(|(a, b)| format!("{a:.1},{b:.1}"))
+            .collect();
+        let _ = write!(s, "<polyline points=\"{}\" fill=\"none\" stroke=\"#222\" stroke-width=\"{width}\" stroke-dasharray=\"{dash}\"/>", list.join(" "));
+        ends.push((ly, lx, gi));
+    }
+    // End labels in line order from the top, each at least LABEL_GAP below the one above, then
+    // moved up together if the last would leave the plot; a leader joins label and line.
+    ends.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let mut placed: Vec<f64> = Vec::with_capacity(ends.len());
+    for (i, (want, _, _)) in ends.iter().enumerate() {
+        let floor = if i == 0 {
+            10.0
+        } else {
+            placed[i - 1] + LABEL_GAP
+        };
+        placed.push(want.max(floor));
+    }
+    let limit = plot_h - bottom;
+    if let Some(&last) = placed.last() {
+        if last > limit {
+            let shift = last - limit;
+            for p in placed.iter_mut() {
+                *p -= shift;
+            }
         }
+    }
+    let label_x = w - right + 14.0;
+    for ((ly, lx, gi), at) in ends.iter().zip(&placed) {
+        let _ = write!(
+            s,
+            "<line x1=\"{lx:.1}\" y1=\"{ly:.1}\" x2=\"{:.1}\" y2=\"{at:.1}\" stroke=\"#777\" stroke-width=\"0.6\"/><text x=\"{label_x:.1}\" y=\"{:.1}\">{}</text>",
+            label_x - 3.0,
+            at + 4.0,
+            esc(&d.groups[*gi].group)
+        );
+    }
+    // The legend: each group's line style and name, three to a row.
+    for (gi, g) in d.groups.iter().enumerate() {
+        let (dash, width) = style(gi);
+        let lx = left + 190.0 * (gi % 3) as f64;
+        let ly = plot_h + 8.0 + 18.0 * (gi / 3) as f64;
+        let _ = write!(s, "<line x1=\"{lx:.1}\" x2=\"{:.1}\" y1=\"{ly:.1}\" y2=\"{ly:.1}\" stroke=\"#222\" stroke-width=\"{width}\" stroke-dasharray=\"{dash}\"/><text x=\"{:.1}\" y=\"{:.1}\">{}</text>", lx + 34.0, lx + 40.0, ly + 4.0, esc(&g.group));
     }
     s.push_str("</svg>");
     s

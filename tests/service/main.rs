@@ -16,6 +16,7 @@ mod api;
 mod api_fairness;
 mod api_recorded;
 mod api_records;
+mod console;
 mod edges;
 mod records;
 mod records_durability;
