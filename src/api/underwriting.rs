@@ -457,3 +457,37 @@ async fn look_up(
         .map_err(|e| Problem::store_failed(&e))?
         .ok_or_else(|| Problem::unknown_decision(&id))
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// What the model summary offers an underwriter is exactly what the final action accepts:
+    /// each listed code alone is a valid decline, and every code of the table left out (a refer
+    /// rule's) is refused.
+    #[test]
+    fn the_listed_decline_reasons_are_the_accepted_ones() {
+        let model = LoadedModel::from_path(std::path::Path::new("models/fernhill-logistic.json"))
+            .expect("the demo model loads");
+        let listed: Vec<String> = (decline_reasons(&model).into_iter())
+            .map(|(r, _)| r.code.clone())
+            .collect();
+        for code in &listed {
+            let given = reasons_of(&model, std::slice::from_ref(code)).expect("accepted");
+            assert_eq!(given[0].code, *code);
+        }
+        let left_out: Vec<&String> = (model.reasons.reasons.iter())
+            .map(|r| &r.code)
+            .filter(|c| !listed.contains(c))
+            .collect();
+        assert_eq!(left_out, ["AMT_LIMIT"], "the demo's one refer rule");
+        for code in left_out {
+            let refused = reasons_of(&model, std::slice::from_ref(code)).unwrap_err();
+            assert_eq!(refused.errors[0].rule, "refer_rule");
+        }
+        assert!(
+            listed.contains(&"MR_DOCS".to_string()),
+            "review reasons are listed"
+        );
+    }
+}
