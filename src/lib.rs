@@ -21,6 +21,7 @@ pub mod fairness;
 pub mod features;
 pub mod import;
 pub mod model;
+pub mod monitor;
 pub mod onnx;
 pub mod policy;
 pub mod progress;

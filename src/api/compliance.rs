@@ -63,7 +63,7 @@ pub(super) async fn log_access(store: &Arc<dyn Store>, entry: Access) -> Result<
     blocking(move || store.log_access(&entry)).await
 }
 
-async fn blocking<T: Send + 'static>(
+pub(super) async fn blocking<T: Send + 'static>(
     f: impl FnOnce() -> Result<T, crate::records::StoreError> + Send + 'static,
 ) -> Result<T, Problem> {
     web::block(f)
@@ -173,7 +173,7 @@ pub(super) fn page_size(params: &HashMap<String, String>) -> Result<usize, Probl
 }
 
 /// Unknown parameters are named in a 400 rather than ignored.
-fn parse_query(
+pub(super) fn parse_query(
     req: &HttpRequest,
     extra: &[&str],
 ) -> Result<(Query, HashMap<String, String>), Problem> {

@@ -24,6 +24,16 @@ pub struct Metrics {
     requests: Mutex<BTreeMap<(String, String, u16), Latency>>,
     /// (model id, version, outcome) -> count
     decisions: Mutex<BTreeMap<(String, String, &'static str), u64>>,
+    /// (model id, version, distribution) -> the PSI of the latest stability report, set when a
+    /// report is computed (on demand), never on a scrape.
+    stability: Mutex<BTreeMap<(String, String, String), f64>>,
+}
+
+/// A label value as the text format writes it (backslash, quote and newline escaped).
+fn label(v: &str) -> String {
+    v.replace('\\', "\\\\")
+        .replace('"', "\\\"")
+        .replace('\n', "\\n")
 }
 
 /// Methods counted by name; any other is counted as `other`, so a client cannot grow the label
@@ -55,6 +65,17 @@ impl Metrics {
         let mut map = self.decisions.lock().unwrap_or_else(|e| e.into_inner());
         *map.entry((model.to_string(), version.to_string(), outcome))
             .or_default() += 1;
+    }
+
+    /// The latest stability report's PSI per distribution, for the gauges.
+    pub fn observe_stability(&self, model: &str, version: &str, psi: &[(String, f64)]) {
+        let mut map = self.stability.lock().unwrap_or_else(|e| e.into_inner());
+        for (name, value) in psi {
+            map.insert(
+                (model.to_string(), version.to_string(), name.clone()),
+                *value,
+            );
+        }
     }
 
     pub fn render(&self) -> String {
@@ -109,6 +130,15 @@ impl Metrics {
             .iter()
         {
             let _ = writeln!(s, "plumbline_decisions_total{{model=\"{model}\",version=\"{version}\",outcome=\"{outcome}\"}} {n}");
+        }
+        let _ = writeln!(s, "# HELP plumbline_stability_psi Population stability index of the score and of each field, from the latest stability report per model (GET /v1/monitoring/stability computes it).");
+        let _ = writeln!(s, "# TYPE plumbline_stability_psi gauge");
+        for ((model, version, name), v) in (self.stability.lock())
+            .unwrap_or_else(|e| e.into_inner())
+            .iter()
+        {
+            let (m, ver, n) = (label(model), label(version), label(name));
+            let _ = writeln!(s, "plumbline_stability_psi{{model=\"{m}\",version=\"{ver}\",distribution=\"{n}\"}} {v}");
         }
         s
     }

@@ -354,6 +354,17 @@ impl Problem {
         )
     }
 
+    /// Stability needs the development sample's bins, which artifacts trained or imported by
+    /// this release carry.
+    pub fn no_development_bins(id: &str, version: &str) -> Self {
+        Problem::new(
+            StatusCode::CONFLICT,
+            "/problems/no-development-bins",
+            "The model's artifact carries no development bins",
+            format!("{id} version {version} has no `stability` section to compare with; train or import it with this release"),
+        )
+    }
+
     pub fn model_not_loaded(id: &str, version: &str) -> Self {
         Problem::new(
             StatusCode::CONFLICT,

@@ -5,6 +5,7 @@ mod evaluate;
 mod fairness;
 mod import;
 mod inspect;
+mod monitor;
 mod progress;
 mod records;
 mod replay;
@@ -155,6 +156,9 @@ pub enum Command {
     /// Look up, search and export recorded decisions (the service's compliance look-ups, on the
     /// store directly).
     Records(records::RecordsArgs),
+    /// Ongoing monitoring over the recorded decisions: population stability of the score and
+    /// every field against the artifact's development bins.
+    Monitor(monitor::MonitorArgs),
     /// Decide recorded requests again with a model file or a running service and compare with
     /// what was given: unchanged, probability-only, reason changes, decision flips. Exit 3 when
     /// anything moved beyond tolerance.
@@ -190,6 +194,7 @@ pub fn run(cli: Cli) -> i32 {
         } => score::run(&model, input.as_deref(), reference),
         Command::Serve(args) => serve::run(args),
         Command::Records(args) => records::run(args),
+        Command::Monitor(args) => monitor::run(args),
         Command::Fairness(args) => fairness::run(args),
         Command::Replay(args) => replay::run(args),
         Command::HashKey { name, role } => serve::hash_key(&name, role),

@@ -102,7 +102,7 @@ impl Filters {
 
 /// A read of the records from the command line, for the access log: the operating-system
 /// user, as the service logs a key's name.
-fn access(action: &str, target: &str, records: Option<i64>) -> crate::records::Access {
+pub(super) fn access(action: &str, target: &str, records: Option<i64>) -> crate::records::Access {
     let user = std::env::var("USER")
         .or_else(|_| std::env::var("USERNAME"))
         .unwrap_or_else(|_| "unknown".into());

@@ -18,6 +18,7 @@ mod api_recorded;
 mod api_records;
 mod console;
 mod edges;
+mod monitoring;
 mod records;
 mod records_durability;
 mod store_stalls;

@@ -1,0 +1,117 @@
+//! GET /v1/monitoring/stability (review role): population stability of a loaded model's recorded
+//! decisions in a range against its artifact's development bins, as JSON or a printable page.
+//! The records stream past a tally on the blocking pool (memory holds one count per bin), the
+//! read is written to the access log, and the `plumbline_stability_psi` gauges take the result.
+
+use super::auth::Role;
+use super::compliance::{access, blocking, log_access, parse_query, store_for};
+use super::problem::Problem;
+use super::State;
+use crate::monitor::{html, Stability, StabilityTally};
+use actix_web::{web, HttpRequest, HttpResponse};
+
+const REVIEWERS: &[Role] = &[Role::Review];
+/// The parameters this route takes (the records filters beyond them do not apply).
+const PARAMETERS: [&str; 5] = ["model_id", "model_version", "from", "to", "format"];
+
+/// Population stability of the score and every field.
+#[utoipa::path(get, path = "/v1/monitoring/stability", tag = "monitoring",
+    params(
+        ("model_id" = String, Query, description = "The loaded model whose decisions are read (its development bins are the baseline)"),
+        ("model_version" = Option<String>, Query, description = "Its version (default: the loaded one with that id)"),
+        ("from" = Option<super::params::TimeParam>, Query, description = "Decided at or after (RFC 3339 UTC, or a date)"),
+        ("to" = Option<super::params::TimeParam>, Query, description = "Decided before (a date includes that whole day)"),
+        ("format" = Option<super::params::ReportFormat>, Query, description = "json (default) or html"),
+    ),
+    responses(
+        (status = 200, description = "PSI of the score and of every field with its band (below 0.10 stable, 0.10 to 0.25 watch, above 0.25 act: common practice), the missing-share shift and the bins; or the same as a printable HTML page with SVG charts", body = Stability),
+        (status = 400, description = "A bad or unknown parameter, or model_id missing", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "Only review keys may read monitoring", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "The model is not loaded, or the service keeps no records", body = Problem, content_type = "application/problem+json"),
+        (status = 409, description = "The artifact carries no development bins", body = Problem, content_type = "application/problem+json"),
+        (status = 429, description = "As many reports and exports as the service runs at once are running; retry after the Retry-After seconds", body = Problem, content_type = "application/problem+json",
+            headers(("Retry-After" = u64, description = "seconds to wait"))),
+        (status = 503, description = "The store could not be read", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("api_key" = [])))]
+pub async fn stability(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
+    let (store, caller) = store_for(&state, &req, REVIEWERS)?;
+    let (mut query, params) = parse_query(&req, &["format"])?;
+    if let Some(other) = params.keys().find(|k| !PARAMETERS.contains(&k.as_str())) {
+        return Err(Problem::bad_query(
+            other,
+            "known_parameter",
+            format!(
+                "not a parameter of this route; use {}",
+                PARAMETERS.join(", ")
+            ),
+        ));
+    }
+    let html_page = match params.get("format").map(String::as_str) {
+        None | Some("json") => false,
+        Some("html") => true,
+        Some(_) => return Err(Problem::bad_query("format", "one_of", "json or html")),
+    };
+    let Some(model_id) = query.model_id.clone() else {
+        return Err(Problem::bad_query(
+            "model_id",
+            "required",
+            "the loaded model whose decisions are read",
+        ));
+    };
+    let set = state.registry.current();
+    let model = (set.models.iter())
+        .find(|m| {
+            m.identity.model_id == model_id
+                && query
+                    .model_version
+                    .as_ref()
+                    .is_none_or(|v| *v == m.identity.version)
+        })
+        .ok_or_else(|| {
+            let what = match &query.model_version {
+                Some(v) => format!("{model_id} version {v}"),
+                None => model_id.clone(),
+            };
+            Problem::unknown_model(&what)
+        })?
+        .clone();
+    let version = model.identity.version.clone();
+    let Some(dev) = model.stability.clone() else {
+        return Err(Problem::no_development_bins(&model_id, &version));
+    };
+    query.model_version = Some(version.clone());
+    let slot = state.report_slot()?;
+    let read = store.clone();
+    let (id, ver) = (model_id.clone(), version.clone());
+    let (report, counted): (Stability, u64) = blocking(move || {
+        let _slot = slot;
+        let mut tally = StabilityTally::new(&dev);
+        let range = (query.from.clone(), query.to.clone());
+        let n = read.export(&query, &mut |r| {
+            tally.add_record(r);
+            true
+        })?;
+        Ok((tally.finish((&id, &ver), range), n))
+    })
+    .await?;
+    let entry = access(
+        &caller,
+        &req,
+        "stability",
+        req.query_string(),
+        Some(counted as i64),
+    );
+    log_access(&store, entry).await?;
+    let psi: Vec<(String, f64)> = (report.distributions.iter())
+        .map(|d| (d.name.clone(), d.psi))
+        .collect();
+    state.metrics.observe_stability(&model_id, &version, &psi);
+    if html_page {
+        return Ok(HttpResponse::Ok()
+            .content_type("text/html; charset=utf-8")
+            .body(html::page(&report)));
+    }
+    Ok(super::json(&report))
+}
