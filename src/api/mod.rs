@@ -281,6 +281,7 @@ pub fn start(config: ServeConfig) -> Result<Running, StartError> {
             .service(resource("/v1/models/{id}", "GET", web::get().to(routes::get_model)))
             .service(resource("/v1/fairness/reports", "POST", web::post().to(fairness::create_report)))
             .service(resource("/v1/monitoring/stability", "GET", web::get().to(monitoring::stability)))
+            .service(resource("/v1/monitoring/reasons", "GET", web::get().to(monitoring::reasons)))
             .service(resource("/v1/admin/reload", "POST", web::post().to(routes::reload)))
             .service(resource("/v1/admin/access", "GET", web::get().to(access::get_access)))
             .service(resource("/health/live", "GET", web::get().to(routes::live)))

@@ -1,5 +1,6 @@
-//! GET /v1/monitoring/stability (review role): population stability of a loaded model's recorded
-//! decisions in a range against its artifact's development bins, as JSON or a printable page.
+//! GET /v1/monitoring/stability and /v1/monitoring/reasons (review role): population stability
+//! of a loaded model's recorded decisions against its development bins, and reason trends among
+//! declines and referrals by period, as JSON (or CSV) or a printable page.
 //! The records stream past a tally on the blocking pool (memory holds one count per bin), the
 //! read is written to the access log, and the `plumbline_stability_psi` gauges take the result.
 
@@ -7,7 +8,7 @@ use super::auth::Role;
 use super::compliance::{access, blocking, log_access, parse_query, store_for};
 use super::problem::Problem;
 use super::State;
-use crate::monitor::{html, Stability, StabilityTally};
+use crate::monitor::{html, Period, ReasonTrends, Stability, StabilityTally, TrendTally};
 use actix_web::{web, HttpRequest, HttpResponse};
 
 const REVIEWERS: &[Role] = &[Role::Review];
@@ -114,4 +115,100 @@ pub async fn stability(state: web::Data<State>, req: HttpRequest) -> Result<Http
             .body(html::page(&report)));
     }
     Ok(super::json(&report))
+}
+
+/// The parameters of the reason-trend route.
+const TREND_PARAMETERS: [&str; 6] = [
+    "model_id",
+    "model_version",
+    "from",
+    "to",
+    "period",
+    "format",
+];
+
+/// How often each reason code was a principal reason among declines and referrals, by period.
+#[utoipa::path(get, path = "/v1/monitoring/reasons", tag = "monitoring",
+    params(
+        ("model_id" = String, Query, description = "The model whose decisions are read"),
+        ("model_version" = Option<String>, Query, description = "One version only (default: every version, each with its own periods)"),
+        ("from" = Option<super::params::TimeParam>, Query, description = "Decided at or after (RFC 3339 UTC, or a date)"),
+        ("to" = Option<super::params::TimeParam>, Query, description = "Decided before (a date includes that whole day)"),
+        ("period" = Option<String>, Query, description = "week (ISO 8601) or month (default), UTC"),
+        ("format" = Option<String>, Query, description = "json (default), csv or html"),
+    ),
+    responses(
+        (status = 200, description = "Per period and model version: declines, referrals, and each code's count, share and change in share against the version's previous period; or the same as CSV lines or a printable page with a chart per code", body = ReasonTrends),
+        (status = 400, description = "A bad or unknown parameter, or model_id missing", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "Only review keys may read monitoring", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "The service keeps no records", body = Problem, content_type = "application/problem+json"),
+        (status = 429, description = "As many reports and exports as the service runs at once are running; retry after the Retry-After seconds", body = Problem, content_type = "application/problem+json",
+            headers(("Retry-After" = u64, description = "seconds to wait"))),
+        (status = 503, description = "The store could not be read", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("api_key" = [])))]
+pub async fn reasons(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
+    let (store, caller) = store_for(&state, &req, REVIEWERS)?;
+    let (query, params) = parse_query(&req, &["format", "period"])?;
+    if let Some(other) = params
+        .keys()
+        .find(|k| !TREND_PARAMETERS.contains(&k.as_str()))
+    {
+        return Err(Problem::bad_query(
+            other,
+            "known_parameter",
+            format!(
+                "not a parameter of this route; use {}",
+                TREND_PARAMETERS.join(", ")
+            ),
+        ));
+    }
+    let format = params.get("format").map_or("json", String::as_str);
+    if !matches!(format, "json" | "csv" | "html") {
+        return Err(Problem::bad_query("format", "one_of", "json, csv or html"));
+    }
+    let period = match params.get("period") {
+        None => Period::Month,
+        Some(p) => Period::from_name(p)
+            .ok_or_else(|| Problem::bad_query("period", "one_of", "week or month"))?,
+    };
+    let Some(model_id) = query.model_id.clone() else {
+        return Err(Problem::bad_query(
+            "model_id",
+            "required",
+            "the model whose decisions are read",
+        ));
+    };
+    let slot = state.report_slot()?;
+    let read = store.clone();
+    let id = model_id.clone();
+    let (report, counted): (ReasonTrends, u64) = blocking(move || {
+        let _slot = slot;
+        let mut tally = TrendTally::new(period);
+        let range = (query.from.clone(), query.to.clone());
+        let n = read.export(&query, &mut |r| {
+            tally.add_record(r);
+            true
+        })?;
+        Ok((tally.finish(&id, range), n))
+    })
+    .await?;
+    let entry = access(
+        &caller,
+        &req,
+        "reason_trends",
+        req.query_string(),
+        Some(counted as i64),
+    );
+    log_access(&store, entry).await?;
+    Ok(match format {
+        "csv" => HttpResponse::Ok()
+            .content_type("text/csv; charset=utf-8")
+            .body(report.csv()),
+        "html" => HttpResponse::Ok()
+            .content_type("text/html; charset=utf-8")
+            .body(html::trends_page(&report)),
+        _ => super::json(&report),
+    })
 }

@@ -2,7 +2,7 @@
 //! line (the service's `GET /v1/monitoring/...` gives the same reports).
 
 use super::{EXIT_BAD_INPUT, EXIT_FAILURE};
-use crate::monitor::{html, StabilityTally};
+use crate::monitor::{html, Period, StabilityTally, TrendTally};
 use clap::{Args, Subcommand};
 use std::path::PathBuf;
 
@@ -42,16 +42,72 @@ pub enum MonitorCommand {
         #[arg(long)]
         html: Option<PathBuf>,
     },
+    /// How often each reason code was a principal reason among declines and referrals, by
+    /// week or month and model version, with the change against the previous period.
+    Reasons {
+        #[arg(long)]
+        model_id: String,
+        /// One version only (default: every version, each with its own periods).
+        #[arg(long)]
+        model_version: Option<String>,
+        /// Decided at or after (RFC 3339 UTC time or a date).
+        #[arg(long)]
+        from: Option<String>,
+        /// Decided before (a date includes that whole day).
+        #[arg(long)]
+        to: Option<String>,
+        #[arg(long, value_enum, default_value_t = Period::Month)]
+        period: Period,
+        /// Print JSON instead of a table.
+        #[arg(long, conflicts_with = "csv")]
+        json: bool,
+        /// Print CSV lines instead of a table.
+        #[arg(long)]
+        csv: bool,
+        /// Also write the report as a printable HTML page with a chart per code.
+        #[arg(long)]
+        html: Option<PathBuf>,
+    },
 }
 
 pub fn run(args: MonitorArgs) -> i32 {
-    let MonitorCommand::Stability {
-        model,
-        from,
-        to,
-        json,
-        html: html_out,
-    } = &args.command;
+    match &args.command {
+        MonitorCommand::Stability {
+            model,
+            from,
+            to,
+            json,
+            html,
+        } => stability(&args.store, model, (from, to), *json, html.as_deref()),
+        MonitorCommand::Reasons {
+            model_id,
+            model_version,
+            from,
+            to,
+            period,
+            json,
+            csv,
+            html,
+        } => reasons(
+            &args.store,
+            (model_id, model_version.as_deref()),
+            (from, to),
+            *period,
+            (*json, *csv),
+            html.as_deref(),
+        ),
+    }
+}
+
+type Range<'a> = (&'a Option<String>, &'a Option<String>);
+
+fn stability(
+    store_at: &str,
+    model: &std::path::Path,
+    (from, to): Range<'_>,
+    json: bool,
+    html_out: Option<&std::path::Path>,
+) -> i32 {
     let model = match super::load(model) {
         Ok(m) => m,
         Err(code) => return code,
@@ -75,15 +131,9 @@ pub fn run(args: MonitorArgs) -> i32 {
             return EXIT_BAD_INPUT;
         }
     };
-    let store = match crate::records::open_existing(&args.store) {
+    let store = match open(store_at) {
         Ok(s) => s,
-        Err(e) => {
-            eprintln!(
-                "error: store {}: {e}",
-                crate::records::redacted(&args.store)
-            );
-            return EXIT_FAILURE;
-        }
+        Err(code) => return code,
     };
     let mut tally = StabilityTally::new(dev);
     let target = format!("stability model_id={id} model_version={version}");
@@ -106,7 +156,7 @@ pub fn run(args: MonitorArgs) -> i32 {
             return EXIT_FAILURE;
         }
     }
-    if *json {
+    if json {
         return super::print_pretty(&report).map_or_else(|code| code, |()| 0);
     }
     println!(
@@ -139,5 +189,95 @@ pub fn run(args: MonitorArgs) -> i32 {
     }
     println!("\nBands (common practice): below 0.10 stable, 0.10 to 0.25 watch, above 0.25 act.");
     println!("{}", report.caution);
+    0
+}
+
+fn open(store_at: &str) -> Result<std::sync::Arc<dyn crate::records::Store>, i32> {
+    crate::records::open_existing(store_at).map_err(|e| {
+        eprintln!("error: store {}: {e}", crate::records::redacted(store_at));
+        EXIT_FAILURE
+    })
+}
+
+fn reasons(
+    store_at: &str,
+    (id, version): (&str, Option<&str>),
+    (from, to): Range<'_>,
+    period: Period,
+    (json, csv): (bool, bool),
+    html_out: Option<&std::path::Path>,
+) -> i32 {
+    let get = |name: &str| match name {
+        "from" => from.as_deref(),
+        "to" => to.as_deref(),
+        "model_id" => Some(id),
+        "model_version" => version,
+        _ => None,
+    };
+    let query = match crate::records::parse_query(get) {
+        Ok(q) => q,
+        Err(e) => {
+            eprintln!(
+                "error: --{}: {} [{}]",
+                e.param.replace('_', "-"),
+                e.message,
+                e.rule
+            );
+            return EXIT_BAD_INPUT;
+        }
+    };
+    let store = match open(store_at) {
+        Ok(s) => s,
+        Err(code) => return code,
+    };
+    let mut tally = TrendTally::new(period);
+    let read = store.export(&query, &mut |r| {
+        tally.add_record(r);
+        true
+    });
+    let target = format!("reason_trends model_id={id}");
+    let logged = read.and_then(|n| {
+        store.log_access(&super::records::access(
+            "reason_trends",
+            &target,
+            Some(n as i64),
+        ))
+    });
+    if let Err(e) = logged {
+        eprintln!("error: store {}: {e}", store.describe());
+        return EXIT_FAILURE;
+    }
+    let report = tally.finish(id, (query.from.clone(), query.to.clone()));
+    if let Some(path) = html_out {
+        if let Err(e) = std::fs::write(path, html::trends_page(&report)) {
+            eprintln!("error: cannot write {}: {e}", path.display());
+            return EXIT_FAILURE;
+        }
+    }
+    if json {
+        return super::print_pretty(&report).map_or_else(|code| code, |()| 0);
+    }
+    if csv {
+        print!("{}", report.csv());
+        return 0;
+    }
+    println!("reason trends: {id} by {}", period.name());
+    for p in &report.periods {
+        println!(
+            "  {} version {}: {} declines, {} referrals",
+            p.period, p.model_version, p.declines, p.referrals
+        );
+        for r in &p.reasons {
+            let change = r
+                .change
+                .map_or(String::new(), |c| format!(" ({:+.1} pt)", 100.0 * c));
+            println!(
+                "    {:<12} {:>6} {:>6.1}%{change}",
+                r.code,
+                r.count,
+                100.0 * r.share
+            );
+        }
+    }
     0
 }

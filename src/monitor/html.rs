@@ -2,6 +2,7 @@
 //! distribution now against development, and the PSI of every field against the bands.
 
 use super::stability::{FieldStability, Stability};
+use super::trends::ReasonTrends;
 use std::fmt::Write;
 
 fn esc(s: &str) -> String {
@@ -101,5 +102,65 @@ pub fn page(r: &Stability) -> String {
         s.push_str(&distribution_chart(d));
     }
     s.push_str("</body></html>\n");
+    s
+}
+
+/// Reason trends: one small chart per reason code, its share of declines and referrals per
+/// period as bars (one row of charts per model version), then the table.
+pub fn trends_page(r: &ReasonTrends) -> String {
+    let mut s = String::new();
+    let title = format!("Reason trends: {} by {}", r.model_id, r.period.name());
+    let _ = write!(s, "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\"><title>{}</title><style>{STYLE}</style></head><body><h1>{}</h1>", esc(&title), esc(&title));
+    s.push_str("<p class=\"caution\"><strong>Caution.</strong> How often each code was a principal reason among the declines and referrals of each period. A shift can come from applicants, from policy or from the model; read it with the stability report and the lender's own changes.</p>");
+    let mut versions: Vec<&str> = r.periods.iter().map(|p| p.model_version.as_str()).collect();
+    versions.dedup();
+    for version in versions {
+        let periods: Vec<_> = r
+            .periods
+            .iter()
+            .filter(|p| p.model_version == version)
+            .collect();
+        let mut codes: Vec<&str> = periods
+            .iter()
+            .flat_map(|p| p.reasons.iter().map(|x| x.code.as_str()))
+            .collect();
+        codes.sort_unstable();
+        codes.dedup();
+        let _ = write!(s, "<h2>Version {}</h2>", esc(version));
+        let (w, h, left, bottom) = (300.0, 120.0, 34.0, 30.0);
+        let slot = (w - left - 6.0) / periods.len().max(1) as f64;
+        for code in codes {
+            let _ = write!(s, "<svg role=\"img\" aria-label=\"{} share by period\" width=\"{w}\" height=\"{h}\" viewBox=\"0 0 {w} {h}\"><text x=\"{left}\" y=\"12\">{}</text>", esc(code), esc(code));
+            let y = |v: f64| h - bottom - v * (h - bottom - 18.0);
+            let _ = write!(s, "<line x1=\"{left}\" x2=\"{w}\" y1=\"{:.1}\" y2=\"{:.1}\" stroke=\"#999\"/><text x=\"{}\" y=\"{:.1}\" text-anchor=\"end\">0%</text><text x=\"{}\" y=\"{:.1}\" text-anchor=\"end\">100%</text>", y(0.0), y(0.0), left - 3.0, y(0.0) + 4.0, left - 3.0, y(1.0) + 4.0);
+            for (i, p) in periods.iter().enumerate() {
+                let share = (p.reasons.iter())
+                    .find(|x| x.code == code)
+                    .map_or(0.0, |x| x.share);
+                let x = left + slot * i as f64;
+                let _ = write!(s, "<rect x=\"{:.1}\" y=\"{:.1}\" width=\"{:.1}\" height=\"{:.1}\" fill=\"#333\"><title>{} {}: {:.1}%</title></rect>", x + slot * 0.15, y(share), slot * 0.7, y(0.0) - y(share), esc(code), esc(&p.period), 100.0 * share);
+                if periods.len() <= 8 || i % (periods.len() / 6).max(1) == 0 {
+                    let _ = write!(
+                        s,
+                        "<text x=\"{:.1}\" y=\"{}\" text-anchor=\"middle\">{}</text>",
+                        x + slot * 0.5,
+                        h - bottom + 13.0,
+                        esc(&p.period)
+                    );
+                }
+            }
+            s.push_str("</svg>");
+        }
+    }
+    s.push_str("<h2>Every period</h2><table><thead><tr><th>period</th><th>version</th><th>declines</th><th>referrals</th><th>code</th><th>count</th><th>share</th><th>change</th></tr></thead><tbody>");
+    for p in &r.periods {
+        for x in &p.reasons {
+            let change = x
+                .change
+                .map_or(String::new(), |c| format!("{:+.1} pt", 100.0 * c));
+            let _ = write!(s, "<tr><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{:.1}%</td><td>{change}</td></tr>", esc(&p.period), esc(&p.model_version), p.declines, p.referrals, esc(&x.code), x.count, 100.0 * x.share);
+        }
+    }
+    s.push_str("</tbody></table></body></html>\n");
     s
 }

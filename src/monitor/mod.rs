@@ -7,5 +7,7 @@
 
 pub mod html;
 pub mod stability;
+pub mod trends;
 
 pub use stability::{Stability, StabilityTally};
+pub use trends::{Period, ReasonTrends, TrendTally};

@@ -77,14 +77,18 @@ await page.screenshot({ path: join(artifacts, "console-refused.png") });
 
 // 3. Review: search, open a decline, compare with the API.
 await signIn("review");
-await page.getByRole("heading", { name: "Search" }).waitFor();
+await page.getByRole("heading", { name: "Search", exact: true }).waitFor();
 check(!(await page.evaluate(() => location.href)).includes(KEYS.review), "the key is never in the URL");
 check((await labelled()).length === 0, `every search control is labelled (${await labelled()})`);
 await page.getByLabel("Outcome").selectOption("decline");
 await page.getByRole("button", { name: "Search" }).click();
 await page.waitForFunction(() => location.hash.includes("outcome=decline"));
+// The filtered page replaces the first one: wait until every row shown is a decline.
+await page.waitForFunction(() => {
+  const rows = [...document.querySelectorAll("table tbody tr")];
+  return rows.length > 0 && rows.every((r) => r.cells[2].textContent.trim() === "decline");
+});
 const firstRow = page.locator("table tbody tr").first();
-await firstRow.waitFor();
 await page.screenshot({ path: join(artifacts, "console-search-1280.png"), fullPage: true });
 await page.setViewportSize({ width: 800, height: 900 });
 await page.screenshot({ path: join(artifacts, "console-search-800.png"), fullPage: true });
@@ -96,7 +100,7 @@ await page.waitForFunction(() => location.hash.startsWith("#/decision/"));
 const id = (await page.evaluate(() => location.hash)).split("/")[2];
 const record = await apiGet(`/v1/decisions/${id}`, KEYS.review);
 check(record.outcome === "decline", `the opened decision ${id} is a decline`);
-await page.getByRole("heading", { name: "Principal reasons" }).waitFor();
+await page.getByRole("heading", { name: "Principal reasons", exact: true }).waitFor();
 const shownReasons = await page.locator("table[aria-label='Principal reasons'] tbody tr").evaluateAll((rows) =>
   rows.map((r) => [...r.cells].map((c) => c.textContent)));
 const apiReasons = record.response.reasons;
@@ -123,7 +127,7 @@ await page.screenshot({ path: join(artifacts, "console-decision.png"), fullPage:
 
 // 4. The notice content, printed to PDF on A4 and Letter, read back as text.
 await page.getByRole("link", { name: "Adverse-action content" }).click();
-await page.getByRole("heading", { name: "Adverse-action content" }).waitFor();
+await page.getByRole("heading", { name: "Adverse-action content", exact: true }).waitFor();
 const notice = await apiGet(`/v1/decisions/${id}/adverse-action`, KEYS.review);
 for (const format of ["A4", "Letter"]) {
   const pdf = join(artifacts, `console-notice-${format}.pdf`);
@@ -165,7 +169,7 @@ await page.screenshot({ path: join(artifacts, "console-replay.png"), fullPage: t
 await page.getByRole("button", { name: "Sign out" }).click();
 check(await page.evaluate(() => sessionStorage.length === 0), "signing out forgets the key");
 await signIn("underwriting");
-await page.getByRole("heading", { name: "Search" }).waitFor();
+await page.getByRole("heading", { name: "Search", exact: true }).waitFor();
 await page.getByRole("link", { name: "Referrals" }).click();
 await page.getByRole("heading", { name: "Referrals awaiting a final action" }).waitFor();
 const queue = await apiGet("/v1/decisions?final_action=pending&limit=100", KEYS.underwriting);
@@ -183,7 +187,9 @@ await page.getByLabel("Note for the file (never in a notice)").fill("Income coul
 await page.screenshot({ path: join(artifacts, "console-final-action.png"), fullPage: true });
 await page.getByRole("button", { name: "Record the final action" }).click();
 await page.waitForFunction((id) => location.hash === `#/decision/${id}`, referral.decision_id);
-await page.getByRole("heading", { name: "Final action" }).waitFor();
+// The decision page replaces the form: wait for its own headings (names match exactly).
+await page.getByRole("heading", { name: `Decision for ${referral.application_id}`, exact: true }).waitFor();
+await page.getByRole("heading", { name: "Final action", exact: true }).waitFor();
 const finalText = await page.locator("main").innerText();
 check(finalText.includes("final action: decline") && finalText.includes(code), "the decision shows the final action and its reason at once");
 const after = await apiGet(`/v1/decisions/${referral.decision_id}`, KEYS.underwriting);

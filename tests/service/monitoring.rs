@@ -176,3 +176,209 @@ fn stability_over_the_records_agrees_with_the_training_comparison() {
     server.kill().unwrap();
     let _ = server.wait();
 }
+
+/// A recorded decision of `version` at `decided_at` giving `codes` as its principal reasons.
+fn record(
+    n: usize,
+    version: &str,
+    decided_at: &str,
+    outcome: &str,
+    codes: &[&str],
+) -> plumbline::records::Record {
+    let reasons: Vec<Value> = (codes.iter().enumerate())
+        .map(|(i, c)| serde_json::json!({"rank": i + 1, "code": c, "text": "t", "source": "model"}))
+        .collect();
+    plumbline::records::Record {
+        decision_id: format!("01a00000-0000-7000-8000-{n:012}"),
+        application_id: format!("FH-TREND-{n}"),
+        idempotency_key: None,
+        received_at: decided_at.to_string(),
+        decided_at: decided_at.to_string(),
+        model_id: "fernhill-personal-logistic".into(),
+        model_version: version.into(),
+        model_sha256: "ab".repeat(32),
+        plumbline_version: plumbline::VERSION.into(),
+        request_sha256: format!("{n:064x}"),
+        outcome: plumbline::records::Outcome::from_name(outcome).unwrap(),
+        probability: 0.3,
+        score: 500,
+        request: format!("{{\"application_id\":\"FH-TREND-{n}\",\"applicant\":{{}}}}"),
+        response: serde_json::json!({"outcome": outcome, "reasons": reasons}).to_string(),
+        requested_by: "trend-test".into(),
+        final_action: None,
+    }
+}
+
+/// Reason trends by month and version, worked by hand from the records laid out below, through
+/// the service and the command line alike.
+#[test]
+fn reason_trends_count_principal_reasons_by_period_and_version() {
+    let dir = TempDir::new();
+    let location = format!("sqlite:{}", dir.0.join("records.sqlite3").display());
+    let store = plumbline::records::open(&location).unwrap();
+    // October, 0.1.0: 4 declines/referrals, DTI 3 times, INQ twice (an approval not counted).
+    // November, 0.1.0: 2, DTI once, UTIL twice. November, 0.2.0: 1, INQ.
+    let rows = [
+        (
+            "0.1.0",
+            "2026-10-03T10:00:00.000000Z",
+            "decline",
+            &["DTI", "INQ"][..],
+        ),
+        (
+            "0.1.0",
+            "2026-10-09T10:00:00.000000Z",
+            "decline",
+            &["DTI"][..],
+        ),
+        (
+            "0.1.0",
+            "2026-10-20T10:00:00.000000Z",
+            "refer",
+            &["DTI", "INQ"][..],
+        ),
+        ("0.1.0", "2026-10-21T10:00:00.000000Z", "refer", &[][..]),
+        ("0.1.0", "2026-10-22T10:00:00.000000Z", "approve", &[][..]),
+        (
+            "0.1.0",
+            "2026-11-02T10:00:00.000000Z",
+            "decline",
+            &["UTIL", "DTI"][..],
+        ),
+        (
+            "0.1.0",
+            "2026-11-30T23:59:59.999999Z",
+            "decline",
+            &["UTIL"][..],
+        ),
+        (
+            "0.2.0",
+            "2026-11-15T10:00:00.000000Z",
+            "decline",
+            &["INQ"][..],
+        ),
+    ];
+    let records: Vec<_> = (rows.iter().enumerate())
+        .map(|(n, (v, at, o, codes))| record(n, v, at, o, codes))
+        .collect();
+    store.insert_group(&records).unwrap();
+    drop(store);
+    let (mut server, base) = spawn_binary(&["--store", &location]);
+    let (status, _, text) = get(
+        &base,
+        "/v1/monitoring/reasons?model_id=fernhill-personal-logistic&period=month",
+        REVIEW,
+    );
+    assert_eq!(status, 200, "{text}");
+    let report: Value = serde_json::from_str(&text).unwrap();
+    let periods = report["periods"].as_array().unwrap();
+    let summary: Vec<(String, String, u64, u64)> = (periods.iter())
+        .map(|p| {
+            (
+                p["period"].as_str().unwrap().into(),
+                p["model_version"].as_str().unwrap().into(),
+                p["declines"].as_u64().unwrap(),
+                p["referrals"].as_u64().unwrap(),
+            )
+        })
+        .collect();
+    assert_eq!(
+        summary,
+        [
+            ("2026-10".into(), "0.1.0".into(), 2, 2),
+            ("2026-11".into(), "0.1.0".into(), 2, 0),
+            ("2026-11".into(), "0.2.0".into(), 1, 0),
+        ]
+    );
+    let shares = |p: &Value| -> Vec<(String, u64, f64, Option<f64>)> {
+        (p["reasons"].as_array().unwrap().iter())
+            .map(|r| {
+                (
+                    r["code"].as_str().unwrap().into(),
+                    r["count"].as_u64().unwrap(),
+                    r["share"].as_f64().unwrap(),
+                    r["change"].as_f64(),
+                )
+            })
+            .collect()
+    };
+    assert_eq!(
+        shares(&periods[0]),
+        [("DTI".into(), 3, 0.75, None), ("INQ".into(), 2, 0.5, None)]
+    );
+    // November against October (same version): DTI 0.5 - 0.75, UTIL 1.0 - 0, INQ 0 - 0.5.
+    assert_eq!(
+        shares(&periods[1]),
+        [
+            ("UTIL".into(), 2, 1.0, Some(1.0)),
+            ("DTI".into(), 1, 0.5, Some(-0.25)),
+            ("INQ".into(), 0, 0.0, Some(-0.5)),
+        ]
+    );
+    // A new version starts its own series.
+    assert_eq!(shares(&periods[2]), [("INQ".into(), 1, 1.0, None)]);
+    // The command line reads the same store to the same report; CSV and the page too.
+    let cli = std::process::Command::new(env!("CARGO_BIN_EXE_plumbline"))
+        .args([
+            "monitor",
+            "reasons",
+            "--store",
+            &location,
+            "--model-id",
+            "fernhill-personal-logistic",
+            "--json",
+        ])
+        .output()
+        .unwrap();
+    assert!(
+        cli.status.success(),
+        "{}",
+        String::from_utf8_lossy(&cli.stderr)
+    );
+    let from_cli: Value = serde_json::from_slice(&cli.stdout).unwrap();
+    assert_eq!(from_cli["periods"], report["periods"]);
+    let (_, content_type, csv) = get(
+        &base,
+        "/v1/monitoring/reasons?model_id=fernhill-personal-logistic&format=csv",
+        REVIEW,
+    );
+    assert!(content_type.starts_with("text/csv"));
+    assert!(
+        csv.lines()
+            .any(|l| l == "2026-11,0.1.0,2,0,DTI,1,0.5,-0.25"),
+        "{csv}"
+    );
+    let (_, _, page) = get(
+        &base,
+        "/v1/monitoring/reasons?model_id=fernhill-personal-logistic&format=html",
+        REVIEW,
+    );
+    assert!(
+        page.matches("<svg").count() >= 4 && !page.contains("<script"),
+        "{page}"
+    );
+    // ISO weeks: 2026-10-03 is in week 40, 2026-11-30 in week 49 (as the time crate computes).
+    let (_, _, text) = get(
+        &base,
+        "/v1/monitoring/reasons?model_id=fernhill-personal-logistic&period=week",
+        REVIEW,
+    );
+    let weekly: Value = serde_json::from_str(&text).unwrap();
+    let weeks: Vec<&str> = (weekly["periods"].as_array().unwrap().iter())
+        .map(|p| p["period"].as_str().unwrap())
+        .collect();
+    assert_eq!(weeks.first(), Some(&"2026-W40"));
+    assert!(weeks.contains(&"2026-W49"), "{weeks:?}");
+    let (status, _, text) = get(
+        &base,
+        "/v1/monitoring/reasons?model_id=x&period=day",
+        REVIEW,
+    );
+    assert!(status == 400 && text.contains("period"), "{text}");
+    assert_eq!(
+        get(&base, "/v1/monitoring/reasons?model_id=x", SCORING).0,
+        403
+    );
+    server.kill().unwrap();
+    let _ = server.wait();
+}
