@@ -5,7 +5,13 @@ use crate::evaluate::stability;
 use std::fmt::Write;
 use std::path::Path;
 
-pub fn run(model: &Path, data: &Path, target: Option<&str>, costs: (f64, f64), json: bool) -> i32 {
+pub fn run(
+    model: &Path,
+    data: &Path,
+    target: Option<&str>,
+    costs: (f64, f64),
+    (json, html): (bool, Option<&Path>),
+) -> i32 {
     if !(costs.0.is_finite() && costs.1.is_finite() && costs.0 >= 0.0 && costs.1 >= 0.0) {
         eprintln!("error: costs must be finite and not negative");
         return EXIT_BAD_INPUT;
@@ -62,6 +68,20 @@ pub fn run(model: &Path, data: &Path, target: Option<&str>, costs: (f64, f64), j
         Some(dev) => stability::compare_all(dev, &set.applicants, &scores),
         None => Vec::new(),
     };
+    if let Some(path) = html {
+        let curve = crate::evaluate::curves::roc(&p, &set.defaulted).unwrap_or_default();
+        let title = format!(
+            "Validation: {} version {} on {}",
+            model.identity.model_id,
+            model.identity.version,
+            data.display()
+        );
+        let page = crate::evaluate::html::page(&title, &r, &curve, &shifts);
+        if let Err(e) = std::fs::write(path, page) {
+            eprintln!("error: cannot write {}: {e}", path.display());
+            return super::EXIT_FAILURE;
+        }
+    }
     if json {
         #[derive(serde::Serialize)]
         struct Out<'a> {

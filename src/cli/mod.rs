@@ -152,6 +152,10 @@ pub enum Command {
         /// Print JSON instead of a table.
         #[arg(long)]
         json: bool,
+        /// Also write the validation pictures (ROC, KS, calibration by decile, stability) as a
+        /// printable HTML page.
+        #[arg(long)]
+        html: Option<PathBuf>,
     },
     /// Look up, search and export recorded decisions (the service's compliance look-ups, on the
     /// store directly).
@@ -205,12 +209,13 @@ pub fn run(cli: Cli) -> i32 {
             cost_missed_default,
             cost_lost_good,
             json,
+            html,
         } => evaluate::run(
             &model,
             &data,
             target.as_deref(),
             (cost_missed_default, cost_lost_good),
-            json,
+            (json, html.as_deref()),
         ),
         Command::Train {
             data,

@@ -2,6 +2,8 @@
 //! ([`report`]). The metric functions:
 //! area under the ROC curve (AUC), the Kolmogorov-Smirnov statistic and Gini.
 
+pub mod curves;
+pub mod html;
 pub mod report;
 pub mod stability;
 

@@ -197,6 +197,8 @@ fn evaluate_reports_discrimination_calibration_and_costs() {
             "--data",
             data.to_str().unwrap(),
             "--json",
+            "--html",
+            dir.join("validation.html").to_str().unwrap(),
         ])
         .output()
         .unwrap();
@@ -208,6 +210,17 @@ fn evaluate_reports_discrimination_calibration_and_costs() {
     );
     let r: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(r["rows"], 2_000);
+    // The pictures: ROC (its area the report's AUC, as drawn from the same curve), KS and
+    // calibration, on a script-free page.
+    let page = std::fs::read_to_string(dir.join("validation.html")).unwrap();
+    let area = format!("ROC curve (area {:.4})", r["auc"].as_f64().unwrap());
+    assert!(page.contains(&area), "{area}");
+    assert!(page.contains(&format!(
+        "KS: the largest gap ({:.4})",
+        r["ks"].as_f64().unwrap()
+    )));
+    assert_eq!(page.matches("<svg").count(), 3);
+    assert!(!page.contains("<script"));
     assert_eq!(r["calibration"].as_array().unwrap().len(), 10);
     let auc = r["auc"].as_f64().unwrap();
     assert!((r["gini"].as_f64().unwrap() - (2.0 * auc - 1.0)).abs() < 1e-12);
