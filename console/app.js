@@ -37,6 +37,18 @@ function s(tag, attrs, ...children) {
   return el;
 }
 
+// Each navigation (and each sign-out) takes a number. An answer that arrives after the person has
+// moved on is dropped by `api`, which throws `Stale`, so an old page never draws over a new one.
+let navigation = 0;
+class Stale extends Error {}
+
+/// An event handler whose failures are shown (and whose stale answers are dropped quietly).
+function guarded(handler) {
+  return (ev) => handler(ev).catch((e) => {
+    if (!(e instanceof Stale)) show("Something went wrong", h("div", { class: "problem", role: "alert" }, String(e.message || e)));
+  });
+}
+
 function show(title, ...content) {
   const main = view();
   main.replaceChildren(h("h1", {}, title), ...content.filter((c) => c !== null && c !== undefined));
@@ -77,6 +89,18 @@ function key() {
 }
 
 async function api(path, opts = {}) {
+  const at = navigation;
+  let answer;
+  try {
+    answer = await request(path, opts);
+  } catch (e) {
+    answer = { status: 0, ok: false, body: { title: "The service could not be reached", detail: String(e.message || e) } };
+  }
+  if (navigation !== at) throw new Stale();
+  return answer;
+}
+
+async function request(path, opts) {
   const headers = { Authorization: `Bearer ${opts.key || key()}` };
   if (opts.json !== undefined) headers["Content-Type"] = "application/json";
   const res = await fetch(path, {
@@ -89,7 +113,23 @@ async function api(path, opts = {}) {
   });
   const type = res.headers.get("content-type") || "";
   const body = type.includes("json") ? await res.json() : await res.text();
+  if (res.status === 401 && !opts.key) {
+    // The key stopped working (rotated or removed): sign in again.
+    sessionStorage.removeItem(KEY);
+    navigation += 1;
+    signin("The service no longer accepts this key; sign in again.");
+  }
   return { status: res.status, ok: res.ok, body };
+}
+
+/// A random id for a request's idempotency key (crypto.randomUUID exists only on secure pages).
+function uuid() {
+  if (crypto.randomUUID) return crypto.randomUUID();
+  const b = crypto.getRandomValues(new Uint8Array(16));
+  b[6] = (b[6] & 0x0f) | 0x40;
+  b[8] = (b[8] & 0x3f) | 0x80;
+  const x = [...b].map((v) => v.toString(16).padStart(2, "0")).join("");
+  return `${x.slice(0, 8)}-${x.slice(8, 12)}-${x.slice(12, 16)}-${x.slice(16, 20)}-${x.slice(20)}`;
 }
 
 // ---- sign-in --------------------------------------------------------------------------
@@ -99,7 +139,7 @@ function signin(message) {
   const input = h("input", { id: "key", name: "key", type: "password", autocomplete: "off", required: true, spellcheck: "false" });
   const form = h("form", {
     class: "filters",
-    onsubmit: async (ev) => {
+    onsubmit: guarded(async (ev) => {
       ev.preventDefault();
       const typed = input.value.trim();
       input.value = "";
@@ -108,9 +148,9 @@ function signin(message) {
       if (probe.status === 401) return signin("The service does not know this key.");
       if (!probe.ok) return signin(probe.body.detail || `The service answered ${probe.status}.`);
       sessionStorage.setItem(KEY, typed);
-      location.hash = "#/search";
-      route();
-    },
+      if (location.hash === "#/search") route();
+      else location.hash = "#/search";
+    }),
   },
   h("label", { for: "key" }, "API key (review, underwriting or admin)", input),
   h("div", { class: "actions" }, h("button", { type: "submit", class: "primary" }, "Sign in")));
@@ -149,7 +189,7 @@ async function search(params) {
   },
   input("application_id", "Application id"),
   input("from", "Decided from (date)", "date"),
-  input("to", "Decided before (date)", "date"),
+  input("to", "Decided up to (date, included)", "date"),
   choice("outcome", "Outcome", [["", "any"], ["approve", "approve"], ["refer", "refer"], ["decline", "decline"]]),
   input("model_id", "Model id"),
   input("model_version", "Model version"),
@@ -212,13 +252,14 @@ async function decision(id) {
     if (!(name in given)) inputs.push([name, "(absent)", treatment(t), contribution.has(name) ? fixed(contribution.get(name)) : ""]);
   }
   const links = h("p", { class: "actions no-print" },
-    r.outcome !== "approve" ? h("a", { href: `#/notice/${r.decision_id}` }, "Adverse-action content") : null,
+    r.outcome === "decline" || (r.outcome === "refer" && (!r.final_action || r.final_action.action === "decline"))
+      ? h("a", { href: `#/notice/${r.decision_id}` }, "Adverse-action content") : null,
     r.outcome === "refer" && !r.final_action ? h("a", { href: `#/referrals/${r.decision_id}` }, "Record the final action") : null);
   show(`Decision for ${r.application_id}`,
     h("p", {}, outcomeBadge(r.outcome), " ", r.final_action ? `final action: ${r.final_action.action}` : ""),
     facts([
       ["Probability of default", `${pct(r.probability_of_default)} (${r.probability_of_default})`],
-      ["Score", `${r.score} on ${d.score_scale.min}–${d.score_scale.max}`],
+      ["Score", d.score_scale ? `${r.score} on ${d.score_scale.min}–${d.score_scale.max}` : String(r.score)],
       ["Model", `${r.model.id} version ${r.model.version}`],
       ["Model digest (SHA-256)", r.model.sha256],
       ["Received", r.received_at],
@@ -342,7 +383,7 @@ async function notice(id) {
     h("h2", {}, "Credit score disclosure (FCRA, 15 U.S.C. 1681g(f))"),
     facts([
       ["Score", String(cs.score)],
-      ["Range", `${cs.range.min} to ${cs.range.max}`],
+      ["Range", cs.range ? `${cs.range.min} to ${cs.range.max}` : "not recorded with this decision"],
       ["Date", cs.date],
       ["Provided by", cs.provided_by],
     ]),
@@ -379,10 +420,11 @@ async function finalActionForm(id) {
   const rec = await api(`/v1/decisions/${encodeURIComponent(id)}`);
   if (!rec.ok) return show("Final action", problemBox(rec.body));
   const r = rec.body;
-  const model = await api(`/v1/models/${encodeURIComponent(r.model.id)}`);
-  const reasons = model.ok && model.body.version === r.model.version ? model.body.decline_reasons : null;
-  const most = model.ok ? model.body.max_reasons : 4;
-  const idem = crypto.randomUUID();
+  const models = await api("/v1/models");
+  const model = models.ok ? models.body.find((m) => m.id === r.model.id && m.version === r.model.version) : null;
+  const reasons = model ? model.decline_reasons : null;
+  const most = model ? model.max_reasons : 4;
+  const idem = uuid();
   const out = h("div", { id: "result" });
   const picks = [];
   for (let i = 0; i < most; i++) {
@@ -392,7 +434,7 @@ async function finalActionForm(id) {
   }
   const form = h("form", {
     class: "filters",
-    onsubmit: async (ev) => {
+    onsubmit: guarded(async (ev) => {
       ev.preventDefault();
       const data = new FormData(ev.target);
       const action = data.get("action");
@@ -403,7 +445,7 @@ async function finalActionForm(id) {
       const res = await api(`/v1/decisions/${encodeURIComponent(id)}/final-action`, { method: "POST", json: body });
       if (!res.ok) return out.replaceChildren(problemBox(res.body));
       location.hash = `#/decision/${id}`;
-    },
+    }),
   },
   h("fieldset", {}, h("legend", {}, "Final action"),
     ["approve", "decline", "withdrawn"].map((a) => h("label", { class: "inline" }, h("input", { type: "radio", name: "action", value: a, required: true }), a))),
@@ -425,7 +467,7 @@ function screening() {
   const frame = h("div", {});
   const form = h("form", {
     class: "filters",
-    onsubmit: async (ev) => {
+    onsubmit: guarded(async (ev) => {
       ev.preventDefault();
       const data = new FormData(ev.target);
       const file = data.get("groups");
@@ -442,12 +484,12 @@ function screening() {
       frame.replaceChildren(
         h("p", { class: "actions" }, h("button", { type: "button", class: "secondary", onclick: () => iframe.contentWindow.print() }, "Print the report")),
         iframe);
-    },
+    }),
   },
   input("groups", "Group membership (CSV)", "file", { accept: ".csv,text/csv", required: true }),
   input("dimension", "Dimension name", "text", { placeholder: "group" }),
   input("from", "Decided from (date)", "date"),
-  input("to", "Decided before (date)", "date"),
+  input("to", "Decided up to (date, included)", "date"),
   input("model_id", "Model id"),
   input("model_version", "Model version"),
   input("control", "Control group (default: highest rate)"),
@@ -524,6 +566,8 @@ function moverChart(movers) {
 // ---- routing --------------------------------------------------------------------------
 
 async function route() {
+  if (location.hash === "#view") return; // the skip link, not a page
+  navigation += 1;
   const [path, query] = (location.hash.slice(1) || "/search").split("?");
   const params = new URLSearchParams(query || "");
   const parts = path.split("/").filter(Boolean);
@@ -545,6 +589,7 @@ async function route() {
       default: return await search(params);
     }
   } catch (e) {
+    if (e instanceof Stale) return;
     show("Something went wrong", h("div", { class: "problem", role: "alert" }, String(e.message || e)));
   }
 }
@@ -552,7 +597,13 @@ async function route() {
 document.addEventListener("DOMContentLoaded", () => {
   document.getElementById("signout").addEventListener("click", () => {
     sessionStorage.removeItem(KEY);
+    navigation += 1;
     location.hash = "#/signin";
+  });
+  // The skip link moves focus to the page without leaving it.
+  document.querySelector(".skip").addEventListener("click", (ev) => {
+    ev.preventDefault();
+    view().focus();
   });
   window.addEventListener("hashchange", route);
   route();

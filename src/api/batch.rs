@@ -276,8 +276,18 @@ async fn batch_response(
                 response.failed += 1;
                 // An item's 5xx travels inside the 200, past the middleware: its cause is
                 // logged here, once.
-                if let (true, Some(cause)) = (problem.status >= 500, &problem.cause) {
-                    tracing::error!(request_id, item = index, status = problem.status, cause = %cause, "batch item failed");
+                if problem.status >= 500 {
+                    let cause = problem
+                        .cause
+                        .as_deref()
+                        .map_or(problem.detail.as_str(), String::as_str);
+                    tracing::error!(
+                        request_id,
+                        item = index,
+                        status = problem.status,
+                        cause,
+                        "batch item failed"
+                    );
                 }
                 BatchItem {
                     index,

@@ -250,7 +250,13 @@ pub fn start(config: ServeConfig) -> Result<Running, StartError> {
                     if status >= 500 {
                         let cause = res.response().extensions().get::<problem::Cause>().map(|c| c.0.clone());
                         let cause = cause.as_deref().unwrap_or("no cause was given");
-                        tracing::error!(request_id = %id, method = %method, route = %route, status, cause, "request failed");
+                        // A replica that is not ready answers every probe with a 503: a warning
+                        // each time, not an error.
+                        if route.starts_with("/health/") {
+                            tracing::warn!(request_id = %id, method = %method, route = %route, status, cause, "request failed");
+                        } else {
+                            tracing::error!(request_id = %id, method = %method, route = %route, status, cause, "request failed");
+                        }
                     }
                     if let Ok(v) = actix_web::http::header::HeaderValue::from_str(&id) {
                         res.headers_mut().insert(actix_web::http::header::HeaderName::from_static("x-request-id"), v);

@@ -30,7 +30,7 @@ const PARAMETERS: [&str; 5] = ["model_id", "model_version", "from", "to", "forma
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "Only review keys may read monitoring", body = Problem, content_type = "application/problem+json"),
         (status = 404, description = "The model is not loaded, or the service keeps no records", body = Problem, content_type = "application/problem+json"),
-        (status = 409, description = "The artifact carries no development bins", body = Problem, content_type = "application/problem+json"),
+        (status = 409, description = "The artifact carries no development bins, or no decision of the model is recorded in the range", body = Problem, content_type = "application/problem+json"),
         (status = 429, description = "As many reports and exports as the service runs at once are running; retry after the Retry-After seconds", body = Problem, content_type = "application/problem+json",
             headers(("Retry-After" = u64, description = "seconds to wait"))),
         (status = 503, description = "The store could not be read", body = Problem, content_type = "application/problem+json"),
@@ -97,6 +97,10 @@ pub async fn stability(state: web::Data<State>, req: HttpRequest) -> Result<Http
         Ok((tally.finish((&id, &ver), range), n))
     })
     .await?;
+    if report.decisions == 0 {
+        // Every share would be zero and every index enormous: no report, and no gauge moved.
+        return Err(Problem::no_decisions(&model_id, &version));
+    }
     let entry = access(
         &caller,
         &req,

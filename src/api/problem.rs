@@ -365,6 +365,16 @@ impl Problem {
         )
     }
 
+    /// A stability report over no decisions would call every distribution a major shift.
+    pub fn no_decisions(id: &str, version: &str) -> Self {
+        Problem::new(
+            StatusCode::CONFLICT,
+            "/problems/no-decisions",
+            "No decision of this model is recorded in the range",
+            format!("no decision of {id} version {version} is recorded in the range asked for; widen it, or check the model and version"),
+        )
+    }
+
     pub fn model_not_loaded(id: &str, version: &str) -> Self {
         Problem::new(
             StatusCode::CONFLICT,

@@ -65,6 +65,12 @@ impl StartError {
             | StartError::EmptyKeyFile
             | StartError::Model(_)
             | StartError::Tls(_) => crate::exit::BAD_INPUT,
+            // The database itself refused (a wrong password, a schema newer than this binary):
+            // the operator's to fix. Out of reach or too slow: a failure.
+            StartError::Store {
+                source: StoreError::Failed(_),
+                ..
+            } => crate::exit::BAD_INPUT,
             StartError::Store { .. }
             | StartError::StorePanicked { .. }
             | StartError::Listen { .. }

@@ -408,7 +408,8 @@ pub async fn post_final_action(
     let action = FinalAction {
         decision_id: record.decision_id.clone(),
         action: request.action.name().to_string(),
-        reasons: serde_json::to_string(&reasons).map_err(|e| Problem::internal(&e.to_string()))?,
+        reasons: serde_json::to_string(&reasons)
+            .map_err(|e| Problem::internal("the final action could not be written").caused_by(e))?,
         note: request.note,
         decided_by,
         decided_at: crate::records::now(),
@@ -437,7 +438,7 @@ pub async fn post_final_action(
     let view = stored.view().map_err(|e| Problem::store_failed(&e))?;
     let body =
         serde_json::to_string(&json!({"decision_id": stored.decision_id, "final_action": view}))
-            .map_err(|e| Problem::internal(&e.to_string()))?;
+            .map_err(|e| Problem::internal("the final action could not be written").caused_by(e))?;
     let mut response = HttpResponse::build(status);
     if replayed {
         response.insert_header(("x-response-from-record", "true"));

@@ -127,7 +127,12 @@ fn stability(
     let query = match crate::records::parse_query(get) {
         Ok(q) => q,
         Err(e) => {
-            eprintln!("error: --{}: {} [{}]", e.param, e.message, e.rule);
+            eprintln!(
+                "error: --{}: {} [{}]",
+                e.param.replace('_', "-"),
+                e.message,
+                e.rule
+            );
             return EXIT_BAD_INPUT;
         }
     };
@@ -150,6 +155,10 @@ fn stability(
         return EXIT_FAILURE;
     }
     let report = tally.finish((id, version), (query.from.clone(), query.to.clone()));
+    if report.decisions == 0 {
+        eprintln!("error: no decision of {id} version {version} is recorded in {} in the range asked for (every share would be zero); widen --from/--to, or check the model", store.describe());
+        return EXIT_BAD_INPUT;
+    }
     if let Some(path) = html_out {
         if let Err(e) = std::fs::write(path, html::page(&report)) {
             eprintln!("error: cannot write {}: {e}", path.display());

@@ -33,7 +33,8 @@ pub fn roc(p: &[f64], defaulted: &[bool]) -> Option<Vec<CurvePoint>> {
     let mut i = 0;
     while i < order.len() {
         let t = p[order[i]];
-        while i < order.len() && p[order[i]] == t {
+        // total_cmp: a NaN prediction is one value among others, never an endless loop.
+        while i < order.len() && p[order[i]].total_cmp(&t).is_eq() {
             if defaulted[order[i]] {
                 tp += 1;
             } else {

@@ -18,7 +18,7 @@ pub fn auc(scores: &[f64], defaulted: &[bool]) -> Option<f64> {
     let mut i = 0;
     while i < order.len() {
         let mut j = i;
-        while j + 1 < order.len() && scores[order[j + 1]] == scores[order[i]] {
+        while j + 1 < order.len() && scores[order[j + 1]].total_cmp(&scores[order[i]]).is_eq() {
             j += 1;
         }
         let mid_rank = (i + j) as f64 / 2.0 + 1.0; // average rank of a tied run, 1-based
@@ -51,7 +51,7 @@ pub fn ks(scores: &[f64], defaulted: &[bool]) -> Option<f64> {
     let mut i = 0;
     while i < order.len() {
         let mut j = i;
-        while j < order.len() && scores[order[j]] == scores[order[i]] {
+        while j < order.len() && scores[order[j]].total_cmp(&scores[order[i]]).is_eq() {
             if defaulted[order[j]] {
                 fp += 1.0 / positives as f64;
             } else {

@@ -7,7 +7,7 @@
 //! at training, on the command line and here.
 
 use crate::artifact::spec::{BinnedSpec, StabilitySpec};
-use crate::evaluate::stability::{band, psi, Shift};
+use crate::evaluate::stability::{psi, Shift};
 use crate::records::Record;
 use serde::Serialize;
 use serde_json::{Map, Value};
@@ -20,6 +20,15 @@ pub fn watch_band(psi: f64) -> &'static str {
         "watch"
     } else {
         "act"
+    }
+}
+
+/// The band in words (the same cut points as [`watch_band`]).
+fn reading(psi: f64) -> &'static str {
+    match watch_band(psi) {
+        "stable" => "stable",
+        "watch" => "moderate shift: investigate",
+        _ => "major shift: review the model",
     }
 }
 
@@ -78,7 +87,7 @@ impl Counts {
             name: name.to_string(),
             psi: index,
             band: watch_band(index),
-            reading: band(index),
+            reading: reading(index),
             missing_development: self.dev.missing,
             missing_now: now[self.missing_bin()],
             bins: (labels.into_iter().zip(expected.iter().zip(&now)))

@@ -3,6 +3,7 @@
 //! in share against the version's previous period. Counted as the records stream past: memory
 //! holds one count per period, version and code.
 
+use crate::records::export::csv_cell;
 use crate::records::{Outcome, Record};
 use serde::Serialize;
 use std::collections::BTreeMap;
@@ -211,11 +212,11 @@ impl ReasonTrends {
                 let _ = writeln!(
                     s,
                     "{},{},{},{},{},{},{},{}",
-                    p.period,
-                    p.model_version,
+                    csv_cell(&p.period),
+                    csv_cell(&p.model_version),
                     p.declines,
                     p.referrals,
-                    r.code,
+                    csv_cell(&r.code),
                     r.count,
                     r.share,
                     change

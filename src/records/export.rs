@@ -73,7 +73,7 @@ impl Format {
 
 /// RFC 4180 quoting where needed; a leading `=`, `+`, `-` or `@` is prefixed with `'` so that a
 /// spreadsheet never runs an application id as a formula.
-fn csv_cell(s: &str) -> String {
+pub fn csv_cell(s: &str) -> String {
     let s = if s.starts_with(['=', '+', '-', '@']) {
         format!("'{s}")
     } else {

@@ -166,6 +166,9 @@ fn stability_over_the_records_agrees_with_the_training_comparison() {
         status == 409 && text.contains("no-development-bins"),
         "{text}"
     );
+    // An empty range is refused rather than reported as a major shift everywhere.
+    let (status, _, text) = get(&base, &format!("{path}&from=2030-01-01"), REVIEW);
+    assert!(status == 409 && text.contains("no-decisions"), "{text}");
     let (status, _, text) = get(&base, &format!("{path}&outcome=decline"), REVIEW);
     assert!(status == 400 && text.contains("outcome"), "{text}");
     let (_, _, log) = get(&base, "/v1/admin/access", crate::common::server::ADMIN);
