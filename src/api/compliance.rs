@@ -177,10 +177,18 @@ pub(super) fn parse_query(
     req: &HttpRequest,
     extra: &[&str],
 ) -> Result<(Query, HashMap<String, String>), Problem> {
+    parse_query_of(req, &[crate::records::QUERY_PARAMETERS, extra].concat())
+}
+
+/// As [`parse_query`] for a route that takes exactly the parameters `known` (a subset of the
+/// records filters, plus its own).
+pub(super) fn parse_query_of(
+    req: &HttpRequest,
+    known: &[&str],
+) -> Result<(Query, HashMap<String, String>), Problem> {
     let params = web::Query::<HashMap<String, String>>::from_query(req.query_string())
         .map_err(|e| Problem::bad_query("query", "form_encoded", e.to_string()))?
         .into_inner();
-    let known = [crate::records::QUERY_PARAMETERS, extra].concat();
     if let Some(unknown) = params.keys().find(|k| !known.contains(&k.as_str())) {
         return Err(Problem::bad_query(
             unknown,

@@ -4,16 +4,70 @@
 //! The records stream past a tally on the blocking pool (memory holds one count per bin), the
 //! read is written to the access log, and the `plumbline_stability_psi` gauges take the result.
 
+use super::auth::Caller;
 use super::auth::Role;
-use super::compliance::{access, blocking, log_access, parse_query, store_for};
+use super::compliance::{access, blocking, log_access, parse_query_of, store_for};
 use super::problem::Problem;
 use super::State;
 use crate::monitor::{html, Period, ReasonTrends, Stability, StabilityTally, TrendTally};
+use crate::records::{Query, Record, Store};
 use actix_web::{web, HttpRequest, HttpResponse};
+use std::collections::HashMap;
+use std::sync::Arc;
 
 const REVIEWERS: &[Role] = &[Role::Review];
-/// The parameters this route takes (the records filters beyond them do not apply).
-const PARAMETERS: [&str; 5] = ["model_id", "model_version", "from", "to", "format"];
+/// The records filters the monitoring routes take (the others do not apply to them).
+const FILTERS: [&str; 4] = ["model_id", "model_version", "from", "to"];
+
+/// The query of a monitoring route: the records filters it takes plus `extra`, unknown ones named
+/// in a 400, and the model id it requires.
+fn model_query(
+    req: &HttpRequest,
+    extra: &[&str],
+) -> Result<(Query, HashMap<String, String>, String), Problem> {
+    let (query, params) = parse_query_of(req, &[&FILTERS[..], extra].concat())?;
+    let Some(model_id) = query.model_id.clone() else {
+        return Err(Problem::bad_query(
+            "model_id",
+            "required",
+            "the model whose decisions are read",
+        ));
+    };
+    Ok((query, params, model_id))
+}
+
+/// The records of `query` streamed past `add` on the blocking pool, one report place held, then
+/// the read written to the access log: the tally, whatever it counted.
+async fn tally_records<T: Send + 'static>(
+    state: &State,
+    req: &HttpRequest,
+    (store, caller): (&Arc<dyn Store>, &Caller),
+    query: Query,
+    action: &str,
+    mut tally: T,
+    add: fn(&mut T, &Record),
+) -> Result<T, Problem> {
+    let slot = state.report_slot()?;
+    let read = store.clone();
+    let (tally, counted) = blocking(move || {
+        let _slot = slot;
+        let n = read.export(&query, &mut |r| {
+            add(&mut tally, r);
+            true
+        })?;
+        Ok((tally, n))
+    })
+    .await?;
+    let entry = access(
+        caller,
+        req,
+        action,
+        req.query_string(),
+        Some(counted as i64),
+    );
+    log_access(store, entry).await?;
+    Ok(tally)
+}
 
 /// Population stability of the score and every field.
 #[utoipa::path(get, path = "/v1/monitoring/stability", tag = "monitoring",
@@ -38,28 +92,11 @@ const PARAMETERS: [&str; 5] = ["model_id", "model_version", "from", "to", "forma
     security(("api_key" = [])))]
 pub async fn stability(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
     let (store, caller) = store_for(&state, &req, REVIEWERS)?;
-    let (mut query, params) = parse_query(&req, &["format"])?;
-    if let Some(other) = params.keys().find(|k| !PARAMETERS.contains(&k.as_str())) {
-        return Err(Problem::bad_query(
-            other,
-            "known_parameter",
-            format!(
-                "not a parameter of this route; use {}",
-                PARAMETERS.join(", ")
-            ),
-        ));
-    }
+    let (mut query, params, model_id) = model_query(&req, &["format"])?;
     let html_page = match params.get("format").map(String::as_str) {
         None | Some("json") => false,
         Some("html") => true,
         Some(_) => return Err(Problem::bad_query("format", "one_of", "json or html")),
-    };
-    let Some(model_id) = query.model_id.clone() else {
-        return Err(Problem::bad_query(
-            "model_id",
-            "required",
-            "the loaded model whose decisions are read",
-        ));
     };
     let set = state.registry.current();
     let model = (set.models.iter())
@@ -83,32 +120,23 @@ pub async fn stability(state: web::Data<State>, req: HttpRequest) -> Result<Http
         return Err(Problem::no_development_bins(&model_id, &version));
     };
     query.model_version = Some(version.clone());
-    let slot = state.report_slot()?;
-    let read = store.clone();
-    let (id, ver) = (model_id.clone(), version.clone());
-    let (report, counted): (Stability, u64) = blocking(move || {
-        let _slot = slot;
-        let mut tally = StabilityTally::new(&dev);
-        let range = (query.from.clone(), query.to.clone());
-        let n = read.export(&query, &mut |r| {
-            tally.add_record(r);
-            true
-        })?;
-        Ok((tally.finish((&id, &ver), range), n))
-    })
+    let range = (query.from.clone(), query.to.clone());
+    let tally = StabilityTally::new(&dev);
+    let tally = tally_records(
+        &state,
+        &req,
+        (&store, &caller),
+        query,
+        "stability",
+        tally,
+        StabilityTally::add_record,
+    )
     .await?;
+    let report = tally.finish((&model_id, &version), range);
     if report.decisions == 0 {
         // Every share would be zero and every index enormous: no report, and no gauge moved.
         return Err(Problem::no_decisions(&model_id, &version));
     }
-    let entry = access(
-        &caller,
-        &req,
-        "stability",
-        req.query_string(),
-        Some(counted as i64),
-    );
-    log_access(&store, entry).await?;
     let psi: Vec<(String, f64)> = (report.distributions.iter())
         .map(|d| (d.name.clone(), d.psi))
         .collect();
@@ -120,16 +148,6 @@ pub async fn stability(state: web::Data<State>, req: HttpRequest) -> Result<Http
     }
     Ok(super::json(&report))
 }
-
-/// The parameters of the reason-trend route.
-const TREND_PARAMETERS: [&str; 6] = [
-    "model_id",
-    "model_version",
-    "from",
-    "to",
-    "period",
-    "format",
-];
 
 /// How often each reason code was a principal reason among declines and referrals, by period.
 #[utoipa::path(get, path = "/v1/monitoring/reasons", tag = "monitoring",
@@ -154,20 +172,7 @@ const TREND_PARAMETERS: [&str; 6] = [
     security(("api_key" = [])))]
 pub async fn reasons(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
     let (store, caller) = store_for(&state, &req, REVIEWERS)?;
-    let (query, params) = parse_query(&req, &["format", "period"])?;
-    if let Some(other) = params
-        .keys()
-        .find(|k| !TREND_PARAMETERS.contains(&k.as_str()))
-    {
-        return Err(Problem::bad_query(
-            other,
-            "known_parameter",
-            format!(
-                "not a parameter of this route; use {}",
-                TREND_PARAMETERS.join(", ")
-            ),
-        ));
-    }
+    let (query, params, model_id) = model_query(&req, &["format", "period"])?;
     let format = params.get("format").map_or("json", String::as_str);
     if !matches!(format, "json" | "csv" | "html") {
         return Err(Problem::bad_query("format", "one_of", "json, csv or html"));
@@ -177,35 +182,19 @@ pub async fn reasons(state: web::Data<State>, req: HttpRequest) -> Result<HttpRe
         Some(p) => Period::from_name(p)
             .ok_or_else(|| Problem::bad_query("period", "one_of", "week or month"))?,
     };
-    let Some(model_id) = query.model_id.clone() else {
-        return Err(Problem::bad_query(
-            "model_id",
-            "required",
-            "the model whose decisions are read",
-        ));
-    };
-    let slot = state.report_slot()?;
-    let read = store.clone();
-    let id = model_id.clone();
-    let (report, counted): (ReasonTrends, u64) = blocking(move || {
-        let _slot = slot;
-        let mut tally = TrendTally::new(period);
-        let range = (query.from.clone(), query.to.clone());
-        let n = read.export(&query, &mut |r| {
-            tally.add_record(r);
-            true
-        })?;
-        Ok((tally.finish(&id, range), n))
-    })
-    .await?;
-    let entry = access(
-        &caller,
+    let range = (query.from.clone(), query.to.clone());
+    let tally = TrendTally::new(period);
+    let tally = tally_records(
+        &state,
         &req,
+        (&store, &caller),
+        query,
         "reason_trends",
-        req.query_string(),
-        Some(counted as i64),
-    );
-    log_access(&store, entry).await?;
+        tally,
+        TrendTally::add_record,
+    )
+    .await?;
+    let report = tally.finish(&model_id, range);
     Ok(match format {
         "csv" => HttpResponse::Ok()
             .content_type("text/csv; charset=utf-8")

@@ -117,43 +117,17 @@ fn stability(
         return EXIT_BAD_INPUT;
     };
     let (id, version) = (&model.identity.model_id, &model.identity.version);
-    let get = |name: &str| match name {
-        "from" => from.as_deref(),
-        "to" => to.as_deref(),
-        "model_id" => Some(id.as_str()),
-        "model_version" => Some(version.as_str()),
-        _ => None,
-    };
-    let query = match crate::records::parse_query(get) {
-        Ok(q) => q,
-        Err(e) => {
-            eprintln!(
-                "error: --{}: {} [{}]",
-                e.param.replace('_', "-"),
-                e.message,
-                e.rule
-            );
-            return EXIT_BAD_INPUT;
-        }
-    };
-    let store = match open(store_at) {
-        Ok(s) => s,
+    let mut tally = StabilityTally::new(dev);
+    let (query, store) = match read_model_records(
+        store_at,
+        (id, Some(version)),
+        (from, to),
+        "stability",
+        &mut |r| tally.add_record(r),
+    ) {
+        Ok(read) => read,
         Err(code) => return code,
     };
-    let mut tally = StabilityTally::new(dev);
-    let target = format!("stability model_id={id} model_version={version}");
-    let read = store.export(&query, &mut |r| {
-        tally.add_record(r);
-        true
-    });
-    let logged = read.and_then(|n| {
-        let entry = super::records::access("stability", &target, Some(n as i64));
-        store.log_access(&entry)
-    });
-    if let Err(e) = logged {
-        eprintln!("error: store {}: {e}", store.describe());
-        return EXIT_FAILURE;
-    }
     let report = tally.finish((id, version), (query.from.clone(), query.to.clone()));
     if report.decisions == 0 {
         eprintln!("error: no decision of {id} version {version} is recorded in {} in the range asked for (every share would be zero); widen --from/--to, or check the model", store.describe());
@@ -201,11 +175,55 @@ fn stability(
     0
 }
 
-fn open(store_at: &str) -> Result<std::sync::Arc<dyn crate::records::Store>, i32> {
-    crate::records::open_existing(store_at).map_err(|e| {
+/// Streams the records of one model (and version, if given) in a range to `sink`, then writes
+/// the read to the store's access log, as the service does: the query and the store, or the
+/// exit status after printing why.
+fn read_model_records(
+    store_at: &str,
+    (id, version): (&str, Option<&str>),
+    (from, to): Range<'_>,
+    action: &str,
+    sink: &mut dyn FnMut(&crate::records::Record),
+) -> Result<
+    (
+        crate::records::Query,
+        std::sync::Arc<dyn crate::records::Store>,
+    ),
+    i32,
+> {
+    let get = |name: &str| match name {
+        "from" => from.as_deref(),
+        "to" => to.as_deref(),
+        "model_id" => Some(id),
+        "model_version" => version,
+        _ => None,
+    };
+    let query = crate::records::parse_query(get).map_err(|e| {
+        let flag = e.param.replace('_', "-");
+        eprintln!("error: --{flag}: {} [{}]", e.message, e.rule);
+        EXIT_BAD_INPUT
+    })?;
+    let store = crate::records::open_existing(store_at).map_err(|e| {
         eprintln!("error: store {}: {e}", crate::records::redacted(store_at));
         EXIT_FAILURE
-    })
+    })?;
+    let target = format!(
+        "{action} model_id={id} model_version={} from={} to={}",
+        version.unwrap_or(""),
+        from.as_deref().unwrap_or(""),
+        to.as_deref().unwrap_or("")
+    );
+    let read = store.export(&query, &mut |r| {
+        sink(r);
+        true
+    });
+    let logged = read
+        .and_then(|n| store.log_access(&super::records::access(action, &target, Some(n as i64))));
+    if let Err(e) = logged {
+        eprintln!("error: store {}: {e}", store.describe());
+        return Err(EXIT_FAILURE);
+    }
+    Ok((query, store))
 }
 
 fn reasons(
@@ -216,46 +234,17 @@ fn reasons(
     (json, csv): (bool, bool),
     html_out: Option<&std::path::Path>,
 ) -> i32 {
-    let get = |name: &str| match name {
-        "from" => from.as_deref(),
-        "to" => to.as_deref(),
-        "model_id" => Some(id),
-        "model_version" => version,
-        _ => None,
-    };
-    let query = match crate::records::parse_query(get) {
-        Ok(q) => q,
-        Err(e) => {
-            eprintln!(
-                "error: --{}: {} [{}]",
-                e.param.replace('_', "-"),
-                e.message,
-                e.rule
-            );
-            return EXIT_BAD_INPUT;
-        }
-    };
-    let store = match open(store_at) {
-        Ok(s) => s,
+    let mut tally = TrendTally::new(period);
+    let (query, _) = match read_model_records(
+        store_at,
+        (id, version),
+        (from, to),
+        "reason_trends",
+        &mut |r| tally.add_record(r),
+    ) {
+        Ok(read) => read,
         Err(code) => return code,
     };
-    let mut tally = TrendTally::new(period);
-    let read = store.export(&query, &mut |r| {
-        tally.add_record(r);
-        true
-    });
-    let target = format!("reason_trends model_id={id}");
-    let logged = read.and_then(|n| {
-        store.log_access(&super::records::access(
-            "reason_trends",
-            &target,
-            Some(n as i64),
-        ))
-    });
-    if let Err(e) = logged {
-        eprintln!("error: store {}: {e}", store.describe());
-        return EXIT_FAILURE;
-    }
     let report = tally.finish(id, (query.from.clone(), query.to.clone()));
     if let Some(path) = html_out {
         if let Err(e) = std::fs::write(path, html::trends_page(&report)) {

@@ -164,7 +164,8 @@ fn shares_with_missing(b: &BinnedSpec) -> Vec<f64> {
     v
 }
 
-fn labels(b: &BinnedSpec) -> Vec<String> {
+/// Each bin's label (`< 10`, `[10, 20)`, `>= 20`, or the level), the missing bin last.
+pub fn labels(b: &BinnedSpec) -> Vec<String> {
     let mut v: Vec<String> = if b.levels.is_empty() {
         (0..=b.edges.len())
             .map(

@@ -7,7 +7,7 @@
 //! at training, on the command line and here.
 
 use crate::artifact::spec::{BinnedSpec, StabilitySpec};
-use crate::evaluate::stability::{psi, Shift};
+use crate::evaluate::stability::{labels, psi, Shift};
 use crate::records::Record;
 use serde::Serialize;
 use serde_json::{Map, Value};
@@ -82,7 +82,7 @@ impl Counts {
         };
         expected.push(self.dev.missing);
         let index = psi(&expected, &now);
-        let labels = bin_labels(&self.dev);
+        let labels = labels(&self.dev);
         FieldStability {
             name: name.to_string(),
             psi: index,
@@ -101,25 +101,6 @@ impl Counts {
                 .collect(),
         }
     }
-}
-
-fn bin_labels(b: &BinnedSpec) -> Vec<String> {
-    let mut v: Vec<String> = if b.levels.is_empty() {
-        (0..=b.edges.len())
-            .map(
-                |i| match (i.checked_sub(1).map(|j| b.edges[j]), b.edges.get(i)) {
-                    (None, Some(hi)) => format!("< {hi}"),
-                    (Some(lo), Some(hi)) => format!("[{lo}, {hi})"),
-                    (Some(lo), None) => format!(">= {lo}"),
-                    (None, None) => "all".to_string(),
-                },
-            )
-            .collect()
-    } else {
-        b.levels.keys().cloned().collect()
-    };
-    v.push("missing".to_string());
-    v
 }
 
 /// One bin: development and current shares, and the current count.
