@@ -23,6 +23,7 @@ pub mod import;
 pub mod model;
 pub mod monitor;
 pub mod onnx;
+pub mod outcomes;
 pub mod policy;
 pub mod progress;
 pub mod reasons;

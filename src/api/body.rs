@@ -8,17 +8,24 @@ use futures_util::StreamExt;
 use serde_json::Value;
 use std::time::Duration;
 
-/// Refuses a wrong Content-Type (415) and a declared length over `limit` (413) before reading.
-/// The declared length, if any, is returned to size the buffer once.
-fn check_head(req: &HttpRequest, limit: usize) -> Result<Option<usize>, Problem> {
+/// The media type every JSON body is sent as.
+pub const JSON: &[&str] = &["application/json"];
+
+/// Refuses a Content-Type not in `accepted` (415) and a declared length over `limit` (413)
+/// before reading. The declared length, if any, is returned to size the buffer once.
+fn check_head(
+    req: &HttpRequest,
+    limit: usize,
+    accepted: &[&str],
+) -> Result<Option<usize>, Problem> {
     let content_type = req
         .headers()
         .get("content-type")
         .and_then(|v| v.to_str().ok())
         .unwrap_or("");
     let media = content_type.split(';').next().unwrap_or("").trim();
-    if !media.eq_ignore_ascii_case("application/json") {
-        return Err(Problem::unsupported_media_type(content_type));
+    if !accepted.iter().any(|a| media.eq_ignore_ascii_case(a)) {
+        return Err(Problem::unsupported_media_type(content_type, accepted));
     }
     let declared = req
         .headers()
@@ -45,7 +52,7 @@ pub async fn read_bytes(
     limit: usize,
     timeout: Duration,
 ) -> Result<web::Bytes, Problem> {
-    let declared = check_head(req, limit)?;
+    let declared = check_head(req, limit, JSON)?;
     let read = async {
         // Sized once when the length is declared (never above the limit): no doubling copies.
         let mut body = web::BytesMut::with_capacity(declared.unwrap_or(0));
@@ -78,20 +85,22 @@ pub async fn read_json(
 /// Parses a large body as it arrives: `parse` runs on the blocking pool, reading the chunks the
 /// request worker forwards through a small channel, so at most a few chunks of the text are in
 /// memory at once besides what `parse` builds. The limits of [`read_bytes`] apply; when `parse`
-/// stops early (a fault in the first rows), the rest of the body is not read.
+/// stops early (a fault in the first rows), the rest of the body is not read. The body's media
+/// type must be one of `accepted`.
 pub async fn parse_streamed<T, F>(
     req: &HttpRequest,
     mut payload: web::Payload,
-    limit: usize,
-    timeout: Duration,
+    (limit, timeout): (usize, Duration),
+    accepted: &[&str],
     parse: F,
 ) -> Result<T, Problem>
 where
     T: Send + 'static,
     F: FnOnce(&mut dyn std::io::Read) -> Result<T, Problem> + Send + 'static,
 {
-    check_head(req, limit)?;
-    let (tx, rx) = tokio::sync::mpsc::channel::<web::Bytes>(4);
+    check_head(req, limit, accepted)?;
+    // `None` marks the end of the body: a channel closed without it is a body cut short.
+    let (tx, rx) = tokio::sync::mpsc::channel::<Option<web::Bytes>>(4);
     let parser = web::block(move || parse(&mut ChunkReader::new(rx)));
     let feed = async move {
         let mut seen = 0usize;
@@ -101,10 +110,11 @@ where
             if seen > limit {
                 return Err(Problem::too_large(limit));
             }
-            if tx.send(chunk).await.is_err() {
-                break; // the parser has stopped: its own answer says why
+            if tx.send(Some(chunk)).await.is_err() {
+                return Ok(()); // the parser has stopped: its own answer says why
             }
         }
+        let _ = tx.send(None).await;
         Ok(())
     };
     let feed = async {
@@ -119,16 +129,20 @@ where
 }
 
 /// `io::Read` over the chunks a request worker forwards (blocking: for the blocking pool only).
+/// A body cut short (too large, too slow, the client gone) is a read error, never an end: a
+/// parser must not take a cut-off last row for a whole one.
 struct ChunkReader {
-    rx: tokio::sync::mpsc::Receiver<web::Bytes>,
+    rx: tokio::sync::mpsc::Receiver<Option<web::Bytes>>,
     current: web::Bytes,
+    ended: bool,
 }
 
 impl ChunkReader {
-    fn new(rx: tokio::sync::mpsc::Receiver<web::Bytes>) -> Self {
+    fn new(rx: tokio::sync::mpsc::Receiver<Option<web::Bytes>>) -> Self {
         ChunkReader {
             rx,
             current: web::Bytes::new(),
+            ended: false,
         }
     }
 }
@@ -136,9 +150,18 @@ impl ChunkReader {
 impl std::io::Read for ChunkReader {
     fn read(&mut self, out: &mut [u8]) -> std::io::Result<usize> {
         while self.current.is_empty() {
+            if self.ended {
+                return Ok(0);
+            }
             match self.rx.blocking_recv() {
-                Some(chunk) => self.current = chunk,
-                None => return Ok(0),
+                Some(Some(chunk)) => self.current = chunk,
+                Some(None) => self.ended = true,
+                None => {
+                    return Err(std::io::Error::new(
+                        std::io::ErrorKind::UnexpectedEof,
+                        "the body was cut short",
+                    ))
+                }
             }
         }
         let n = out.len().min(self.current.len());

@@ -239,8 +239,11 @@ pub async fn create_report(
     let mut request = super::body::parse_streamed(
         &req,
         payload,
-        state.limits.max_upload_bytes,
-        state.limits.body_timeout * 12,
+        (
+            state.limits.max_upload_bytes,
+            state.limits.body_timeout * 12,
+        ),
+        super::body::JSON,
         |body| {
             let mut de = serde_json::Deserializer::from_reader(std::io::BufReader::new(body));
             let request: ReportRequest = serde_path_to_error::deserialize(&mut de)

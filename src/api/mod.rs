@@ -14,6 +14,7 @@ mod fairness;
 mod metrics;
 mod monitoring;
 pub mod openapi;
+mod outcomes;
 mod params;
 pub mod problem;
 mod recording;
@@ -288,6 +289,8 @@ pub fn start(config: ServeConfig) -> Result<Running, StartError> {
             .service(resource("/v1/fairness/reports", "POST", web::post().to(fairness::create_report)))
             .service(resource("/v1/monitoring/stability", "GET", web::get().to(monitoring::stability)))
             .service(resource("/v1/monitoring/reasons", "GET", web::get().to(monitoring::reasons)))
+            .service(resource("/v1/monitoring/outcomes", "GET", web::get().to(monitoring::outcomes)))
+            .service(resource("/v1/outcomes", "POST", web::post().to(outcomes::post_outcomes)))
             .service(resource("/v1/admin/reload", "POST", web::post().to(routes::reload)))
             .service(resource("/v1/admin/access", "GET", web::get().to(access::get_access)))
             .service(resource("/health/live", "GET", web::get().to(routes::live)))

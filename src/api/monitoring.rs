@@ -9,7 +9,9 @@ use super::auth::Role;
 use super::compliance::{access, blocking, log_access, parse_query_of, store_for};
 use super::problem::Problem;
 use super::State;
-use crate::monitor::{html, Period, ReasonTrends, Stability, StabilityTally, TrendTally};
+use crate::monitor::{
+    html, BackTest, BackTestTally, Period, ReasonTrends, Stability, StabilityTally, TrendTally,
+};
 use crate::records::{Query, Record, Store};
 use actix_web::{web, HttpRequest, HttpResponse};
 use std::collections::HashMap;
@@ -69,6 +71,35 @@ async fn tally_records<T: Send + 'static>(
     Ok(tally)
 }
 
+/// The loaded model of this id (and version, when the query names one).
+fn loaded_model(
+    state: &State,
+    query: &Query,
+    model_id: &str,
+) -> Result<Arc<crate::artifact::LoadedModel>, Problem> {
+    let set = state.registry.current();
+    let found = (set.models.iter()).find(|m| {
+        m.identity.model_id == model_id
+            && (query.model_version.as_ref()).is_none_or(|v| *v == m.identity.version)
+    });
+    found.cloned().ok_or_else(|| {
+        let what = match &query.model_version {
+            Some(v) => format!("{model_id} version {v}"),
+            None => model_id.to_string(),
+        };
+        Problem::unknown_model(&what)
+    })
+}
+
+/// `json` (false) or `html` (true) from the `format` parameter.
+fn html_wanted(params: &HashMap<String, String>) -> Result<bool, Problem> {
+    match params.get("format").map(String::as_str) {
+        None | Some("json") => Ok(false),
+        Some("html") => Ok(true),
+        Some(_) => Err(Problem::bad_query("format", "one_of", "json or html")),
+    }
+}
+
 /// Population stability of the score and every field.
 #[utoipa::path(get, path = "/v1/monitoring/stability", tag = "monitoring",
     params(
@@ -93,28 +124,8 @@ async fn tally_records<T: Send + 'static>(
 pub async fn stability(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
     let (store, caller) = store_for(&state, &req, REVIEWERS)?;
     let (mut query, params, model_id) = model_query(&req, &["format"])?;
-    let html_page = match params.get("format").map(String::as_str) {
-        None | Some("json") => false,
-        Some("html") => true,
-        Some(_) => return Err(Problem::bad_query("format", "one_of", "json or html")),
-    };
-    let set = state.registry.current();
-    let model = (set.models.iter())
-        .find(|m| {
-            m.identity.model_id == model_id
-                && query
-                    .model_version
-                    .as_ref()
-                    .is_none_or(|v| *v == m.identity.version)
-        })
-        .ok_or_else(|| {
-            let what = match &query.model_version {
-                Some(v) => format!("{model_id} version {v}"),
-                None => model_id.clone(),
-            };
-            Problem::unknown_model(&what)
-        })?
-        .clone();
+    let html_page = html_wanted(&params)?;
+    let model = loaded_model(&state, &query, &model_id)?;
     let version = model.identity.version.clone();
     let Some(dev) = model.stability.clone() else {
         return Err(Problem::no_development_bins(&model_id, &version));
@@ -204,4 +215,65 @@ pub async fn reasons(state: web::Data<State>, req: HttpRequest) -> Result<HttpRe
             .body(html::trends_page(&report)),
         _ => super::json(&report),
     })
+}
+
+/// Back-testing: the recorded probabilities against the observed outcomes.
+#[utoipa::path(get, path = "/v1/monitoring/outcomes", tag = "monitoring",
+    params(
+        ("model_id" = String, Query, description = "The loaded model whose decisions are read (its score scale sets the bands)"),
+        ("model_version" = Option<String>, Query, description = "Its version (default: the loaded one with that id)"),
+        ("from" = Option<super::params::TimeParam>, Query, description = "Decided at or after (RFC 3339 UTC, or a date)"),
+        ("to" = Option<super::params::TimeParam>, Query, description = "Decided before (a date includes that whole day)"),
+        ("format" = Option<super::params::ReportFormat>, Query, description = "json (default) or html"),
+    ),
+    responses(
+        (status = 200, description = "Over the decisions in the range with an observed outcome (each its application's latest under the model): AUC, Gini and KS, the Brier score; calibration by score band, by probability decile and by months from decision to observation, each band with its expected and observed default rates, the one-sided binomial test and the Jeffreys 95% interval, and a rating (a band with fewer than 5 defaults observed and expected is not rated: common practice); the default rate by decision outcome and final action. Or the same as a printable HTML page with SVG charts", body = BackTest),
+        (status = 400, description = "A bad or unknown parameter, or model_id missing", body = Problem, content_type = "application/problem+json"),
+        (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
+        (status = 403, description = "Only review keys may read monitoring", body = Problem, content_type = "application/problem+json"),
+        (status = 404, description = "The model is not loaded, or the service keeps no records", body = Problem, content_type = "application/problem+json"),
+        (status = 409, description = "No decision of the model is recorded in the range", body = Problem, content_type = "application/problem+json"),
+        (status = 429, description = "As many reports and exports as the service runs at once are running; retry after the Retry-After seconds", body = Problem, content_type = "application/problem+json",
+            headers(("Retry-After" = u64, description = "seconds to wait"))),
+        (status = 503, description = "The store could not be read", body = Problem, content_type = "application/problem+json"),
+    ),
+    security(("api_key" = [])))]
+pub async fn outcomes(state: web::Data<State>, req: HttpRequest) -> Result<HttpResponse, Problem> {
+    let (store, caller) = store_for(&state, &req, REVIEWERS)?;
+    let (mut query, params, model_id) = model_query(&req, &["format"])?;
+    let html_page = html_wanted(&params)?;
+    let model = loaded_model(&state, &query, &model_id)?;
+    let version = model.identity.version.clone();
+    query.model_version = Some(version.clone());
+    let range = (query.from.clone(), query.to.clone());
+    let mut tally = BackTestTally::new(model.policy.scaling.points, model.policy.scaling.pdo);
+    let slot = state.report_slot()?;
+    let read = store.clone();
+    let (tally, counted) = blocking(move || {
+        let _slot = slot;
+        let n = read.with_outcomes(&query, &mut |d| {
+            tally.add(d);
+            true
+        })?;
+        Ok((tally, n))
+    })
+    .await?;
+    let entry = access(
+        &caller,
+        &req,
+        "back_test",
+        req.query_string(),
+        Some(counted as i64),
+    );
+    log_access(&store, entry).await?;
+    let (report, curve) = tally.finish((&model_id, &version), range);
+    if report.decisions == 0 {
+        return Err(Problem::no_decisions(&model_id, &version));
+    }
+    if html_page {
+        return Ok(HttpResponse::Ok()
+            .content_type("text/html; charset=utf-8")
+            .body(crate::monitor::backtest_html::page(&report, &curve)));
+    }
+    Ok(super::json(&report))
 }

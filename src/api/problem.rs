@@ -127,12 +127,22 @@ impl Problem {
         p
     }
 
-    pub fn unsupported_media_type(got: &str) -> Self {
+    /// A Content-Type other than the route's `accepted` ones.
+    pub fn unsupported_media_type(got: &str, accepted: &[&str]) -> Self {
+        let title = if accepted == ["application/json"] {
+            "Send JSON"
+        } else {
+            "Send a media type this route reads"
+        };
+        let wanted = match accepted {
+            [one] => one.to_string(),
+            many => format!("one of {}", many.join(", ")),
+        };
         Problem::new(
             StatusCode::UNSUPPORTED_MEDIA_TYPE,
             "/problems/unsupported-media-type",
-            "Send JSON",
-            format!("Content-Type must be application/json, got \"{got}\""),
+            title,
+            format!("Content-Type must be {wanted}, got \"{got}\""),
         )
     }
 
@@ -395,6 +405,18 @@ impl Problem {
             ),
         )
         .with("decision_id", "one_final_action", "a decision takes one final action")
+    }
+
+    /// An upload that cannot be read from `place` on (a header, a row): which, and the rule.
+    pub fn bad_upload(place: &str, rule: &'static str, message: impl Into<String>) -> Self {
+        let message = message.into();
+        Problem::new(
+            StatusCode::BAD_REQUEST,
+            "/problems/bad-upload",
+            "The upload cannot be read",
+            format!("{place}: {message}"),
+        )
+        .with(place, rule, message)
     }
 
     /// A bad query-string parameter: which one and the rule.

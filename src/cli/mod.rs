@@ -1,11 +1,13 @@
 //! The command line: a thin shell over the library. Exit status 0 on success, 2 for bad input
 //! (artifact or applicant), 1 for anything else (I/O).
 
+mod backtest;
 mod evaluate;
 mod fairness;
 mod import;
 mod inspect;
 mod monitor;
+mod outcomes;
 mod progress;
 mod records;
 mod replay;
@@ -161,8 +163,11 @@ pub enum Command {
     /// store directly).
     Records(records::RecordsArgs),
     /// Ongoing monitoring over the recorded decisions: population stability of the score and
-    /// every field against the artifact's development bins.
+    /// every field against the artifact's development bins, back-testing against observed
+    /// outcomes, reason trends.
     Monitor(monitor::MonitorArgs),
+    /// Observed outcomes (which applications went on to default), loaded for back-testing.
+    Outcomes(outcomes::OutcomesArgs),
     /// Decide recorded requests again with a model file or a running service and compare with
     /// what was given: unchanged, probability-only, reason changes, decision flips. Exit 3 when
     /// anything moved beyond tolerance.
@@ -199,6 +204,7 @@ pub fn run(cli: Cli) -> i32 {
         Command::Serve(args) => serve::run(args),
         Command::Records(args) => records::run(args),
         Command::Monitor(args) => monitor::run(args),
+        Command::Outcomes(args) => outcomes::run(args),
         Command::Fairness(args) => fairness::run(args),
         Command::Replay(args) => replay::run(args),
         Command::HashKey { name, role } => serve::hash_key(&name, role),

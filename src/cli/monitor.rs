@@ -42,6 +42,25 @@ pub enum MonitorCommand {
         #[arg(long)]
         html: Option<PathBuf>,
     },
+    /// Back-testing: the recorded probabilities of one model (its id and version) in a range
+    /// against the observed outcomes loaded with `plumbline outcomes load`.
+    Outcomes {
+        /// The model artifact whose decisions are read (its score scale sets the bands).
+        #[arg(long)]
+        model: PathBuf,
+        /// Decided at or after (RFC 3339 UTC time or a date).
+        #[arg(long)]
+        from: Option<String>,
+        /// Decided before (a date includes that whole day).
+        #[arg(long)]
+        to: Option<String>,
+        /// Print the report as JSON instead of tables.
+        #[arg(long)]
+        json: bool,
+        /// Also write the report as a printable HTML page with charts.
+        #[arg(long)]
+        html: Option<PathBuf>,
+    },
     /// How often each reason code was a principal reason among declines and referrals, by
     /// week or month and model version, with the change against the previous period.
     Reasons {
@@ -79,6 +98,13 @@ pub fn run(args: MonitorArgs) -> i32 {
             json,
             html,
         } => stability(&args.store, model, (from, to), *json, html.as_deref()),
+        MonitorCommand::Outcomes {
+            model,
+            from,
+            to,
+            json,
+            html,
+        } => super::backtest::run(&args.store, model, (from, to), *json, html.as_deref()),
         MonitorCommand::Reasons {
             model_id,
             model_version,
@@ -99,7 +125,7 @@ pub fn run(args: MonitorArgs) -> i32 {
     }
 }
 
-type Range<'a> = (&'a Option<String>, &'a Option<String>);
+pub(super) type Range<'a> = (&'a Option<String>, &'a Option<String>);
 
 fn stability(
     store_at: &str,
@@ -180,10 +206,36 @@ fn stability(
 /// exit status after printing why.
 fn read_model_records(
     store_at: &str,
+    model: (&str, Option<&str>),
+    range: Range<'_>,
+    action: &str,
+    sink: &mut dyn FnMut(&crate::records::Record),
+) -> Result<
+    (
+        crate::records::Query,
+        std::sync::Arc<dyn crate::records::Store>,
+    ),
+    i32,
+> {
+    read_model(store_at, model, range, action, &mut |store, query| {
+        store.export(query, &mut |r| {
+            sink(r);
+            true
+        })
+    })
+}
+
+/// Runs `read` (how many records it read) over the query of one model in a range, then writes
+/// the read to the access log.
+pub(super) fn read_model(
+    store_at: &str,
     (id, version): (&str, Option<&str>),
     (from, to): Range<'_>,
     action: &str,
-    sink: &mut dyn FnMut(&crate::records::Record),
+    read: &mut dyn FnMut(
+        &dyn crate::records::Store,
+        &crate::records::Query,
+    ) -> Result<u64, crate::records::StoreError>,
 ) -> Result<
     (
         crate::records::Query,
@@ -213,10 +265,7 @@ fn read_model_records(
         from.as_deref().unwrap_or(""),
         to.as_deref().unwrap_or("")
     );
-    let read = store.export(&query, &mut |r| {
-        sink(r);
-        true
-    });
+    let read = read(&*store, &query);
     let logged = read
         .and_then(|n| store.log_access(&super::records::access(action, &target, Some(n as i64))));
     if let Err(e) = logged {

@@ -100,16 +100,21 @@ impl Filters {
     }
 }
 
-/// A read of the records from the command line, for the access log: the operating-system
-/// user, as the service logs a key's name.
-pub(super) fn access(action: &str, target: &str, records: Option<i64>) -> crate::records::Access {
+/// Who works on the store from the command line: `local:` and the operating-system user.
+pub(super) fn local_caller() -> String {
     let user = std::env::var("USER")
         .or_else(|_| std::env::var("USERNAME"))
         .unwrap_or_else(|_| "unknown".into());
+    format!("local:{user}")
+}
+
+/// A read of the records from the command line, for the access log: the operating-system
+/// user, as the service logs a key's name.
+pub(super) fn access(action: &str, target: &str, records: Option<i64>) -> crate::records::Access {
     crate::records::Access {
         access_id: crate::records::ids::new_decision_id(),
         at: crate::records::now(),
-        caller: format!("local:{user}"),
+        caller: local_caller(),
         role: "command-line".into(),
         action: action.into(),
         target: target.into(),

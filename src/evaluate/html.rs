@@ -22,10 +22,10 @@ svg text{font-size:11px;font-family:sans-serif}@media print{body{margin:0}svg{ma
 
 /// A square plot of [0, 1] x [0, 1] with axes, a diagonal, and `lines` (points, dash, width).
 /// A line to draw: its points in [0, 1] x [0, 1], dash pattern and stroke width.
-type Line<'a> = (Vec<(f64, f64)>, &'a str, f64);
+pub type Line<'a> = (Vec<(f64, f64)>, &'a str, f64);
 
 /// `tick` writes an axis value (both axes run over the same range).
-fn unit_plot(
+pub fn unit_plot(
     label: &str,
     (x_axis, y_axis): (&str, &str),
     tick: &dyn Fn(f64) -> String,

@@ -11,6 +11,7 @@ pub mod cursor;
 pub mod export;
 pub mod ids;
 pub mod notice;
+pub mod observed;
 mod pool;
 pub mod postgres;
 pub mod recorder;
@@ -20,6 +21,7 @@ pub mod sqlite;
 /// The outcome a record holds: the pipeline's own type, stored by its name.
 pub use crate::policy::Outcome;
 pub use cursor::Cursor;
+pub use observed::{DecisionWithOutcome, ObservedOutcome, OutcomeInsert};
 pub use recorder::Recorder;
 
 use serde::Serialize;
@@ -316,6 +318,18 @@ pub trait Store: Send + Sync {
         &self,
         query: &Query,
         sink: &mut dyn FnMut(&Record) -> bool,
+    ) -> Result<u64, StoreError>;
+    /// Loads observed outcomes (at most [`observed::GROUP`]) in one transaction, one answer per
+    /// row in order: written, or why not (see [`OutcomeInsert`]).
+    fn insert_outcomes(&self, rows: &[ObservedOutcome]) -> Result<Vec<OutcomeInsert>, StoreError>;
+    /// The decisions of `query`'s model and range that are their application's latest under the
+    /// model, with final actions and observed outcomes, oldest first, handed to `sink` one at a
+    /// time (never all in memory). Stops early when `sink` returns false. Returns how many were
+    /// sent.
+    fn with_outcomes(
+        &self,
+        query: &Query,
+        sink: &mut dyn FnMut(&DecisionWithOutcome) -> bool,
     ) -> Result<u64, StoreError>;
     /// Whether the store can take writes now (readiness): it answers, is not read-only (a
     /// PostgreSQL standby after a failover; a read-only file) and no writer holds it locked.

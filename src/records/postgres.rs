@@ -14,6 +14,7 @@
 //! Built on `tokio-postgres` with a runtime of the store's own: callers (the recorder thread,
 //! the blocking pool, the command line) block on it, never an async worker.
 
+use super::observed::{self, DecisionWithOutcome, ObservedOutcome, OutcomeInsert};
 use super::sql::{self, MIGRATIONS, MIGRATIONS_TABLE};
 use super::{FinalAction, FinalInsert, Insert, Page, Query, Record, Store, StoreError};
 use futures_util::{pin_mut, TryStreamExt};
@@ -173,6 +174,82 @@ fn row_to_record(r: &Row) -> Result<Record, StoreError> {
             }),
         },
     })
+}
+
+fn row_with_outcome(r: &Row) -> Result<DecisionWithOutcome, StoreError> {
+    let name: String = r.try_get(3).map_err(failed)?;
+    let observed = match r.try_get::<_, Option<i64>>(7).map_err(failed)? {
+        None => None,
+        Some(d) => Some((d == 1, r.try_get(8).map_err(failed)?)),
+    };
+    Ok(DecisionWithOutcome {
+        decision_id: r.try_get(0).map_err(failed)?,
+        decided_at: r.try_get(1).map_err(failed)?,
+        model_version: r.try_get(2).map_err(failed)?,
+        outcome: super::Outcome::from_name(&name).ok_or_else(|| {
+            StoreError::Failed(format!("outcome {name:?} is not approve, refer or decline"))
+        })?,
+        probability: r.try_get(4).map_err(failed)?,
+        score: r.try_get(5).map_err(failed)?,
+        final_action: r.try_get(6).map_err(failed)?,
+        observed,
+    })
+}
+
+/// Writes a group of outcomes in one transaction, the statements pipelined (sent together,
+/// answered in order), so a large load does not wait one round trip per row.
+async fn write_outcomes(
+    c: &mut Client,
+    rows: &[ObservedOutcome],
+) -> Result<Vec<OutcomeInsert>, StoreError> {
+    let same_as = observed::firsts(rows);
+    let tx = c.transaction().await.map_err(failed)?;
+    let insert = tx.prepare(sql::INSERT_OUTCOME).await.map_err(failed)?;
+    let stored = tx.prepare(sql::SELECT_OUTCOME).await.map_err(failed)?;
+    let flags: Vec<i64> = rows.iter().map(|r| i64::from(r.defaulted)).collect();
+    let firsts: Vec<usize> = (0..rows.len()).filter(|&i| same_as[i].is_none()).collect();
+    let params: Vec<[&(dyn ToSql + Sync); 5]> = (firsts.iter())
+        .map(|&i| {
+            let r = &rows[i];
+            [
+                &r.application_id as &(dyn ToSql + Sync),
+                &flags[i],
+                &r.observed_at,
+                &r.loaded_at,
+                &r.loaded_by,
+            ]
+        })
+        .collect();
+    let counts = futures_util::future::try_join_all(params.iter().map(|p| tx.execute(&insert, p)))
+        .await
+        .map_err(failed)?;
+    let unwritten: Vec<usize> = (firsts.iter().zip(&counts))
+        .filter(|(_, &n)| n != 1)
+        .map(|(&i, _)| i)
+        .collect();
+    let ids: Vec<[&(dyn ToSql + Sync); 1]> = (unwritten.iter())
+        .map(|&i| [&rows[i].application_id as &(dyn ToSql + Sync)])
+        .collect();
+    let kept = futures_util::future::try_join_all(ids.iter().map(|p| tx.query_opt(&stored, p)))
+        .await
+        .map_err(failed)?;
+    tx.commit().await.map_err(failed)?;
+    let mut written = vec![None; rows.len()];
+    for &i in &firsts {
+        written[i] = Some(OutcomeInsert::Inserted);
+    }
+    for (&i, kept) in unwritten.iter().zip(kept) {
+        let r = &rows[i];
+        written[i] = Some(match kept {
+            None => OutcomeInsert::UnknownApplication,
+            Some(row) => {
+                let kept: i64 = row.try_get(0).map_err(failed)?;
+                let kept_at: String = row.try_get(1).map_err(failed)?;
+                observed::compare((kept == 1, &kept_at), r.defaulted, &r.observed_at)
+            }
+        });
+    }
+    Ok(observed::settle(rows, &same_as, written))
 }
 
 fn text_params(params: &[String]) -> Vec<&(dyn ToSql + Sync)> {
@@ -722,6 +799,58 @@ impl Store for PostgresStore {
                 .await?;
                 let Some(row) = next else { break };
                 if !sink(&row_to_record(&row)?) {
+                    break;
+                }
+                sent += 1;
+            }
+            Ok(sent)
+        });
+        self.give_back(conn, out)
+    }
+
+    fn insert_outcomes(&self, rows: &[ObservedOutcome]) -> Result<Vec<OutcomeInsert>, StoreError> {
+        let mut guard = self.writer(Instant::now() + CONNECT_WAIT)?;
+        let conn = guard
+            .as_mut()
+            .ok_or_else(|| StoreError::Unavailable("no connection".into()))?;
+        let out = self.block_on(within(
+            Instant::now() + WRITE_WAIT,
+            "loading outcomes",
+            write_outcomes(&mut conn.client, rows),
+        ));
+        if matches!(
+            out,
+            Err(StoreError::Timeout(_) | StoreError::Unavailable(_))
+        ) {
+            *guard = None;
+        }
+        out
+    }
+
+    fn with_outcomes(
+        &self,
+        query: &Query,
+        sink: &mut dyn FnMut(&DecisionWithOutcome) -> bool,
+    ) -> Result<u64, StoreError> {
+        let (text, params) = sql::select_with_outcomes(query);
+        let conn = self.reader()?;
+        let c = &conn.client;
+        let out = self.block_on(async {
+            let rows = within(Instant::now() + READ_STEP, "reading outcomes", async {
+                (c.query_raw(&text, params.iter().map(|p| p as &(dyn ToSql + Sync)))
+                    .await)
+                    .map_err(failed)
+            })
+            .await?;
+            pin_mut!(rows);
+            let mut sent = 0;
+            loop {
+                let next = within(Instant::now() + READ_STEP, "reading outcomes", async {
+                    rows.try_next().await.map_err(failed)
+                })
+                .await?;
+                let Some(row) = next else { break };
+                if !sink(&row_with_outcome(&row)?) {
                     break;
                 }
                 sent += 1;

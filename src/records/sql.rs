@@ -107,6 +107,20 @@ pub const MIGRATIONS: &[Migration] = &[
     CREATE INDEX record_access_by_time ON record_access (at, access_id);",
         ),
     },
+    Migration {
+        version: 4,
+        about: "observed outcomes of applications",
+        // One per application, never updated: a later row that disagrees is refused as a
+        // conflict, so a back-test always reads what was first loaded.
+        sql: "CREATE TABLE outcomes (
+        application_id TEXT COLLATE \"C\" PRIMARY KEY,
+        defaulted BIGINT NOT NULL CHECK (defaulted IN (0, 1)),
+        observed_at TEXT COLLATE \"C\" NOT NULL,
+        loaded_at TEXT COLLATE \"C\" NOT NULL,
+        loaded_by TEXT NOT NULL
+    );",
+        sqlite: None,
+    },
 ];
 
 pub struct Migration {
@@ -240,6 +254,40 @@ pub fn select(query: &super::Query, limit: Option<usize>) -> (String, Vec<String
     let limit = limit.map(|n| format!(" LIMIT {n}")).unwrap_or_default();
     (
         format!("SELECT {COLUMNS} FROM {FROM}{filter} ORDER BY d.decided_at, d.decision_id{limit}"),
+        params,
+    )
+}
+
+/// One outcome (`$1` application, `$2` defaulted 0/1, `$3` observed, `$4` loaded, `$5` by),
+/// written only when a decision of the application is recorded and it has no outcome yet.
+pub const INSERT_OUTCOME: &str = "INSERT INTO outcomes (application_id, defaulted, observed_at, \
+    loaded_at, loaded_by) SELECT CAST($1 AS TEXT), CAST($2 AS BIGINT), CAST($3 AS TEXT), \
+    CAST($4 AS TEXT), CAST($5 AS TEXT) WHERE EXISTS (SELECT 1 FROM decisions \
+    WHERE application_id = CAST($1 AS TEXT)) ON CONFLICT (application_id) DO NOTHING";
+
+/// The stored outcome of application `$1`.
+pub const SELECT_OUTCOME: &str =
+    "SELECT defaulted, observed_at FROM outcomes WHERE application_id = $1";
+
+/// Decisions of `query`'s model and range, each its application's latest under that model
+/// (decided later anywhere supersedes it), with the final action and the observed outcome.
+/// Columns as [`super::DecisionWithOutcome`]'s fields.
+pub fn select_with_outcomes(query: &super::Query) -> (String, Vec<String>) {
+    let (filter, params) = filter(query);
+    let later = "NOT EXISTS (SELECT 1 FROM decisions l WHERE l.application_id = d.application_id \
+        AND l.model_id = d.model_id AND (l.decided_at > d.decided_at OR (l.decided_at = \
+        d.decided_at AND l.decision_id > d.decision_id)))";
+    let filter = if filter.is_empty() {
+        format!(" WHERE {later}")
+    } else {
+        format!("{filter} AND {later}")
+    };
+    (
+        format!(
+            "SELECT d.decision_id, d.decided_at, d.model_version, d.outcome, d.probability, \
+             d.score, f.action, o.defaulted, o.observed_at FROM {FROM} LEFT JOIN outcomes o ON \
+             o.application_id = d.application_id{filter} ORDER BY d.decided_at, d.decision_id"
+        ),
         params,
     )
 }

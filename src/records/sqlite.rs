@@ -2,6 +2,7 @@
 //! committed group survives power loss. One write connection (the recorder's), a small pool
 //! of read connections.
 
+use super::observed::{self, DecisionWithOutcome, ObservedOutcome, OutcomeInsert};
 use super::sql::{self, MIGRATIONS, MIGRATIONS_TABLE};
 use super::{FinalAction, FinalInsert, Insert, Page, Query, Record, Store, StoreError};
 use rusqlite::{params, Connection, OptionalExtension};
@@ -131,6 +132,23 @@ fn row_to_record(r: &rusqlite::Row) -> rusqlite::Result<Record> {
                 body_sha256: r.get(22)?,
             }),
         },
+    })
+}
+
+fn row_with_outcome(r: &rusqlite::Row) -> rusqlite::Result<DecisionWithOutcome> {
+    let observed = match r.get::<_, Option<i64>>(7)? {
+        None => None,
+        Some(d) => Some((d == 1, r.get(8)?)),
+    };
+    Ok(DecisionWithOutcome {
+        decision_id: r.get(0)?,
+        decided_at: r.get(1)?,
+        model_version: r.get(2)?,
+        outcome: outcome_at(r, 3)?,
+        probability: r.get(4)?,
+        score: r.get(5)?,
+        final_action: r.get(6)?,
+        observed,
     })
 }
 
@@ -377,6 +395,76 @@ impl Store for SqliteStore {
             let mut sent = 0;
             while let Some(row) = rows.next().map_err(failed)? {
                 if !sink(&row_to_record(row).map_err(failed)?) {
+                    break;
+                }
+                sent += 1;
+            }
+            Ok(sent)
+        })
+    }
+
+    fn insert_outcomes(&self, rows: &[ObservedOutcome]) -> Result<Vec<OutcomeInsert>, StoreError> {
+        let same_as = observed::firsts(rows);
+        let mut written = vec![None; rows.len()];
+        let mut c = self
+            .writer
+            .lock()
+            .map_err(|_| StoreError::Failed("writer lock poisoned".into()))?;
+        let tx = begin(&mut c, None)?;
+        {
+            let mut insert =
+                (tx.prepare_cached(&sql::for_sqlite(sql::INSERT_OUTCOME))).map_err(failed)?;
+            let mut stored =
+                (tx.prepare_cached(&sql::for_sqlite(sql::SELECT_OUTCOME))).map_err(failed)?;
+            for (i, r) in rows.iter().enumerate() {
+                if same_as[i].is_some() {
+                    continue;
+                }
+                let n = insert
+                    .execute(params![
+                        r.application_id,
+                        i64::from(r.defaulted),
+                        r.observed_at,
+                        r.loaded_at,
+                        r.loaded_by
+                    ])
+                    .map_err(failed)?;
+                written[i] = Some(if n == 1 {
+                    OutcomeInsert::Inserted
+                } else {
+                    let kept = stored
+                        .query_row([&r.application_id], |row| {
+                            Ok((row.get::<_, i64>(0)? == 1, row.get::<_, String>(1)?))
+                        })
+                        .optional()
+                        .map_err(failed)?;
+                    match kept {
+                        None => OutcomeInsert::UnknownApplication,
+                        Some((kept, kept_at)) => {
+                            observed::compare((kept, &kept_at), r.defaulted, &r.observed_at)
+                        }
+                    }
+                });
+            }
+        }
+        tx.commit().map_err(failed)?;
+        Ok(observed::settle(rows, &same_as, written))
+    }
+
+    fn with_outcomes(
+        &self,
+        query: &Query,
+        sink: &mut dyn FnMut(&DecisionWithOutcome) -> bool,
+    ) -> Result<u64, StoreError> {
+        let (text, params) = sql::select_with_outcomes(query);
+        self.with_reader(|c| {
+            let mut stmt = c.prepare(&sql::for_sqlite(&text)).map_err(failed)?;
+            let mut rows = stmt
+                .query(rusqlite::params_from_iter(params.iter()))
+                .map_err(failed)?;
+            let mut sent = 0;
+            while let Some(row) = rows.next().map_err(failed)? {
+                if !sink(&row_with_outcome(row).map_err(failed)?) {
                     break;
                 }
                 sent += 1;

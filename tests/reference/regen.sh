@@ -31,17 +31,18 @@ trap 'rm -rf "$out"' EXIT
 "$PLUMBLINE_PY" tests/reference/make_fixtures.py "$out"
 "$PLUMBLINE_PY" tests/reference/make_metrics.py "$out"
 "$PLUMBLINE_PY" tests/reference/make_fairness.py "$out"
+"$PLUMBLINE_PY" tests/reference/make_backtest.py "$out"
 "$PLUMBLINE_PY" tests/reference/make_onnx.py "$out"
 
 fixtures=tests/reference/fixtures
 if [ "$write" = 1 ]; then
     mkdir -p "$fixtures"
-    for f in lightgbm.json forest.json expected.json metrics.json fairness.json; do
+    for f in lightgbm.json forest.json expected.json metrics.json fairness.json backtest.json; do
         cp "$out/$f" "$fixtures/$f"
     done
     rm -rf "$fixtures/onnx"
     cp -r "$out/onnx" "$fixtures/onnx"
-    echo "regen: wrote $fixtures/{lightgbm,forest,expected,metrics,fairness}.json and $fixtures/onnx/"
+    echo "regen: wrote $fixtures/{lightgbm,forest,expected,metrics,fairness,backtest}.json and $fixtures/onnx/"
     exit 0
 fi
 

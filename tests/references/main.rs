@@ -12,6 +12,7 @@
 mod common;
 
 mod islp_logistic;
+mod reference_backtest;
 mod reference_fairness;
 mod reference_libraries;
 mod reference_metrics;
