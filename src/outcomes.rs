@@ -355,6 +355,8 @@ pub fn load(
     if let Err(e) = loader.flush() {
         return Err(loader.stopped(e));
     }
+    // Bad rows are named as read, the others when their group is written: row order here.
+    loader.summary.not_loaded.sort_by_key(|r| r.row);
     Ok(loader.summary)
 }
 

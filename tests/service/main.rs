@@ -19,6 +19,7 @@ mod api_records;
 mod console;
 mod edges;
 mod monitoring;
+mod outcomes;
 mod records;
 mod records_durability;
 mod store_stalls;
