@@ -110,7 +110,7 @@ fn html_wanted(params: &HashMap<String, String>) -> Result<bool, Problem> {
         ("format" = Option<super::params::ReportFormat>, Query, description = "json (default) or html"),
     ),
     responses(
-        (status = 200, description = "PSI of the score and of every field with its band (below 0.10 stable, 0.10 to 0.25 watch, above 0.25 act: common practice), the missing-share shift and the bins; or the same as a printable HTML page with SVG charts", body = Stability),
+        (status = 200, description = "PSI of the score and of every field with its band (below 0.10 stable, 0.10 to 0.25 watch, above 0.25 act: common practice), the missing-share shift and the bins; or the same as a printable HTML page with SVG charts", content((Stability = "application/json"), (String = "text/html"))),
         (status = 400, description = "A bad or unknown parameter, or model_id missing", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "Only review keys may read monitoring", body = Problem, content_type = "application/problem+json"),
@@ -171,7 +171,7 @@ pub async fn stability(state: web::Data<State>, req: HttpRequest) -> Result<Http
         ("format" = Option<String>, Query, description = "json (default), csv or html"),
     ),
     responses(
-        (status = 200, description = "Per period and model version: declines, referrals, and each code's count, share and change in share against the version's previous period; or the same as CSV lines or a printable page with a chart per code", body = ReasonTrends),
+        (status = 200, description = "Per period and model version: declines, referrals, and each code's count, share and change in share against the version's previous period; or the same as CSV lines or a printable page with a chart per code", content((ReasonTrends = "application/json"), (String = "text/csv"), (String = "text/html"))),
         (status = 400, description = "A bad or unknown parameter, or model_id missing", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "Only review keys may read monitoring", body = Problem, content_type = "application/problem+json"),
@@ -227,7 +227,7 @@ pub async fn reasons(state: web::Data<State>, req: HttpRequest) -> Result<HttpRe
         ("format" = Option<super::params::ReportFormat>, Query, description = "json (default) or html"),
     ),
     responses(
-        (status = 200, description = "Over the decisions in the range with an observed outcome (each its application's latest under the model): AUC, Gini and KS, the Brier score; calibration by score band, by probability decile and by months from decision to observation, each band with its expected and observed default rates, the one-sided binomial test and the Jeffreys 95% interval, and a rating (a band with fewer than 5 defaults observed and expected is not rated: common practice); the default rate by decision outcome and final action. Or the same as a printable HTML page with SVG charts", body = BackTest),
+        (status = 200, description = "Over the decisions in the range with an observed outcome (each its application's latest under the model): AUC, Gini and KS, the Brier score; calibration by score band, by probability decile and by months from decision to observation, each band with its expected and observed default rates, the one-sided binomial test and the Jeffreys 95% interval, and a rating (a band with fewer than 5 defaults observed and expected is not rated: common practice); the default rate by decision outcome and final action. Or the same as a printable HTML page with SVG charts", content((BackTest = "application/json"), (String = "text/html"))),
         (status = 400, description = "A bad or unknown parameter, or model_id missing", body = Problem, content_type = "application/problem+json"),
         (status = 401, description = "No or unknown API key", body = Problem, content_type = "application/problem+json"),
         (status = 403, description = "Only review keys may read monitoring", body = Problem, content_type = "application/problem+json"),

@@ -19,7 +19,7 @@ const STYLE: &str = "body{font-family:system-ui,sans-serif;margin:2rem;color:#11
 h1{font-size:1.4rem}h2{font-size:1.15rem;margin-top:2rem;border-top:1px solid #999;padding-top:1rem}
 table{border-collapse:collapse;margin:.5rem 0}th,td{border:1px solid #bbb;padding:.25rem .5rem;text-align:right}
 th:first-child,td:first-child{text-align:left}.caution{border:2px solid #333;padding:.75rem;background:#f4f4f4}
-svg text{font-size:11px;font-family:sans-serif}@media print{body{margin:0}svg{max-width:100%}h2{break-after:avoid}}";
+svg text{font-size:11px;font-family:sans-serif}section{break-inside:avoid}@media print{body{margin:0}svg{max-width:100%}h2{break-after:avoid}}";
 
 fn pct(v: f64) -> String {
     format!("{:.2}%", 100.0 * v)
@@ -30,15 +30,19 @@ fn pct(v: f64) -> String {
 fn band_chart(label: &str, bands: &[BandCheck]) -> String {
     let (w, h, left, bottom, top) = (640.0, 240.0, 52.0, 58.0, 14.0);
     let slot = (w - left - 10.0) / bands.len().max(1) as f64;
+    // The scale fits the rated bands' intervals; a small band's wide interval runs off the top
+    // (drawn to the edge, without its cap) rather than flattening every other band.
     let most = (bands.iter())
         .map(|b| {
-            b.interval
-                .map_or(b.observed_rate, |[_, hi]| hi)
+            let rated = b.interval.filter(|_| b.rating != "not_rated");
+            (rated.map_or(0.0, |[_, hi]| hi))
                 .max(b.expected_rate)
+                .max(b.observed_rate)
         })
         .fold(0.01f64, f64::max)
-        .min(1.0);
-    let y = |v: f64| h - bottom - v / most * (h - bottom - top);
+        .min(1.0)
+        * 1.1;
+    let y = |v: f64| h - bottom - v.min(most) / most * (h - bottom - top);
     let mut s = format!(
         "<svg role=\"img\" aria-label=\"{}\" width=\"{w}\" height=\"{h}\" viewBox=\"0 0 {w} {h}\">",
         esc(label)
@@ -54,7 +58,17 @@ fn band_chart(label: &str, bands: &[BandCheck]) -> String {
             "#111"
         };
         if let Some([lo, hi]) = b.interval {
-            let _ = write!(s, "<line x1=\"{cx:.1}\" x2=\"{cx:.1}\" y1=\"{:.1}\" y2=\"{:.1}\" stroke=\"{ink}\" stroke-width=\"2\"/><line x1=\"{:.1}\" x2=\"{:.1}\" y1=\"{:.1}\" y2=\"{:.1}\" stroke=\"{ink}\"/><line x1=\"{:.1}\" x2=\"{:.1}\" y1=\"{:.1}\" y2=\"{:.1}\" stroke=\"{ink}\"/>", y(lo), y(hi), cx - 4.0, cx + 4.0, y(lo), y(lo), cx - 4.0, cx + 4.0, y(hi), y(hi));
+            let _ = write!(s, "<line x1=\"{cx:.1}\" x2=\"{cx:.1}\" y1=\"{:.1}\" y2=\"{:.1}\" stroke=\"{ink}\" stroke-width=\"2\"/><line x1=\"{:.1}\" x2=\"{:.1}\" y1=\"{:.1}\" y2=\"{:.1}\" stroke=\"{ink}\"/>", y(lo), y(hi), cx - 4.0, cx + 4.0, y(lo), y(lo));
+            if hi <= most {
+                let _ = write!(
+                    s,
+                    "<line x1=\"{:.1}\" x2=\"{:.1}\" y1=\"{:.1}\" y2=\"{:.1}\" stroke=\"{ink}\"/>",
+                    cx - 4.0,
+                    cx + 4.0,
+                    y(hi),
+                    y(hi)
+                );
+            }
         }
         let _ = write!(s, "<circle cx=\"{cx:.1}\" cy=\"{:.1}\" r=\"3.5\" fill=\"{ink}\"><title>{}: observed {} of {} ({})</title></circle>", y(b.observed_rate), esc(&b.label), b.defaults, b.decisions, pct(b.observed_rate));
         let ey = y(b.expected_rate);
@@ -114,7 +128,7 @@ pub fn page(r: &BackTest, roc: &[CurvePoint]) -> String {
             .iter()
             .map(|p| (p.goods_flagged, p.defaults_caught))
             .collect();
-        let _ = write!(s, "<h2>ROC curve (area {:.4})</h2>", d.auc);
+        let _ = write!(s, "<section><h2>ROC curve (area {:.4})</h2>", d.auc);
         s.push_str(&unit_plot(
             "ROC curve",
             (
@@ -125,6 +139,7 @@ pub fn page(r: &BackTest, roc: &[CurvePoint]) -> String {
             &[(curve, "", 2.0)],
             "",
         ));
+        s.push_str("</section>");
         let rate = r.defaults as f64 / r.with_outcome.max(1) as f64;
         let flagged = |p: &CurvePoint| rate * p.defaults_caught + (1.0 - rate) * p.goods_flagged;
         let bads: Vec<(f64, f64)> = roc
@@ -139,7 +154,7 @@ pub fn page(r: &BackTest, roc: &[CurvePoint]) -> String {
             let py = |v: f64| size - pad - v * (size - 2.0 * pad);
             let _ = write!(marks, "<line x1=\"{px:.1}\" x2=\"{px:.1}\" y1=\"{:.1}\" y2=\"{:.1}\" stroke=\"#000\" stroke-width=\"3\"/><text x=\"{:.1}\" y=\"{:.1}\">KS {:.3}</text>", py(g.defaults_caught), py(g.goods_flagged), px + 5.0, (py(g.defaults_caught) + py(g.goods_flagged)) / 2.0, d.ks);
         }
-        let _ = write!(s, "<h2>KS: the largest gap ({:.4})</h2><p>Solid: defaulters caught; dashed: non-defaulters flagged; both against the share of decisions flagged, highest probability first.</p>", d.ks);
+        let _ = write!(s, "<section><h2>KS: the largest gap ({:.4})</h2><p>Solid: defaulters caught; dashed: non-defaulters flagged; both against the share of decisions flagged, highest probability first.</p>", d.ks);
         s.push_str(&unit_plot(
             "KS curves",
             ("share of decisions flagged", "cumulative share"),
@@ -147,6 +162,7 @@ pub fn page(r: &BackTest, roc: &[CurvePoint]) -> String {
             &[(bads, "", 2.0), (goods, "6 3", 1.6)],
             &marks,
         ));
+        s.push_str("</section>");
     }
     let rules = format!("<p>Each band: one-sided binomial test of more defaults than its mean predicted probability allows (level {}), and the Jeffreys interval. A band with fewer than {} defaults observed and expected is not rated (common practice).</p>", r.rules.alpha, r.rules.min_defaults);
     for (heading, about, bands) in [
@@ -169,8 +185,13 @@ pub fn page(r: &BackTest, roc: &[CurvePoint]) -> String {
         if bands.is_empty() {
             continue;
         }
-        let _ = write!(s, "<h2>{heading}</h2><p>Bands: {}.</p>{rules}", esc(about));
+        let _ = write!(
+            s,
+            "<section><h2>{heading}</h2><p>Bands: {}.</p>{rules}",
+            esc(about)
+        );
         s.push_str(&band_chart(heading, bands));
+        s.push_str("</section>");
         s.push_str(&band_table(bands));
     }
     s.push_str("<h2>Default rate by decision outcome</h2><table><thead><tr><th>outcome</th><th>decisions</th><th>with outcome</th><th>defaults</th><th>expected</th><th>observed</th></tr></thead><tbody>");
@@ -186,9 +207,9 @@ pub fn page(r: &BackTest, roc: &[CurvePoint]) -> String {
             o.observed_rate.map_or(String::new(), pct)
         );
     }
-    let _ = write!(
+    let _ = writeln!(
         s,
-        "</tbody></table><p>Matching: {}.</p></body></html>\n",
+        "</tbody></table><p>Matching: {}.</p></body></html>",
         esc(&r.rules.matching)
     );
     s

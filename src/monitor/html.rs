@@ -20,8 +20,18 @@ svg text{font-size:11px;font-family:sans-serif}@media print{body{margin:0}svg{ma
 
 /// Development and current shares per bin, side by side (development hatched).
 fn distribution_chart(d: &FieldStability) -> String {
-    let (w, h, left, bottom) = (640.0, 220.0, 44.0, 48.0);
+    // Bin labels run at -30 degrees from their bin's middle: the margins below and to the left
+    // grow with the longest one (about 6.2 px a character at 11 px), so none leaves the chart.
+    let longest = (d.bins.iter())
+        .map(|b| b.label.chars().count())
+        .max()
+        .unwrap_or(0) as f64;
     let n = d.bins.len().max(1) as f64;
+    let w = 640.0;
+    let reach = longest * 6.2 * 0.866;
+    let left = f64::max(44.0, reach - (w - 54.0) / n / 2.0 + 6.0);
+    let bottom = 30.0 + longest * 6.2 * 0.5;
+    let h = 172.0 + bottom;
     let slot = (w - left - 10.0) / n;
     let most = (d.bins.iter())
         .map(|b| b.development.max(b.now))
