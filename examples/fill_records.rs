@@ -5,18 +5,22 @@
 //! invented default flag, observed 6 to 17 months after its decision, where that time has
 //! passed (declined applicants are not observed). Demo data only.
 //!
-//!   cargo run --release --example fill_records -- STORE ROWS MODEL GROUPS_CSV [OUTCOMES_CSV]
+//!   cargo run --release --example fill_records -- STORE ROWS MODEL GROUPS_CSV [OUTCOMES_CSV [every]]
+//!
+//! With `every` (for the monitoring benchmark), every decision gets an outcome, observed when the
+//! months have passed or else today.
 
 use plumbline::records::{self, Record};
 use std::time::Instant;
 
 fn main() {
     let args: Vec<String> = std::env::args().collect();
-    let (store, rows, model, groups_out, outcomes_out) = match args.as_slice() {
-        [_, s, r, m, g] => (s, r, m, g, None),
-        [_, s, r, m, g, o] => (s, r, m, g, Some(o)),
+    let (store, rows, model, groups_out, outcomes_out, every) = match args.as_slice() {
+        [_, s, r, m, g] => (s, r, m, g, None, false),
+        [_, s, r, m, g, o] => (s, r, m, g, Some(o), false),
+        [_, s, r, m, g, o, e] if e == "every" => (s, r, m, g, Some(o), true),
         _ => {
-            eprintln!("usage: fill_records STORE ROWS MODEL GROUPS_CSV [OUTCOMES_CSV]");
+            eprintln!("usage: fill_records STORE ROWS MODEL GROUPS_CSV [OUTCOMES_CSV [every]]");
             std::process::exit(2);
         }
     };
@@ -46,12 +50,10 @@ fn main() {
         let decided = end - span * (1.0 - i as f64 / rows as f64);
         let now = decided.format(&stored).expect("a time this century");
         let observed = decided + time::Duration::days(183 + (i as i64 * 7919) % 335);
-        if outcomes_out.is_some()
-            && d.outcome != plumbline::policy::Outcome::Decline
-            && observed < end
-        {
+        let seen = d.outcome != plumbline::policy::Outcome::Decline && observed < end;
+        if outcomes_out.is_some() && (seen || every) {
             let flag = u8::from(data.defaulted[i]);
-            let at = observed.format(&day).expect("a date this century");
+            let at = observed.min(end).format(&day).expect("a date this century");
             outcomes.push_str(&format!("{},{flag},{at}\n", d.application_id));
         }
         group.push(Record {
