@@ -5,7 +5,7 @@
 # GET /v1/monitoring/stability and GET /v1/monitoring/outcomes over the whole range; and the
 # service's peak RSS after each. Results: stdout and target/bench-monitoring.md.
 #
-#   bench/monitoring.sh [ROWS]
+#   bench/monitoring.sh [ROWS]        (PLUMBLINE_BENCH_STORES="postgres" for one store)
 set -euo pipefail
 cd "$(dirname "${BASH_SOURCE[0]}")/.."
 rows="${1:-1000000}"
@@ -27,7 +27,7 @@ peak() { echo $(( $(awk '/VmHWM/ {print $2}' "/proc/$pid/status") / 1024 )); }
 out=target/bench-monitoring.md
 echo "| store | decisions | outcomes | fill s | load outcomes s (peak MiB) | stability s (peak MiB) | back-test s (peak MiB) |" >"$out"
 echo "|---|---:|---:|---:|---:|---:|---:|" >>"$out"
-for store in sqlite postgres; do
+for store in ${PLUMBLINE_BENCH_STORES:-sqlite postgres}; do
     case $store in
         sqlite) location="sqlite:$work/records.sqlite3" ;;
         postgres)

@@ -46,7 +46,7 @@ impl Format {
         match media.to_ascii_lowercase().as_str() {
             "text/csv" => Some(Format::Csv),
             "application/json" => Some(Format::Json),
-            "application/x-ndjson" | "application/jsonl" => Some(Format::JsonLines),
+            "application/x-ndjson" => Some(Format::JsonLines),
             _ => None,
         }
     }
@@ -361,9 +361,8 @@ pub fn load(
 }
 
 fn load_csv(reader: &mut dyn Read, loader: &mut Loader<'_>) -> Result<(), LoadError> {
-    let mut csv = csv::ReaderBuilder::new()
-        .flexible(false)
-        .from_reader(reader);
+    // Flexible: a row with too few or too many cells is a bad row of its own, not the end.
+    let mut csv = csv::ReaderBuilder::new().flexible(true).from_reader(reader);
     let header = csv
         .headers()
         .map_err(|e| LoadError::Header(format!("the header line cannot be read: {e}")))?
@@ -402,6 +401,18 @@ fn load_csv(reader: &mut dyn Read, loader: &mut Loader<'_>) -> Result<(), LoadEr
             Ok(false) => return Ok(()),
             Ok(true) => {}
             Err(e) => return Err(loader.syntax(row, format!("cannot be read as CSV: {e}"))),
+        }
+        if record.len() != names.len() {
+            loader.summary.rows += 1;
+            loader.summary.bad_rows += 1;
+            let id = record.get(at[0]).filter(|c| !c.is_empty());
+            let message = format!(
+                "has {} cells where the header names {}",
+                record.len(),
+                names.len()
+            );
+            loader.summary.note(bad(row, id, "row", "cells", message));
+            continue;
         }
         let cell = |k: usize| {
             record

@@ -196,59 +196,66 @@ fn row_with_outcome(r: &Row) -> Result<DecisionWithOutcome, StoreError> {
     })
 }
 
-/// Writes a group of outcomes in one transaction, the statements pipelined (sent together,
-/// answered in order), so a large load does not wait one round trip per row.
+/// Writes a group of outcomes in one transaction: one INSERT of the whole group from arrays
+/// (`unnest`), which names the rows it wrote, then one look-up of what is stored for the rest.
 async fn write_outcomes(
     c: &mut Client,
     rows: &[ObservedOutcome],
 ) -> Result<Vec<OutcomeInsert>, StoreError> {
     let same_as = observed::firsts(rows);
+    let firsts: Vec<&ObservedOutcome> = (rows.iter().zip(&same_as))
+        .filter(|(_, s)| s.is_none())
+        .map(|(r, _)| r)
+        .collect();
+    let column =
+        |f: fn(&ObservedOutcome) -> &str| -> Vec<&str> { firsts.iter().map(|r| f(r)).collect() };
+    let ids = column(|r| &r.application_id);
+    let flags: Vec<i64> = firsts.iter().map(|r| i64::from(r.defaulted)).collect();
+    let (observed_at, loaded_at, loaded_by) = (
+        column(|r| &r.observed_at),
+        column(|r| &r.loaded_at),
+        column(|r| &r.loaded_by),
+    );
     let tx = c.transaction().await.map_err(failed)?;
-    let insert = tx.prepare(sql::INSERT_OUTCOME).await.map_err(failed)?;
-    let stored = tx.prepare(sql::SELECT_OUTCOME).await.map_err(failed)?;
-    let flags: Vec<i64> = rows.iter().map(|r| i64::from(r.defaulted)).collect();
-    let firsts: Vec<usize> = (0..rows.len()).filter(|&i| same_as[i].is_none()).collect();
-    let params: Vec<[&(dyn ToSql + Sync); 5]> = (firsts.iter())
-        .map(|&i| {
-            let r = &rows[i];
-            [
-                &r.application_id as &(dyn ToSql + Sync),
-                &flags[i],
-                &r.observed_at,
-                &r.loaded_at,
-                &r.loaded_by,
-            ]
-        })
-        .collect();
-    let counts = futures_util::future::try_join_all(params.iter().map(|p| tx.execute(&insert, p)))
+    let inserted: std::collections::HashSet<String> = tx
+        .query(
+            sql::INSERT_OUTCOMES_PG,
+            &[&ids, &flags, &observed_at, &loaded_at, &loaded_by],
+        )
         .await
+        .map_err(failed)?
+        .iter()
+        .map(|row| row.try_get::<_, String>(0))
+        .collect::<Result<_, _>>()
         .map_err(failed)?;
-    let unwritten: Vec<usize> = (firsts.iter().zip(&counts))
-        .filter(|(_, &n)| n != 1)
-        .map(|(&i, _)| i)
+    let rest: Vec<&str> = (ids.iter().copied())
+        .filter(|id| !inserted.contains(*id))
         .collect();
-    let ids: Vec<[&(dyn ToSql + Sync); 1]> = (unwritten.iter())
-        .map(|&i| [&rows[i].application_id as &(dyn ToSql + Sync)])
-        .collect();
-    let kept = futures_util::future::try_join_all(ids.iter().map(|p| tx.query_opt(&stored, p)))
+    let kept: std::collections::HashMap<String, (bool, String)> = tx
+        .query(sql::SELECT_OUTCOMES_PG, &[&rest])
         .await
+        .map_err(failed)?
+        .iter()
+        .map(|row| {
+            let d: i64 = row.try_get(1)?;
+            Ok((row.try_get(0)?, (d == 1, row.try_get(2)?)))
+        })
+        .collect::<Result<_, tokio_postgres::Error>>()
         .map_err(failed)?;
     tx.commit().await.map_err(failed)?;
-    let mut written = vec![None; rows.len()];
-    for &i in &firsts {
-        written[i] = Some(OutcomeInsert::Inserted);
-    }
-    for (&i, kept) in unwritten.iter().zip(kept) {
-        let r = &rows[i];
-        written[i] = Some(match kept {
-            None => OutcomeInsert::UnknownApplication,
-            Some(row) => {
-                let kept: i64 = row.try_get(0).map_err(failed)?;
-                let kept_at: String = row.try_get(1).map_err(failed)?;
-                observed::compare((kept == 1, &kept_at), r.defaulted, &r.observed_at)
-            }
-        });
-    }
+    let written = (rows.iter().zip(&same_as))
+        .map(|(r, s)| {
+            s.is_none().then(|| {
+                if inserted.contains(&r.application_id) {
+                    return OutcomeInsert::Inserted;
+                }
+                match kept.get(&r.application_id) {
+                    None => OutcomeInsert::UnknownApplication,
+                    Some((d, at)) => observed::compare((*d, at), r.defaulted, &r.observed_at),
+                }
+            })
+        })
+        .collect();
     Ok(observed::settle(rows, &same_as, written))
 }
 

@@ -265,6 +265,19 @@ pub const INSERT_OUTCOME: &str = "INSERT INTO outcomes (application_id, defaulte
     CAST($4 AS TEXT), CAST($5 AS TEXT) WHERE EXISTS (SELECT 1 FROM decisions \
     WHERE application_id = CAST($1 AS TEXT)) ON CONFLICT (application_id) DO NOTHING";
 
+/// PostgreSQL: a group of outcomes from arrays (`$1` applications, `$2` defaulted, `$3`
+/// observed, `$4` loaded, `$5` by; each application once), as [`INSERT_OUTCOME`] writes one,
+/// answering the applications written.
+pub const INSERT_OUTCOMES_PG: &str = "INSERT INTO outcomes (application_id, defaulted, \
+    observed_at, loaded_at, loaded_by) SELECT u.a, u.d, u.o, u.l, u.b FROM unnest($1::text[], \
+    $2::bigint[], $3::text[], $4::text[], $5::text[]) AS u(a, d, o, l, b) WHERE EXISTS (SELECT 1 \
+    FROM decisions WHERE application_id = u.a) ON CONFLICT (application_id) DO NOTHING \
+    RETURNING application_id";
+
+/// PostgreSQL: the stored outcomes of the applications in `$1`.
+pub const SELECT_OUTCOMES_PG: &str = "SELECT application_id, defaulted, observed_at FROM \
+    outcomes WHERE application_id = ANY($1::text[])";
+
 /// The stored outcome of application `$1`.
 pub const SELECT_OUTCOME: &str =
     "SELECT defaulted, observed_at FROM outcomes WHERE application_id = $1";

@@ -87,9 +87,10 @@ fn suite(location: &str) {
             u8::from(i % 10 == 0)
         ));
     }
-    // In the same file: a duplicate, a conflict, an unknown application, two bad rows.
+    // In the same file: a duplicate, a conflict, an unknown application, three bad rows (the
+    // last one cell short).
     csv.push_str("2026-06-01,FH-0,1,north\n2026-06-01,FH-1,1,north\n2026-06-01,FH-NONE,0,north\n");
-    csv.push_str("2026-06-01,FH-2,yes,north\nnot-a-date,FH-3,0,north\n");
+    csv.push_str("2026-06-01,FH-2,yes,north\nnot-a-date,FH-3,0,north\n2026-06-01,FH-4,0\n");
     let s = load(&*store, Format::Csv, &csv).unwrap();
     assert_eq!(
         (
@@ -100,7 +101,7 @@ fn suite(location: &str) {
             s.unknown_applications,
             s.bad_rows
         ),
-        (2_505, 2_500, 1, 1, 1, 2)
+        (2_506, 2_500, 1, 1, 1, 3)
     );
     assert_eq!(s.ignored_columns, ["branch"]);
     let named: Vec<(u64, &str)> = s
@@ -114,7 +115,8 @@ fn suite(location: &str) {
             (2_502, "conflict"),
             (2_503, "unknown_application"),
             (2_504, "zero_or_one"),
-            (2_505, "rfc3339")
+            (2_505, "rfc3339"),
+            (2_506, "cells")
         ]
     );
     assert_eq!(s.not_loaded[2].field.as_deref(), Some("defaulted"));
