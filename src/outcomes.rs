@@ -89,21 +89,32 @@ pub struct LoadSummary {
 }
 
 impl LoadSummary {
+    /// Names a row not stored, keeping the first [`MOST_NAMED`] by row (bad rows are named as
+    /// read, the others when their group is written, up to a group later).
     fn note(&mut self, r: RowNotLoaded) {
-        if self.not_loaded.len() < MOST_NAMED {
-            self.not_loaded.push(r);
-        } else {
+        self.not_loaded.push(r);
+        if self.not_loaded.len() > MOST_NAMED {
+            let last = (self.not_loaded.iter().enumerate())
+                .max_by_key(|(_, n)| n.row)
+                .map_or(0, |(i, _)| i);
+            self.not_loaded.swap_remove(last);
             self.more_not_named += 1;
         }
+    }
+
+    /// The named rows in row order.
+    fn in_order(mut self) -> Self {
+        self.not_loaded.sort_by_key(|r| r.row);
+        self
     }
 }
 
 /// Why a load stopped before the end of the file. Rows counted in `so_far` stay as it says.
 #[derive(Debug, thiserror::Error)]
 pub enum LoadError {
-    /// The CSV header lacks a column, or names one twice.
-    #[error("{0}")]
-    Header(String),
+    /// The CSV header cannot be read, lacks a column (`required`) or names one twice (`unique`).
+    #[error("{message}")]
+    Header { rule: &'static str, message: String },
     /// The text cannot be read as the format at all from this row on.
     #[error("row {row}: {message}")]
     Syntax {
@@ -131,16 +142,30 @@ struct Loader<'a> {
     loaded_by: String,
     loaded_at: String,
     now: String,
-    group: Vec<(u64, ObservedOutcome)>,
+    /// The rows queued for the next write, and their row numbers.
+    group: Vec<ObservedOutcome>,
+    group_rows: Vec<u64>,
     summary: LoadSummary,
     progress: &'a mut dyn FnMut(&LoadSummary),
+}
+
+/// A value as a message quotes it: JSON, cut to 64 characters (a row may hold anything).
+fn shown(v: &Value) -> String {
+    cut(&v.to_string())
+}
+
+fn cut(text: &str) -> String {
+    match text.char_indices().nth(64) {
+        Some((i, _)) => format!("{}...", &text[..i]),
+        None => text.to_string(),
+    }
 }
 
 fn bad(row: u64, id: Option<&str>, field: &str, rule: &str, message: String) -> RowNotLoaded {
     RowNotLoaded {
         row,
-        application_id: id.map(str::to_string),
-        field: Some(field.into()),
+        application_id: id.map(|i| i.chars().take(MAX_APPLICATION_ID).collect()),
+        field: Some(cut(field)),
         rule: rule.into(),
         message,
     }
@@ -152,7 +177,8 @@ impl Loader<'_> {
         self.summary.rows += 1;
         match self.check(row, given) {
             Ok(outcome) => {
-                self.group.push((row, outcome));
+                self.group.push(outcome);
+                self.group_rows.push(row);
                 if self.group.len() >= GROUP {
                     self.flush()?;
                 }
@@ -167,12 +193,8 @@ impl Loader<'_> {
 
     fn check(&self, row: u64, given: Given) -> Result<ObservedOutcome, RowNotLoaded> {
         let id = match given.application_id {
-            Some(Value::String(s))
-                if !s.trim().is_empty() && s.chars().count() <= MAX_APPLICATION_ID =>
-            {
-                s
-            }
-            Some(Value::String(s)) if s.trim().is_empty() => {
+            Some(Value::String(s)) if !s.is_empty() && s.chars().count() <= MAX_APPLICATION_ID => s,
+            Some(Value::String(s)) if s.is_empty() => {
                 return Err(bad(
                     row,
                     None,
@@ -205,7 +227,7 @@ impl Loader<'_> {
                     None,
                     "application_id",
                     "type",
-                    format!("expected a string, got {v}"),
+                    format!("expected a string, got {}", shown(&v)),
                 ))
             }
         };
@@ -230,19 +252,19 @@ impl Loader<'_> {
                     Some(&id),
                     "defaulted",
                     "zero_or_one",
-                    format!("{v} is not 0 (did not default) or 1 (defaulted)"),
+                    format!("{} is not 0 (did not default) or 1 (defaulted)", shown(v)),
                 ))
             }
         };
         let observed_at = match &given.observed_at {
             Some(Value::String(s)) => normalise_time(s.trim(), false).map_err(|_| {
-                bad(row, Some(&id), "observed_at", "rfc3339", format!("{s:?} is not an RFC 3339 UTC time (2027-06-30T00:00:00Z) or a date (2027-06-30)"))
+                bad(row, Some(&id), "observed_at", "rfc3339", format!("{} is not an RFC 3339 UTC time (2027-06-30T00:00:00Z) or a date (2027-06-30)", shown(&Value::String(s.clone()))))
             })?,
             None | Some(Value::Null) => {
                 return Err(bad(row, Some(&id), "observed_at", "required", "is missing".into()))
             }
             Some(v) => {
-                return Err(bad(row, Some(&id), "observed_at", "type", format!("expected a time as text, got {v}")))
+                return Err(bad(row, Some(&id), "observed_at", "type", format!("expected a time as text, got {}", shown(v))))
             }
         };
         if observed_at > self.now {
@@ -268,9 +290,18 @@ impl Loader<'_> {
         if self.group.is_empty() {
             return Ok(());
         }
-        let outcomes: Vec<ObservedOutcome> = self.group.iter().map(|(_, o)| o.clone()).collect();
-        let answers = self.store.insert_outcomes(&outcomes)?;
-        for ((row, o), answer) in self.group.drain(..).zip(answers) {
+        let answers = match self.store.insert_outcomes(&self.group) {
+            Ok(a) => a,
+            Err(e) => {
+                // Not written: the summary counts only the rows it can account for.
+                self.summary.rows -= self.group.len() as u64;
+                self.group.clear();
+                self.group_rows.clear();
+                return Err(e);
+            }
+        };
+        let rows = self.group_rows.drain(..);
+        for ((row, o), answer) in rows.zip(self.group.drain(..)).zip(answers) {
             let s = &mut self.summary;
             let (rule, message) = match answer {
                 OutcomeInsert::Inserted => {
@@ -311,7 +342,7 @@ impl Loader<'_> {
     fn stopped(&mut self, error: StoreError) -> LoadError {
         LoadError::Store {
             error,
-            so_far: Box::new(std::mem::take(&mut self.summary)),
+            so_far: Box::new(std::mem::take(&mut self.summary).in_order()),
         }
     }
 
@@ -323,7 +354,7 @@ impl Loader<'_> {
         LoadError::Syntax {
             row,
             message,
-            so_far: Box::new(std::mem::take(&mut self.summary)),
+            so_far: Box::new(std::mem::take(&mut self.summary).in_order()),
         }
     }
 }
@@ -344,6 +375,7 @@ pub fn load(
         loaded_at: now.clone(),
         now,
         group: Vec::with_capacity(GROUP),
+        group_rows: Vec::with_capacity(GROUP),
         summary: LoadSummary::default(),
         progress,
     };
@@ -355,19 +387,17 @@ pub fn load(
     if let Err(e) = loader.flush() {
         return Err(loader.stopped(e));
     }
-    // Bad rows are named as read, the others when their group is written: row order here.
-    loader.summary.not_loaded.sort_by_key(|r| r.row);
-    Ok(loader.summary)
+    Ok(loader.summary.in_order())
 }
 
 fn load_csv(reader: &mut dyn Read, loader: &mut Loader<'_>) -> Result<(), LoadError> {
-    // Flexible: a row with too few or too many cells is a bad row of its own, not the end.
+    // Flexible: a row with too few or too many cells is a bad row of its own, not the end; read
+    // as bytes, so a cell that is not UTF-8 is a bad row too.
     let mut csv = csv::ReaderBuilder::new().flexible(true).from_reader(reader);
-    let header = csv
+    let header = |rule, message| LoadError::Header { rule, message };
+    let names: Vec<String> = csv
         .headers()
-        .map_err(|e| LoadError::Header(format!("the header line cannot be read: {e}")))?
-        .clone();
-    let names: Vec<String> = header
+        .map_err(|e| header("csv", format!("the header line cannot be read: {e}")))?
         .iter()
         .map(|h| h.trim().trim_start_matches('\u{feff}').to_string())
         .collect();
@@ -377,15 +407,13 @@ fn load_csv(reader: &mut dyn Read, loader: &mut Loader<'_>) -> Result<(), LoadEr
         match found[..] {
             [i] => at[k] = i,
             [] => {
-                return Err(LoadError::Header(format!(
-                    "the header lacks the column `{column}` (it needs {})",
-                    COLUMNS.join(", ")
-                )))
+                let need = COLUMNS.join(", ");
+                let why = format!("the header lacks the column `{column}` (it needs {need})");
+                return Err(header("required", why));
             }
             _ => {
-                return Err(LoadError::Header(format!(
-                    "the header names `{column}` more than once"
-                )))
+                let why = format!("the header names `{column}` more than once");
+                return Err(header("unique", why));
             }
         }
     }
@@ -393,35 +421,44 @@ fn load_csv(reader: &mut dyn Read, loader: &mut Loader<'_>) -> Result<(), LoadEr
         .filter(|n| !COLUMNS.contains(&n.as_str()))
         .cloned()
         .collect();
-    let mut record = csv::StringRecord::new();
+    let mut record = csv::ByteRecord::new();
     let mut row = 0u64;
     loop {
         row += 1;
-        match csv.read_record(&mut record) {
+        match csv.read_byte_record(&mut record) {
             Ok(false) => return Ok(()),
             Ok(true) => {}
             Err(e) => return Err(loader.syntax(row, format!("cannot be read as CSV: {e}"))),
         }
-        if record.len() != names.len() {
-            loader.summary.rows += 1;
-            loader.summary.bad_rows += 1;
-            let id = record.get(at[0]).filter(|c| !c.is_empty());
+        let text = |k: usize| record.get(at[k]).map(|c| std::str::from_utf8(c));
+        let id = text(0).and_then(Result::ok).filter(|c| !c.is_empty());
+        let fault = if record.len() != names.len() {
             let message = format!(
                 "has {} cells where the header names {}",
                 record.len(),
                 names.len()
             );
-            loader.summary.note(bad(row, id, "row", "cells", message));
+            Some(bad(row, id, "row", "cells", message))
+        } else {
+            (0..3)
+                .find(|&k| matches!(text(k), Some(Err(_))))
+                .map(|k| bad(row, id, COLUMNS[k], "utf8", "is not UTF-8 text".into()))
+        };
+        if let Some(fault) = fault {
+            loader.summary.rows += 1;
+            loader.summary.bad_rows += 1;
+            loader.summary.note(fault);
             continue;
         }
         let cell = |k: usize| {
-            record
-                .get(at[k])
+            (text(k).and_then(Result::ok))
                 .filter(|c| !c.trim().is_empty())
                 .map(|c| Value::String(c.to_string()))
         };
         let given = Given {
-            application_id: record.get(at[0]).map(|c| Value::String(c.to_string())),
+            application_id: text(0)
+                .and_then(Result::ok)
+                .map(|c| Value::String(c.to_string())),
             defaulted: cell(1),
             observed_at: cell(2),
         };
@@ -442,7 +479,7 @@ fn given_of(row: u64, value: Value) -> Result<Given, RowNotLoaded> {
             message: format!(
                 "expected an object with {}, got {}",
                 COLUMNS.join(", "),
-                value
+                shown(&value)
             ),
         });
     };

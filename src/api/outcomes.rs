@@ -8,6 +8,7 @@ use super::problem::Problem;
 use super::State;
 use crate::outcomes::{self, Format, LoadError, LoadSummary};
 use actix_web::{web, HttpRequest, HttpResponse};
+use std::sync::{Arc, Mutex};
 
 const LOADERS: &[Role] = &[Role::Review];
 /// The media types a load is read from.
@@ -19,7 +20,7 @@ const UPLOAD_TIME: u32 = 60;
 /// What had been loaded when a load stopped, for the problem's detail.
 fn so_far(s: &LoadSummary) -> String {
     format!(
-        "the {} rows before it were read and are kept as follows: {} stored, {} duplicates, {} conflicts, {} unknown applications, {} bad rows; sending the whole file again is safe (stored rows then count as duplicates)",
+        "of the {} rows read before it: {} stored, {} duplicates, {} conflicts, {} unknown applications, {} bad rows; sending the whole file again is safe (stored rows then count as duplicates)",
         s.rows, s.stored, s.duplicates, s.conflicts, s.unknown_applications, s.bad_rows
     )
 }
@@ -72,7 +73,11 @@ pub async fn post_outcomes(
     let slot = state.report_slot()?;
     let write = store.clone();
     let by = caller.name.clone();
-    let summary = super::body::parse_streamed(
+    // The summary as of the last group written: what a body cut short (too large, too slow)
+    // still stored, since then the body reader's own problem is the answer.
+    let kept = Arc::new(Mutex::new(LoadSummary::default()));
+    let seen = kept.clone();
+    let loaded = super::body::parse_streamed(
         &req,
         payload,
         (
@@ -82,33 +87,57 @@ pub async fn post_outcomes(
         MEDIA,
         move |body| {
             let _slot = slot;
-            outcomes::load(body, format, &*write, &by, &mut |_| {}).map_err(|e| match e {
-                LoadError::Header(why) => Problem::bad_upload("header", "columns", why),
-                LoadError::Syntax {
-                    row,
-                    message,
-                    so_far: s,
-                } => Problem::bad_upload(
-                    &format!("row {row}"),
-                    format.rule(),
-                    format!("{message}; {}", so_far(&s)),
-                ),
-                LoadError::Store { error, so_far: s } => {
-                    let mut p = Problem::store_failed(&error);
-                    p.detail = format!("{}; {}", p.detail, so_far(&s));
-                    p
+            Ok(outcomes::load(body, format, &*write, &by, &mut |s| {
+                if let Ok(mut k) = seen.lock() {
+                    *k = s.clone();
                 }
-            })
+            }))
         },
     )
-    .await?;
-    let entry = access(
-        &caller,
-        &req,
-        "outcomes_loaded",
-        &format!("{} rows", summary.rows),
-        Some(summary.stored as i64),
-    );
-    log_access(&store, entry).await?;
-    Ok(super::json(&summary))
+    .await;
+    let (summary, problem) = match loaded {
+        Ok(Ok(summary)) => (summary, None),
+        Ok(Err(e)) => match e {
+            LoadError::Header { rule, message } => (
+                LoadSummary::default(),
+                Some(Problem::bad_upload("header", rule, message)),
+            ),
+            LoadError::Syntax {
+                row,
+                message,
+                so_far: s,
+            } => {
+                let detail = format!("{message}; {}", so_far(&s));
+                let p = Problem::bad_upload(&format!("row {row}"), format.rule(), detail);
+                (*s, Some(p))
+            }
+            LoadError::Store { error, so_far: s } => {
+                let mut p = Problem::store_failed(&error);
+                p.detail = format!("{}; {}", p.detail, so_far(&s));
+                (*s, Some(p))
+            }
+        },
+        Err(mut p) => {
+            let s = kept.lock().map(|k| k.clone()).unwrap_or_default();
+            if s.rows > 0 {
+                p.detail = format!("{}; {}", p.detail, so_far(&s));
+            }
+            (s, Some(p))
+        }
+    };
+    // Every load that wrote anything is in the access log, whether it ended well or not.
+    if problem.is_none() || summary.stored > 0 {
+        let entry = access(
+            &caller,
+            &req,
+            "outcomes_loaded",
+            &format!("{} rows", summary.rows),
+            Some(summary.stored as i64),
+        );
+        log_access(&store, entry).await?;
+    }
+    match problem {
+        Some(p) => Err(p),
+        None => Ok(super::json(&summary)),
+    }
 }

@@ -117,10 +117,24 @@ fn load(file: &std::path::Path, store_at: &str, format: Option<Format>, json: bo
         },
     );
     drop(bar);
+    // Every load that wrote anything is in the access log, whether it ended well or not.
+    let stored = match &loaded {
+        Ok(s) => s.stored,
+        Err(LoadError::Syntax { so_far, .. } | LoadError::Store { so_far, .. }) => so_far.stored,
+        Err(LoadError::Header { .. }) => 0,
+    };
+    if loaded.is_ok() || stored > 0 {
+        let target = format!("rows from {}", file.display());
+        let entry = super::records::access("outcomes_loaded", &target, Some(stored as i64));
+        if let Err(e) = store.log_access(&entry) {
+            eprintln!("error: store {}: {e}", store.describe());
+            return EXIT_FAILURE;
+        }
+    }
     let summary = match loaded {
         Ok(s) => s,
-        Err(LoadError::Header(why)) => {
-            eprintln!("error: {}: {why}", file.display());
+        Err(LoadError::Header { rule, message }) => {
+            eprintln!("error: {}: {message} [{rule}]", file.display());
             return EXIT_BAD_INPUT;
         }
         Err(LoadError::Syntax {
@@ -138,15 +152,6 @@ fn load(file: &std::path::Path, store_at: &str, format: Option<Format>, json: bo
             return EXIT_FAILURE;
         }
     };
-    let target = format!("{} rows from {}", summary.rows, file.display());
-    if let Err(e) = store.log_access(&super::records::access(
-        "outcomes_loaded",
-        &target,
-        Some(summary.stored as i64),
-    )) {
-        eprintln!("error: store {}: {e}", store.describe());
-        return EXIT_FAILURE;
-    }
     if json {
         if let Err(code) = super::print_pretty(&summary) {
             return code;

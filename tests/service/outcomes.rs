@@ -146,8 +146,37 @@ fn suite(location: &str) {
     }
     assert!(matches!(
         load(&*store, Format::Csv, "application_id,defaulted\nFH-1,0\n"),
-        Err(LoadError::Header(_))
+        Err(LoadError::Header {
+            rule: "required",
+            ..
+        })
     ));
+
+    // The rows named are the first by row, whenever each was found: an unknown application
+    // (answered when its group is written) before 150 bad rows (named as read); a cell that is
+    // not UTF-8 is a bad row, not the end of the file; FH-7's second outcome is a conflict.
+    let mut many = b"application_id,defaulted,observed_at\nFH-UNKNOWN,0,2026-06-01\n".to_vec();
+    for i in 0..150 {
+        many.extend_from_slice(format!("FH-{i},maybe,2026-06-01\n").as_bytes());
+    }
+    many.extend_from_slice(b"FH-\xe9,0,2026-06-01\nFH-7,1,2026-06-07\n");
+    let s = outcomes::load(
+        &mut &many[..],
+        Format::Csv,
+        &*store,
+        "review-test",
+        &mut |_| {},
+    )
+    .unwrap();
+    assert_eq!((s.rows, s.bad_rows, s.unknown_applications, s.conflicts), (153, 151, 1, 1));
+    assert_eq!((s.not_loaded.len(), s.more_not_named), (100, 53));
+    assert_eq!(
+        (s.not_loaded[0].row, s.not_loaded[0].rule.as_str()),
+        (1, "unknown_application")
+    );
+    assert_eq!(s.not_loaded[99].row, 100);
+    let count = |rule: &str| s.not_loaded.iter().filter(|r| r.rule == rule).count();
+    assert_eq!(count("zero_or_one"), 99);
 
     // Each application's latest decision carries its outcome; FH-0's first is superseded.
     let rows = joined(&*store);
