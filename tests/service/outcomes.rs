@@ -168,7 +168,10 @@ fn suite(location: &str) {
         &mut |_| {},
     )
     .unwrap();
-    assert_eq!((s.rows, s.bad_rows, s.unknown_applications, s.conflicts), (153, 151, 1, 1));
+    assert_eq!(
+        (s.rows, s.bad_rows, s.unknown_applications, s.conflicts),
+        (153, 151, 1, 1)
+    );
     assert_eq!((s.not_loaded.len(), s.more_not_named), (100, 53));
     assert_eq!(
         (s.not_loaded[0].row, s.not_loaded[0].rule.as_str()),
