@@ -16,7 +16,7 @@ const STYLE: &str = "body{font-family:system-ui,sans-serif;margin:2rem;color:#11
 h1{font-size:1.4rem}h2{font-size:1.15rem;margin-top:2rem;border-top:1px solid #999;padding-top:1rem}
 table{border-collapse:collapse;margin:.5rem 0}th,td{border:1px solid #bbb;padding:.25rem .5rem;text-align:right}
 th:first-child,td:first-child{text-align:left}.caution{border:2px solid #333;padding:.75rem;background:#f4f4f4}
-svg text{font-size:11px;font-family:sans-serif}@media print{body{margin:0}svg{max-width:100%}}";
+svg text{font-size:11px;font-family:sans-serif}section{break-inside:avoid}@media print{body{margin:0}svg{max-width:100%}h2{break-after:avoid}}";
 
 /// Development and current shares per bin, side by side (development hatched).
 fn distribution_chart(d: &FieldStability) -> String {
@@ -108,8 +108,15 @@ pub fn page(r: &Stability) -> String {
     }
     s.push_str("</tbody></table><p>Bands (common practice): below 0.10 stable, 0.10 to 0.25 watch, above 0.25 act.</p>");
     for d in &r.distributions {
-        let _ = write!(s, "<h2>{}: {:.4} ({})</h2>", esc(&d.name), d.psi, d.band);
+        let _ = write!(
+            s,
+            "<section><h2>{}: {:.4} ({})</h2>",
+            esc(&d.name),
+            d.psi,
+            d.band
+        );
         s.push_str(&distribution_chart(d));
+        s.push_str("</section>");
     }
     s.push_str("</body></html>\n");
     s
