@@ -2,8 +2,11 @@
 # Load benchmark: POST /v1/decisions (full contributions) on plumbline, and the same work on the
 # peer service a lender would otherwise write (bench/peer: FastAPI + pydantic + LightGBM
 # pred_contrib, top-4 reasons), on the same 500-tree model, at fixed request rates and flat out.
-# Also plumbline on the 100-tree forest. Load generator: hey (Debian). Results: stdout and
-# target/bench-load.md. Loopback only; every run is bounded in time (10 s per step).
+# Also plumbline on the 100-tree forest, and on the 500-tree model with durable records (SQLite,
+# the default store). Next to requests per second: the server's CPU per answered request, from
+# /proc (user + system time of the server process and its children over the step). Load
+# generator: hey (Debian), on the same cores. Results: stdout and target/bench-load.md. Loopback
+# only; every run is bounded in time (10 s per step).
 #
 #   bench/load.sh [SECONDS_PER_STEP]
 set -euo pipefail
@@ -36,14 +39,23 @@ peak_kib() { # peak RSS of a process and its children, KiB
     echo "$total"
 }
 
+cpu_ticks() { # user + system clock ticks of a process and its children so far
+    local total=0
+    for p in "$1" $(pgrep -P "$1" || true); do
+        total=$((total + $(awk '{print $14 + $15}' "/proc/$p/stat" 2>/dev/null || echo 0)))
+    done
+    echo "$total"
+}
+hz=$(getconf CLK_TCK)
+
 wait_up() {
     for _ in $(seq 1 100); do curl -sf -o /dev/null "$1" && return 0; sleep 0.1; done
     echo "server at $1 did not come up" >&2; return 1
 }
 
 out=target/bench-load.md
-echo "| service | model | offered rate (req/s) | achieved (req/s) | p50 ms | p99 ms | non-200 | peak RSS MiB |" >"$out"
-echo "|---|---|---|---|---|---|---|---|" >>"$out"
+echo "| service | model | offered rate (req/s) | achieved (req/s) | p50 ms | p99 ms | non-200 | server CPU µs per request | peak RSS MiB |" >"$out"
+echo "|---|---|---|---|---|---|---|---|---|" >>"$out"
 
 run_rates() { # name model url pid
     local name=$1 model=$2 url=$3 pid=$4
@@ -55,13 +67,17 @@ run_rates() { # name model url pid
         else
             c=$(( (rate + 124) / 125 )); args=(-c "$c" -q $((rate / c)))
         fi
+        before=$(cpu_ticks "$pid")
         res=$(hey -z "${step}s" "${args[@]}" -m POST -T application/json -D "$models/load-request.json" "$url")
+        after=$(cpu_ticks "$pid")
+        answered=$(awk '/\[[0-9]+\]/ {n += $2} END {print n + 0}' <<<"$res")
+        cpu=$(awk -v t=$((after - before)) -v hz="$hz" -v n="$answered" 'BEGIN {if (n > 0) printf "%.0f", t / hz * 1e6 / n; else print "-"}')
         rps=$(awk '/Requests\/sec/ {printf "%.0f", $2}' <<<"$res")
         p50=$(awk '/ 50% in/ {printf "%.2f", $3 * 1000}' <<<"$res")
         p99=$(awk '/ 99% in/ {printf "%.2f", $3 * 1000}' <<<"$res")
         bad=$(awk '/\[[0-9]+\]/ {gsub(/[\[\]]/, "", $1); if ($1 != 200) n += $2} END {print n + 0}' <<<"$res")
         mem=$(( $(peak_kib "$pid") / 1024 ))
-        echo "| $name | $model | $rate | $rps | $p50 | $p99 | $bad | $mem |" | tee -a "$out"
+        echo "| $name | $model | $rate | $rps | $p50 | $p99 | $bad | $cpu | $mem |" | tee -a "$out"
     done
 }
 
@@ -74,6 +90,16 @@ for model in boosted500 forest100; do
     run_rates plumbline "$model" http://127.0.0.1:18080/v1/decisions "$pid"
     kill -TERM "$pid"; wait "$pid" || true
 done
+
+# Durable records, as a lender runs it: every decision committed to the default SQLite store
+# (WAL, synchronous=FULL) before it is answered.
+store=$(mktemp -d)
+target/release/plumbline serve --no-auth --store "sqlite:$store/records.sqlite3" --addr 127.0.0.1:18080 --workers 2 --model "$models/boosted500.json" 2>/dev/null &
+pid=$!
+wait_up http://127.0.0.1:18080/health/ready
+run_rates plumbline-durable-sqlite boosted500 http://127.0.0.1:18080/v1/decisions "$pid"
+kill -TERM "$pid"; wait "$pid" || true
+rm -rf "$store"
 
 # One uvicorn worker: with --workers 2 this peer answered in 48 ms per request at any load on this
 # machine (41 req/s), with one worker in 4-5 ms (about 450 req/s); we give the peer its best.

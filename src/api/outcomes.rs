@@ -17,6 +17,12 @@ const MEDIA: &[&str] = &["text/csv", "application/json", "application/x-ndjson"]
 /// writes of a large file pace how fast it is read).
 const UPLOAD_TIME: u32 = 60;
 
+/// A CSV or JSON-lines file of outcomes, sent as it is (the document calls it binary, as
+/// OpenAPI 3.1 writes a file upload, so that client generators send the bytes untouched).
+#[derive(utoipa::ToSchema)]
+#[schema(value_type = String, format = Binary)]
+pub struct OutcomesFile(#[allow(dead_code)] Vec<u8>);
+
 /// What had been loaded when a load stopped, for the problem's detail.
 fn so_far(s: &LoadSummary) -> String {
     format!(
@@ -29,9 +35,9 @@ fn so_far(s: &LoadSummary) -> String {
 #[utoipa::path(post, path = "/v1/outcomes", tag = "monitoring",
     request_body(description = "Rows of `application_id`, `defaulted` (0 or 1) and `observed_at` (RFC 3339 UTC or a date): CSV with a header line (other columns are ignored and named), a JSON array of objects, or JSON lines (application/x-ndjson). Up to the upload limit (64 MiB by default), read as it arrives; one outcome per application, never updated.",
         content(
-            (String = "text/csv", example = "application_id,defaulted,observed_at\nA-1001,0,2027-06-30\nA-1002,1,2027-04-12\n"),
+            (OutcomesFile = "text/csv", example = "application_id,defaulted,observed_at\nA-1001,0,2027-06-30\nA-1002,1,2027-04-12\n"),
             (Vec<Object> = "application/json"),
-            (String = "application/x-ndjson"),
+            (OutcomesFile = "application/x-ndjson"),
         )),
     responses(
         (status = 200, description = "Every row accounted for: stored, duplicate (the same outcome is stored), conflict (a different one is stored and kept), unknown application (no decision recorded), or bad (named with its field and rule); the first 100 rows not stored are listed", body = LoadSummary),
