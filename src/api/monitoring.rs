@@ -12,7 +12,7 @@ use super::State;
 use crate::monitor::{
     html, BackTest, BackTestTally, Period, ReasonTrends, Stability, StabilityTally, TrendTally,
 };
-use crate::records::{Query, Record, Store};
+use crate::records::{Query, Store, StoreError};
 use actix_web::{web, HttpRequest, HttpResponse};
 use std::collections::HashMap;
 use std::sync::Arc;
@@ -38,8 +38,9 @@ fn model_query(
     Ok((query, params, model_id))
 }
 
-/// The records of `query` streamed past `add` on the blocking pool, one report place held, then
-/// the read written to the access log: the tally, whatever it counted.
+/// `read` (the records of `query`, or its decisions with their outcomes, streamed into the
+/// tally) on the blocking pool, one report place held, then the read written to the access
+/// log: the tally, whatever it counted.
 async fn tally_records<T: Send + 'static>(
     state: &State,
     req: &HttpRequest,
@@ -47,16 +48,13 @@ async fn tally_records<T: Send + 'static>(
     query: Query,
     action: &str,
     mut tally: T,
-    add: fn(&mut T, &Record),
+    read: fn(&dyn Store, &Query, &mut T) -> Result<u64, StoreError>,
 ) -> Result<T, Problem> {
     let slot = state.report_slot()?;
-    let read = store.clone();
+    let store_read = store.clone();
     let (tally, counted) = blocking(move || {
         let _slot = slot;
-        let n = read.export(&query, &mut |r| {
-            add(&mut tally, r);
-            true
-        })?;
+        let n = read(&*store_read, &query, &mut tally)?;
         Ok((tally, n))
     })
     .await?;
@@ -140,7 +138,12 @@ pub async fn stability(state: web::Data<State>, req: HttpRequest) -> Result<Http
         query,
         "stability",
         tally,
-        StabilityTally::add_record,
+        |store, query, tally| {
+            store.export(query, &mut |r| {
+                tally.add_record(r);
+                true
+            })
+        },
     )
     .await?;
     let report = tally.finish((&model_id, &version), range);
@@ -202,7 +205,12 @@ pub async fn reasons(state: web::Data<State>, req: HttpRequest) -> Result<HttpRe
         query,
         "reason_trends",
         tally,
-        TrendTally::add_record,
+        |store, query, tally| {
+            store.export(query, &mut |r| {
+                tally.add_record(r);
+                true
+            })
+        },
     )
     .await?;
     let report = tally.finish(&model_id, range);
@@ -246,26 +254,22 @@ pub async fn outcomes(state: web::Data<State>, req: HttpRequest) -> Result<HttpR
     let version = model.identity.version.clone();
     query.model_version = Some(version.clone());
     let range = (query.from.clone(), query.to.clone());
-    let mut tally = BackTestTally::new(model.policy.scaling.points, model.policy.scaling.pdo);
-    let slot = state.report_slot()?;
-    let read = store.clone();
-    let (tally, counted) = blocking(move || {
-        let _slot = slot;
-        let n = read.with_outcomes(&query, &mut |d| {
-            tally.add(d);
-            true
-        })?;
-        Ok((tally, n))
-    })
-    .await?;
-    let entry = access(
-        &caller,
+    let tally = BackTestTally::new(model.policy.scaling.points, model.policy.scaling.pdo);
+    let tally = tally_records(
+        &state,
         &req,
+        (&store, &caller),
+        query,
         "back_test",
-        req.query_string(),
-        Some(counted as i64),
-    );
-    log_access(&store, entry).await?;
+        tally,
+        |store, query, tally| {
+            store.with_outcomes(query, &mut |d| {
+                tally.add(d);
+                true
+            })
+        },
+    )
+    .await?;
     let (report, curve) = tally.finish((&model_id, &version), range);
     if report.decisions == 0 {
         return Err(Problem::no_decisions(&model_id, &version));

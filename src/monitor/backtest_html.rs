@@ -4,22 +4,10 @@
 
 use super::backtest::BackTest;
 use super::calibration::BandCheck;
+use super::html::{esc, range_words, STYLE};
 use crate::evaluate::curves::{largest_gap, CurvePoint};
 use crate::evaluate::html::unit_plot;
 use std::fmt::Write;
-
-fn esc(s: &str) -> String {
-    s.replace('&', "&amp;")
-        .replace('<', "&lt;")
-        .replace('>', "&gt;")
-        .replace('"', "&quot;")
-}
-
-const STYLE: &str = "body{font-family:system-ui,sans-serif;margin:2rem;color:#111;max-width:64rem}
-h1{font-size:1.4rem}h2{font-size:1.15rem;margin-top:2rem;border-top:1px solid #999;padding-top:1rem}
-table{border-collapse:collapse;margin:.5rem 0}th,td{border:1px solid #bbb;padding:.25rem .5rem;text-align:right}
-th:first-child,td:first-child{text-align:left}.caution{border:2px solid #333;padding:.75rem;background:#f4f4f4}
-svg text{font-size:11px;font-family:sans-serif}section{break-inside:avoid}@media print{body{margin:0}svg{max-width:100%}h2{break-after:avoid}}";
 
 fn pct(v: f64) -> String {
     format!("{:.2}%", 100.0 * v)
@@ -103,12 +91,7 @@ pub fn page(r: &BackTest, roc: &[CurvePoint]) -> String {
         "<p class=\"caution\"><strong>Caution.</strong> {}</p>",
         esc(r.caution)
     );
-    let range = match (&r.from, &r.to) {
-        (Some(f), Some(t)) => format!("decided from {f} to before {t}"),
-        (Some(f), None) => format!("decided from {f}"),
-        (None, Some(t)) => format!("decided before {t}"),
-        (None, None) => "every recorded decision".to_string(),
-    };
+    let range = range_words(&r.from, &r.to);
     let _ = write!(s, "<p>{} decisions ({}); {} with an observed outcome, {} of them defaulted. Outcomes observed before their decision, left out: {}.</p>", r.decisions, esc(&range), r.with_outcome, r.defaults, r.observed_before_decision);
     s.push_str("<table><tbody>");
     match &r.discrimination {

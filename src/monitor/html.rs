@@ -5,18 +5,30 @@ use super::stability::{FieldStability, Stability};
 use super::trends::ReasonTrends;
 use std::fmt::Write;
 
-fn esc(s: &str) -> String {
+/// Text for an HTML page (every monitoring page escapes through this).
+pub(super) fn esc(s: &str) -> String {
     s.replace('&', "&amp;")
         .replace('<', "&lt;")
         .replace('>', "&gt;")
         .replace('"', "&quot;")
 }
 
-const STYLE: &str = "body{font-family:system-ui,sans-serif;margin:2rem;color:#111;max-width:64rem}
+/// The monitoring pages' one style block.
+pub(super) const STYLE: &str = "body{font-family:system-ui,sans-serif;margin:2rem;color:#111;max-width:64rem}
 h1{font-size:1.4rem}h2{font-size:1.15rem;margin-top:2rem;border-top:1px solid #999;padding-top:1rem}
 table{border-collapse:collapse;margin:.5rem 0}th,td{border:1px solid #bbb;padding:.25rem .5rem;text-align:right}
 th:first-child,td:first-child{text-align:left}.caution{border:2px solid #333;padding:.75rem;background:#f4f4f4}
 svg text{font-size:11px;font-family:sans-serif}section{break-inside:avoid}@media print{body{margin:0}svg{max-width:100%}h2{break-after:avoid}}";
+
+/// A report's decision range in words.
+pub(super) fn range_words(from: &Option<String>, to: &Option<String>) -> String {
+    match (from, to) {
+        (Some(f), Some(t)) => format!("decided from {f} to before {t}"),
+        (Some(f), None) => format!("decided from {f}"),
+        (None, Some(t)) => format!("decided before {t}"),
+        (None, None) => "every recorded decision".to_string(),
+    }
+}
 
 /// Development and current shares per bin, side by side (development hatched).
 fn distribution_chart(d: &FieldStability) -> String {
@@ -85,12 +97,7 @@ pub fn page(r: &Stability) -> String {
         "<p class=\"caution\"><strong>Caution.</strong> {}</p>",
         esc(r.caution)
     );
-    let range = match (&r.from, &r.to) {
-        (Some(f), Some(t)) => format!("decided from {f} to before {t}"),
-        (Some(f), None) => format!("decided from {f}"),
-        (None, Some(t)) => format!("decided before {t}"),
-        (None, None) => "every recorded decision".to_string(),
-    };
+    let range = range_words(&r.from, &r.to);
     let _ = write!(s, "<p>{} decisions ({}), against the development sample: {} ({} rows). Records whose request could not be read: {}.</p>", r.decisions, esc(&range), esc(&r.development), r.development_rows, r.unreadable);
     s.push_str("<h2>Stability index per distribution</h2>");
     s.push_str(&psi_chart(r));

@@ -511,6 +511,46 @@ impl PostgresStore {
     }
 }
 
+impl PostgresStore {
+    /// Rows of `text` as the server sends them (nothing collected), each as `convert` makes it,
+    /// handed to `sink` until it returns false: how many were sent. Each step (the query, then
+    /// every row) must arrive within the read limit; `what` names the wait in a timeout.
+    fn stream<T>(
+        &self,
+        text: &str,
+        params: &[String],
+        what: &str,
+        convert: fn(&Row) -> Result<T, StoreError>,
+        sink: &mut dyn FnMut(&T) -> bool,
+    ) -> Result<u64, StoreError> {
+        let conn = self.reader()?;
+        let c = &conn.client;
+        let out = self.block_on(async {
+            let rows = within(Instant::now() + READ_STEP, what, async {
+                (c.query_raw(text, params.iter().map(|p| p as &(dyn ToSql + Sync)))
+                    .await)
+                    .map_err(failed)
+            })
+            .await?;
+            pin_mut!(rows);
+            let mut sent = 0;
+            loop {
+                let next = within(Instant::now() + READ_STEP, what, async {
+                    rows.try_next().await.map_err(failed)
+                })
+                .await?;
+                let Some(row) = next else { break };
+                if !sink(&convert(&row)?) {
+                    break;
+                }
+                sent += 1;
+            }
+            Ok(sent)
+        });
+        self.give_back(conn, out)
+    }
+}
+
 fn poisoned() -> StoreError {
     StoreError::Failed("writer lock poisoned".into())
 }
@@ -786,33 +826,7 @@ impl Store for PostgresStore {
         sink: &mut dyn FnMut(&Record) -> bool,
     ) -> Result<u64, StoreError> {
         let (text, params) = sql::select(query, None);
-        let conn = self.reader()?;
-        let c = &conn.client;
-        let out = self.block_on(async {
-            // query_raw streams rows as the server sends them; nothing is collected. Each step
-            // (the query, then every row) must arrive within the read limit.
-            let rows = within(Instant::now() + READ_STEP, "exporting", async {
-                (c.query_raw(&text, params.iter().map(|p| p as &(dyn ToSql + Sync)))
-                    .await)
-                    .map_err(failed)
-            })
-            .await?;
-            pin_mut!(rows);
-            let mut sent = 0;
-            loop {
-                let next = within(Instant::now() + READ_STEP, "exporting", async {
-                    rows.try_next().await.map_err(failed)
-                })
-                .await?;
-                let Some(row) = next else { break };
-                if !sink(&row_to_record(&row)?) {
-                    break;
-                }
-                sent += 1;
-            }
-            Ok(sent)
-        });
-        self.give_back(conn, out)
+        self.stream(&text, &params, "exporting", row_to_record, sink)
     }
 
     fn insert_outcomes(&self, rows: &[ObservedOutcome]) -> Result<Vec<OutcomeInsert>, StoreError> {
@@ -840,31 +854,7 @@ impl Store for PostgresStore {
         sink: &mut dyn FnMut(&DecisionWithOutcome) -> bool,
     ) -> Result<u64, StoreError> {
         let (text, params) = sql::select_with_outcomes(query);
-        let conn = self.reader()?;
-        let c = &conn.client;
-        let out = self.block_on(async {
-            let rows = within(Instant::now() + READ_STEP, "reading outcomes", async {
-                (c.query_raw(&text, params.iter().map(|p| p as &(dyn ToSql + Sync)))
-                    .await)
-                    .map_err(failed)
-            })
-            .await?;
-            pin_mut!(rows);
-            let mut sent = 0;
-            loop {
-                let next = within(Instant::now() + READ_STEP, "reading outcomes", async {
-                    rows.try_next().await.map_err(failed)
-                })
-                .await?;
-                let Some(row) = next else { break };
-                if !sink(&row_with_outcome(&row)?) {
-                    break;
-                }
-                sent += 1;
-            }
-            Ok(sent)
-        });
-        self.give_back(conn, out)
+        self.stream(&text, &params, "reading outcomes", row_with_outcome, sink)
     }
 
     fn probe_write(&self) -> Result<(), StoreError> {

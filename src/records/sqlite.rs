@@ -176,6 +176,33 @@ impl SqliteStore {
     }
 }
 
+impl SqliteStore {
+    /// Rows of `text` read one at a time, each as `convert` makes it, handed to `sink` until it
+    /// returns false: how many were sent.
+    fn stream<T>(
+        &self,
+        text: &str,
+        params: &[String],
+        convert: fn(&rusqlite::Row) -> rusqlite::Result<T>,
+        sink: &mut dyn FnMut(&T) -> bool,
+    ) -> Result<u64, StoreError> {
+        self.with_reader(|c| {
+            let mut stmt = c.prepare(&sql::for_sqlite(text)).map_err(failed)?;
+            let mut rows = stmt
+                .query(rusqlite::params_from_iter(params.iter()))
+                .map_err(failed)?;
+            let mut sent = 0;
+            while let Some(row) = rows.next().map_err(failed)? {
+                if !sink(&convert(row).map_err(failed)?) {
+                    break;
+                }
+                sent += 1;
+            }
+            Ok(sent)
+        })
+    }
+}
+
 fn migrate(c: &mut Connection) -> Result<(), StoreError> {
     let tx = c
         .transaction_with_behavior(rusqlite::TransactionBehavior::Immediate)
@@ -387,20 +414,7 @@ impl Store for SqliteStore {
         sink: &mut dyn FnMut(&Record) -> bool,
     ) -> Result<u64, StoreError> {
         let (text, params) = sql::select(query, None);
-        self.with_reader(|c| {
-            let mut stmt = c.prepare(&sql::for_sqlite(&text)).map_err(failed)?;
-            let mut rows = stmt
-                .query(rusqlite::params_from_iter(params.iter()))
-                .map_err(failed)?;
-            let mut sent = 0;
-            while let Some(row) = rows.next().map_err(failed)? {
-                if !sink(&row_to_record(row).map_err(failed)?) {
-                    break;
-                }
-                sent += 1;
-            }
-            Ok(sent)
-        })
+        self.stream(&text, &params, row_to_record, sink)
     }
 
     fn insert_outcomes(&self, rows: &[ObservedOutcome]) -> Result<Vec<OutcomeInsert>, StoreError> {
@@ -457,20 +471,7 @@ impl Store for SqliteStore {
         sink: &mut dyn FnMut(&DecisionWithOutcome) -> bool,
     ) -> Result<u64, StoreError> {
         let (text, params) = sql::select_with_outcomes(query);
-        self.with_reader(|c| {
-            let mut stmt = c.prepare(&sql::for_sqlite(&text)).map_err(failed)?;
-            let mut rows = stmt
-                .query(rusqlite::params_from_iter(params.iter()))
-                .map_err(failed)?;
-            let mut sent = 0;
-            while let Some(row) = rows.next().map_err(failed)? {
-                if !sink(&row_with_outcome(row).map_err(failed)?) {
-                    break;
-                }
-                sent += 1;
-            }
-            Ok(sent)
-        })
+        self.stream(&text, &params, row_with_outcome, sink)
     }
 
     fn probe_write(&self) -> Result<(), StoreError> {
