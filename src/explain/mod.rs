@@ -16,7 +16,7 @@ pub use linear::LinearExplainer;
 pub use paths::TreePaths;
 pub use shapley::ShapleyExplainer;
 pub use tree_interventional::InterventionalExplainer;
-pub use tree_path::PathExplainer;
+pub use tree_path::{Kernel, PathExplainer};
 
 use crate::model::Space;
 

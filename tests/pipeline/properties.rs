@@ -4,7 +4,7 @@
 
 use crate::common::{random_ensemble, random_row, Rng};
 use plumbline::artifact::spec::Aggregation;
-use plumbline::explain::{is_additive, InterventionalExplainer, PathExplainer};
+use plumbline::explain::{is_additive, InterventionalExplainer, Kernel, PathExplainer};
 use proptest::prelude::*;
 
 proptest! {
@@ -24,6 +24,30 @@ proptest! {
         explainer.explain_into(&x, &mut b);
         prop_assert!(is_additive(explainer.base_value(), &a, e.raw(&x)));
         prop_assert_eq!(a.iter().map(|v| v.to_bits()).collect::<Vec<_>>(), b.iter().map(|v| v.to_bits()).collect::<Vec<_>>());
+    }
+
+    /// The level-order kernel (what decisions use) against the recursive reference kernel, on
+    /// trees with zero-cover leaves, repeated columns, strict and non-strict splits, values on
+    /// thresholds and missing values.
+    #[test]
+    fn level_kernel_matches_recursive_kernel(seed in any::<u64>(), trees in 1usize..12, depth in 1usize..14, forest in any::<bool>()) {
+        let mut rng = Rng::new(seed);
+        let agg = if forest { Aggregation::MeanProbability } else { Aggregation::SumLogOdds };
+        let columns = 9;
+        let e = random_ensemble(&mut rng, trees, columns, depth, agg);
+        let levels = PathExplainer::with_options(&e, 16, Kernel::Levels);
+        let recursive = PathExplainer::with_options(&e, 16, Kernel::Recursive);
+        prop_assert_eq!(levels.base_value().to_bits(), recursive.base_value().to_bits());
+        for _ in 0..4 {
+            let x = random_row(&mut rng, columns);
+            let mut a = vec![0.0; columns];
+            let mut b = vec![0.0; columns];
+            levels.explain_into(&x, &mut a);
+            recursive.explain_into(&x, &mut b);
+            for (c, (a, b)) in a.iter().zip(&b).enumerate() {
+                prop_assert!((a - b).abs() <= 1e-12 * (1.0 + b.abs()), "column {}: {} vs {}", c, a, b);
+            }
+        }
     }
 
     #[test]

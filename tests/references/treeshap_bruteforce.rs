@@ -12,7 +12,7 @@
 
 use crate::common::{random_ensemble, random_row, Rng};
 use plumbline::artifact::spec::Aggregation;
-use plumbline::explain::{InterventionalExplainer, PathExplainer};
+use plumbline::explain::{InterventionalExplainer, Kernel, PathExplainer};
 use plumbline::model::{Ensemble, Node};
 
 fn cond_expectation(nodes: &[Node], id: usize, x: &[f64], known: u32) -> f64 {
@@ -89,13 +89,15 @@ fn assert_close(got: &[f64], want: &[f64], tol: f64, what: &str) {
 fn check_path_dependent(seed: u64, columns: usize, depth: usize, trees: usize, agg: Aggregation) {
     let mut rng = Rng::new(seed);
     let e = random_ensemble(&mut rng, trees, columns, depth, agg);
-    // Quadrature (the default) and the per-leaf closed form (forced with limit 0) both exact.
-    for quadrature in [true, false] {
-        let explainer = if quadrature {
-            PathExplainer::new(&e)
-        } else {
-            PathExplainer::with_quadrature_limit(&e, 0)
-        };
+    // Quadrature by both kernels (the level-order default and the recursive reference) and the
+    // per-leaf closed form (forced with limit 0): all exact.
+    for (quadrature, kernel) in [
+        (true, Kernel::Levels),
+        (true, Kernel::Recursive),
+        (false, Kernel::Levels),
+    ] {
+        let limit = if quadrature { 16 } else { 0 };
+        let explainer = PathExplainer::with_options(&e, limit, kernel);
         let (by_quadrature, per_leaf) = explainer.algorithm_counts();
         assert_eq!(by_quadrature > 0, quadrature);
         assert_eq!(per_leaf > 0, !quadrature);
@@ -114,7 +116,7 @@ fn check_path_dependent(seed: u64, columns: usize, depth: usize, trees: usize, a
                 &got,
                 &want,
                 1e-12,
-                &format!("path-dependent seed {seed}, quadrature {quadrature}"),
+                &format!("path-dependent seed {seed}, quadrature {quadrature}, {kernel:?}"),
             );
         }
     }

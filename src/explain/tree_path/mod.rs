@@ -1,0 +1,158 @@
+//! Exact path-dependent TreeSHAP (Lundberg, Erion, Lee 2018, arXiv:1802.03888).
+//!
+//! For one leaf, the expectation over the training population is a product game: column j on
+//! the path counts with its indicator `o_j` (does the row satisfy every split on j?) when j is
+//! known, and with its zero fraction `z_j` (share of cover) when not. Writing
+//! `g_j(u) = z_j + (o_j - z_j) u`, the Shapley weight s!(k-1-s)!/k! is a Beta integral, so
+//!
+//! ```text
+//! phi_i = v (o_i - z_i) * integral over [0,1] of prod_{j != i} g_j(u) du,
+//! ```
+//!
+//! a polynomial of degree k-1 that Gauss-Legendre quadrature with ceil(k/2) points gets exactly
+//! (the idea of Linear TreeShap, Yu et al. 2022, arXiv:2209.08192). Per tree, `prod_j g_j` is
+//! carried down to every node at each quadrature point and leaf values times it are summed back
+//! up; a column's contribution is collected on each edge that splits on it, with a telescoping
+//! correction where a column is split on again deeper down. Work is O(nodes x points) per tree.
+//!
+//! Two kernels compute this: `levels` (flat passes over trees laid out level by level, no branch
+//! on the row, vectorised; it explains decisions) and `recursive` (a depth-first walk, the
+//! reference the tests hold the other to). Trees with more than [`QUADRATURE_MAX_DEPTH`]
+//! distinct columns on a path use the per-leaf closed form in elementary symmetric polynomials
+//! (`per_leaf`), O(leaves x depth^2).
+
+mod levels;
+mod per_leaf;
+mod recursive;
+
+use super::paths::{PathTree, TreePaths};
+use crate::artifact::spec::Aggregation;
+use crate::model::{Ensemble, Node};
+use levels::{LevelGroup, LANES};
+use recursive::{QuadTree, Rule};
+
+/// Most distinct columns on one path explained by quadrature (8 points); wider trees use the
+/// per-leaf closed form.
+pub const QUADRATURE_MAX_DEPTH: usize = 16;
+const MAX_POINTS: usize = QUADRATURE_MAX_DEPTH / 2;
+
+/// Which kernel explains the trees that quadrature takes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Kernel {
+    /// Level by level, branch-free and vectorised: what decisions use.
+    Levels,
+    /// Depth-first recursion: the reference the tests and benchmarks compare with.
+    Recursive,
+}
+
+#[derive(Debug, Clone)]
+pub struct PathExplainer {
+    base: f64,
+    /// Trees for the level kernel, one group per quadrature rule in use.
+    groups: Vec<LevelGroup>,
+    /// Trees for the recursive kernel.
+    recursive: Vec<QuadTree>,
+    /// Trees too wide for quadrature.
+    per_leaf: Vec<(Vec<Node>, PathTree)>,
+    /// Gauss-Legendre rules on [0, 1] for the recursive kernel, indexed by number of points.
+    rules: Vec<Rule>,
+}
+
+impl PathExplainer {
+    /// Needs every node's cover (checked at load).
+    pub fn new(ensemble: &Ensemble) -> Self {
+        Self::with_options(ensemble, QUADRATURE_MAX_DEPTH, Kernel::Levels)
+    }
+
+    /// As [`Self::new`], using quadrature only for trees whose paths hold at most `limit` distinct
+    /// columns (0: never) and the per-leaf closed form for the others, and `kernel` for the
+    /// quadrature. All are exact; tests use this to check each against the others.
+    pub fn with_options(ensemble: &Ensemble, limit: usize, kernel: Kernel) -> Self {
+        let limit = limit.min(QUADRATURE_MAX_DEPTH);
+        let weight = ensemble.tree_weight();
+        let mut base = match ensemble.aggregation {
+            Aggregation::SumLogOdds | Aggregation::SumProbability => ensemble.initial_value,
+            Aggregation::MeanProbability => 0.0,
+        };
+        let mut explainer = PathExplainer {
+            base: 0.0,
+            groups: LANES.iter().map(|&q| LevelGroup::new(q)).collect(),
+            recursive: Vec::new(),
+            per_leaf: Vec::new(),
+            rules: (0..=MAX_POINTS).map(Rule::new).collect(),
+        };
+        let paths = TreePaths::new(ensemble);
+        for (tree, paths) in ensemble.trees.iter().zip(paths.trees) {
+            let root = tree.nodes[0].cover;
+            if root > 0.0 {
+                for node in tree.nodes.iter().filter(|n| n.is_leaf()) {
+                    base += weight * node.value * node.cover / root;
+                }
+            }
+            // The widest leaf game has k players; its integrand has degree k - 1.
+            let players = paths.leaves.iter().map(|l| l.k as usize).max().unwrap_or(0);
+            let points = players.div_ceil(2).max(1);
+            if players > limit || tree.nodes.len() >= u32::MAX as usize {
+                explainer.per_leaf.push((tree.nodes.clone(), paths));
+            } else if kernel == Kernel::Recursive {
+                let t = QuadTree::new(&tree.nodes, &paths.pos, weight, points);
+                explainer.recursive.push(t);
+            } else {
+                let zero = edge_zero_fractions(&tree.nodes, &paths.pos);
+                let group = (explainer.groups.iter_mut())
+                    .find(|g| g.points() >= points)
+                    .expect("the widest rule takes QUADRATURE_MAX_DEPTH columns");
+                group.push(&tree.nodes, &paths.pos, &zero, weight);
+            }
+        }
+        explainer.groups.retain(|g| g.tree_count() > 0);
+        explainer.base = base;
+        explainer
+    }
+
+    /// Expected output over the training population (through the covers).
+    pub fn base_value(&self) -> f64 {
+        self.base
+    }
+
+    pub fn explain_into(&self, x: &[f64], out: &mut [f64]) {
+        for group in &self.groups {
+            group.explain_into(x, out);
+        }
+        for tree in &self.recursive {
+            tree.explain_into(&self.rules[tree.points()], x, out);
+        }
+        for (nodes, paths) in &self.per_leaf {
+            per_leaf::per_leaf_into(nodes, paths, x, out);
+        }
+    }
+
+    /// (trees explained by quadrature, trees explained per leaf), for `inspect`.
+    pub fn algorithm_counts(&self) -> (usize, usize) {
+        let levels: usize = self.groups.iter().map(|g| g.tree_count()).sum();
+        (levels + self.recursive.len(), self.per_leaf.len())
+    }
+}
+
+/// The zero fraction each edge leaves its parent's column with: the product of the cover ratios
+/// of every split on that column from the root down to and including this edge (1 at the root).
+fn edge_zero_fractions(nodes: &[Node], pos: &[u8]) -> Vec<f64> {
+    let mut zero = vec![1.0; nodes.len()];
+    let mut stack = vec![(0u32, [1.0f64; QUADRATURE_MAX_DEPTH + 1])];
+    while let Some((id, path)) = stack.pop() {
+        let n = &nodes[id as usize];
+        if n.is_leaf() {
+            continue;
+        }
+        let p = pos[id as usize] as usize;
+        for c in [n.left, n.right] {
+            let child = nodes[c as usize].cover;
+            let ratio = if n.cover == 0.0 { 0.0 } else { child / n.cover };
+            let mut next = path;
+            next[p] *= ratio;
+            zero[c as usize] = next[p];
+            stack.push((c, next));
+        }
+    }
+    zero
+}
