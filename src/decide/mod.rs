@@ -193,12 +193,14 @@ pub fn decide(
 ) -> Result<Decision, InputError> {
     let encoded = model.schema.check_and_encode(applicant, "applicant")?;
     let x = &encoded.columns;
-    let raw = model.scorer.raw(x);
-    let (probability, log_odds) = model.scorer.probability_and_log_odds(raw);
-
     let mut by_column = vec![0.0; x.len()];
     let mut errors = Vec::new();
-    (model.explainer).explain_with_errors(x, &mut by_column, &mut errors);
+    // The model's raw output, from the explainer when it found it on the way (the same bits).
+    let raw = match (model.explainer).explain_scored(x, &mut by_column, &mut errors) {
+        Some(raw) => raw,
+        None => model.scorer.raw(x),
+    };
+    let (probability, log_odds) = model.scorer.probability_and_log_odds(raw);
     let base = model.explainer.base_value();
     not_finite(model, &by_column, [raw, probability, log_odds, base])?;
     debug_assert!(

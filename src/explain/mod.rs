@@ -76,14 +76,22 @@ impl Explainer {
     /// As [`Self::explain_into`]; estimated contributions also write their standard errors into
     /// `errors` (one per column, like `out`), which is left empty for exact ones.
     pub fn explain_with_errors(&self, x: &[f64], out: &mut [f64], errors: &mut Vec<f64>) {
+        self.explain_scored(x, out, errors);
+    }
+
+    /// As [`Self::explain_with_errors`]; an explainer that finds the model's raw output on the
+    /// way (path-dependent TreeSHAP passes every split) returns it, bit for bit what the model's
+    /// own evaluation gives, so the caller need not evaluate the model again.
+    pub fn explain_scored(&self, x: &[f64], out: &mut [f64], errors: &mut Vec<f64>) -> Option<f64> {
         out.fill(0.0);
         errors.clear();
         match self {
             Explainer::Linear(e) => e.explain_into(x, out),
-            Explainer::PathDependent(e) => e.explain_into(x, out),
+            Explainer::PathDependent(e) => return Some(e.explain_and_score(x, out)),
             Explainer::Interventional(e) => e.explain_into(x, out),
             Explainer::Shapley(e) => e.explain_into(x, out, errors),
         }
+        None
     }
 }
 

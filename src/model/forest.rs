@@ -92,10 +92,7 @@ impl Ensemble {
     /// Turns a sum over trees into the ensemble's output.
     #[inline]
     pub fn finish(&self, sum: f64) -> f64 {
-        match self.aggregation {
-            Aggregation::MeanProbability => sum / self.trees.len() as f64,
-            Aggregation::SumLogOdds | Aggregation::SumProbability => self.initial_value + sum,
-        }
+        finish(self.aggregation, self.initial_value, self.trees.len(), sum)
     }
 
     /// Scale applied to per-tree quantities (1/n for averaged forests, else 1).
@@ -116,5 +113,15 @@ impl Ensemble {
 
     pub fn max_depth(&self) -> usize {
         self.trees.iter().map(|t| t.depth).max().unwrap_or(0)
+    }
+}
+
+/// An ensemble's output from the sum of the leaves a row reaches in its `trees` trees (one
+/// definition, for the model's own walk and for explainers that find those leaves on the way).
+#[inline]
+pub fn finish(aggregation: Aggregation, initial_value: f64, trees: usize, sum: f64) -> f64 {
+    match aggregation {
+        Aggregation::MeanProbability => sum / trees as f64,
+        Aggregation::SumLogOdds | Aggregation::SumProbability => initial_value + sum,
     }
 }

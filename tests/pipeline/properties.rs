@@ -28,7 +28,8 @@ proptest! {
 
     /// The level-order kernel (what decisions use) against the recursive reference kernel, on
     /// trees with zero-cover leaves, repeated columns, strict and non-strict splits, values on
-    /// thresholds and missing values.
+    /// thresholds and missing values; and the raw output every kernel finds on the way equal to
+    /// the model's own walk, bit for bit (decisions take it from there).
     #[test]
     fn level_kernel_matches_recursive_kernel(seed in any::<u64>(), trees in 1usize..12, depth in 1usize..14, forest in any::<bool>()) {
         let mut rng = Rng::new(seed);
@@ -42,8 +43,12 @@ proptest! {
             let x = random_row(&mut rng, columns);
             let mut a = vec![0.0; columns];
             let mut b = vec![0.0; columns];
-            levels.explain_into(&x, &mut a);
-            recursive.explain_into(&x, &mut b);
+            // The raw output each finds on the way is the model's own, bit for bit.
+            let raw = e.raw(&x).to_bits();
+            prop_assert_eq!(levels.explain_and_score(&x, &mut a).to_bits(), raw);
+            prop_assert_eq!(recursive.explain_and_score(&x, &mut b).to_bits(), raw);
+            let per_leaf = PathExplainer::with_options(&e, 0, Kernel::Levels);
+            prop_assert_eq!(per_leaf.explain_and_score(&x, &mut vec![0.0; columns]).to_bits(), raw);
             for (c, (a, b)) in a.iter().zip(&b).enumerate() {
                 prop_assert!((a - b).abs() <= 1e-12 * (1.0 + b.abs()), "column {}: {} vs {}", c, a, b);
             }

@@ -37,14 +37,14 @@ struct LevelSplit {
     /// Zero fractions of the edges into the left and the right child (the cover share their
     /// column keeps along the path).
     zero: [f64; 2],
-    /// Leaf values of the children times the tree weight; 0 for a child that splits.
-    leaf: [f64; 2],
+    /// What each child's carried product is multiplied by to give its slot's first vector: the
+    /// leaf value times the tree weight for a leaf, 1 for a split.
+    scale: [f64; 2],
     /// The largest value that goes left (strict splits: the float just below the threshold,
     /// so `x < t` becomes `x <= below(t)` for every float x; NaN when nothing does).
     left_max: f64,
-    /// Tree-local slot of this split; its children sit at `left` and `left + 1`.
+    /// Tree-local slot of this split (the children of the k-th split sit at 2k + 1, 2k + 2).
     at: u32,
-    left: u32,
     /// Slot of the edge that both children's edges replace on the path: the last edge on this
     /// column above, or the root (slot 0) when the column is new.
     replaces: u32,
@@ -83,32 +83,57 @@ pub(super) struct LevelGroup {
     u: Vec<f64>,
     w: Vec<f64>,
     splits: Vec<LevelSplit>,
-    /// Per tree, its splits in `splits` (none for a lone leaf) and its number of nodes.
-    trees: Vec<(Range<usize>, usize)>,
-    /// Nodes of the largest tree: the working memory a pass needs.
-    largest: usize,
+    /// Per split, where each child leads for the descent to the leaf a row reaches: the child's
+    /// split (tree-local split index), or [`LEAF`] plus its place in `values`.
+    descent: Vec<[u32; 2]>,
+    /// Leaf values as the model holds them (not weighted): what the row's leaf contributes to
+    /// the raw output.
+    values: Vec<f64>,
+    trees: Vec<LevelTree>,
+    /// Nodes and splits of the largest tree: the working memory a pass needs.
+    largest: (usize, usize),
 }
+
+#[derive(Debug, Clone)]
+struct LevelTree {
+    /// Its splits in `splits` and `descent` (empty for a lone leaf).
+    splits: Range<usize>,
+    nodes: usize,
+    /// Its place in the ensemble.
+    index: usize,
+    /// Place in `values` of the root, when the root is a leaf.
+    lone_leaf: u32,
+}
+
+/// Marks a descent entry that is a leaf.
+const LEAF: u32 = 1 << 31;
 
 /// Per-thread working memory, grown to the largest tree met and reused row after row.
 #[derive(Default)]
 struct Scratch {
-    /// Per node, four vectors of `points` lanes: carried product, 1/g, coefficient, below.
+    /// Per node, three vectors of `points` lanes: [`PRODUCT`], [`INV`], [`COEF`].
     lanes: Vec<f64>,
     /// Per node, whether the edge into it is hot.
     hot: Vec<u8>,
+    /// Per split, 1 if the row goes left there.
+    dir: Vec<u8>,
     /// Per column, each lane's share before the rule's weights.
     shares: Vec<f64>,
 }
 
 thread_local! {
     static SCRATCH: RefCell<Scratch> = RefCell::new(Scratch::default());
+
 }
 
-/// Where a node's working values sit in its slot of four lanes-wide vectors.
-const CARRIED: usize = 0;
+/// Where a node's working values sit in its slot of three lanes-wide vectors. The first holds
+/// the product carried down to a split until its children are done with it, then the sum below
+/// it; for a leaf, the product times the leaf value (the sum below it) from the start.
+const PRODUCT: usize = 0;
+/// 1/g of the edge into the node.
 const INV: usize = 1;
+/// The edge's coefficient (o - z)/g.
 const COEF: usize = 2;
-const BELOW: usize = 3;
 
 impl LevelGroup {
     /// An empty group with the `points`-point rule (one of [`LANES`]).
@@ -119,8 +144,10 @@ impl LevelGroup {
             u,
             w,
             splits: Vec::new(),
+            descent: Vec::new(),
+            values: Vec::new(),
             trees: Vec::new(),
-            largest: 0,
+            largest: (0, 0),
         }
     }
 
@@ -132,11 +159,20 @@ impl LevelGroup {
         self.trees.len()
     }
 
-    /// Lays out one tree: `pos` is each split's column position on its path, `zero` each edge's
-    /// zero fraction (`super::edge_zero_fractions`), `weight` the ensemble's tree weight.
-    pub(super) fn push(&mut self, nodes: &[Node], pos: &[u8], zero: &[f64], weight: f64) {
+    /// Lays out tree number `index` of its ensemble: `pos` is each split's column position on
+    /// its path, `zero` each edge's zero fraction (`super::edge_zero_fractions`), `weight` the
+    /// ensemble's tree weight.
+    pub(super) fn push(
+        &mut self,
+        index: usize,
+        nodes: &[Node],
+        pos: &[u8],
+        zero: &[f64],
+        weight: f64,
+    ) {
         let replaces = replaced_edges(nodes, pos);
-        // Level order (a breadth-first queue), a split's children pushed together.
+        // Level order (a breadth-first queue), a split's children pushed together: the children
+        // of the k-th split sit at slots 2k + 1 and 2k + 2.
         let mut order = vec![0u32];
         let mut head = 0;
         while head < order.len() {
@@ -147,91 +183,147 @@ impl LevelGroup {
             }
         }
         let mut slot = vec![0u32; nodes.len()];
+        let mut split_index = vec![0u32; nodes.len()];
+        let mut k = 0;
         for (at, &id) in order.iter().enumerate() {
             slot[id as usize] = at as u32;
+            if !nodes[id as usize].is_leaf() {
+                split_index[id as usize] = k;
+                k += 1;
+            }
         }
         let start = self.splits.len();
+        let lone_leaf = self.values.len() as u32;
+        if nodes[0].is_leaf() {
+            self.values.push(nodes[0].value);
+        }
         for &id in &order {
             let n = &nodes[id as usize];
             if n.is_leaf() {
                 continue;
             }
-            let leaf = |c: u32| {
+            let scale = |c: u32| {
                 let child = &nodes[c as usize];
                 if child.is_leaf() {
                     child.value * weight
                 } else {
-                    0.0
+                    1.0
                 }
             };
+            let mut descent = [0; 2];
+            for (side, c) in [n.left, n.right].into_iter().enumerate() {
+                descent[side] = if nodes[c as usize].is_leaf() {
+                    self.values.push(nodes[c as usize].value);
+                    LEAF | (self.values.len() - 1) as u32
+                } else {
+                    split_index[c as usize]
+                };
+            }
+            self.descent.push(descent);
             self.splits.push(LevelSplit {
                 zero: [zero[n.left as usize], zero[n.right as usize]],
-                leaf: [leaf(n.left), leaf(n.right)],
+                scale: [scale(n.left), scale(n.right)],
                 left_max: if n.strict {
                     below(n.threshold)
                 } else {
                     n.threshold
                 },
                 at: slot[id as usize],
-                left: slot[n.left as usize],
                 replaces: slot[replaces[n.left as usize] as usize],
                 column: n.column,
                 missing_left: n.missing_left as u8,
             });
         }
-        self.trees.push((start..self.splits.len(), nodes.len()));
-        self.largest = self.largest.max(nodes.len());
+        let splits = start..self.splits.len();
+        self.largest.0 = self.largest.0.max(nodes.len());
+        self.largest.1 = self.largest.1.max(splits.len());
+        self.trees.push(LevelTree {
+            splits,
+            nodes: nodes.len(),
+            index,
+            lone_leaf,
+        });
     }
 
-    /// Adds the group's contributions for row `x` to `out` (one per encoded column).
-    pub(super) fn explain_into(&self, x: &[f64], out: &mut [f64]) {
+    /// The largest leaf count a group's values may index (2^31 - 1; [`LEAF`] marks leaves).
+    pub(super) fn has_room_for(&self, leaves: usize) -> bool {
+        self.values.len() + leaves < LEAF as usize
+    }
+
+    /// Adds the group's contributions for row `x` to `out` (one per encoded column), and
+    /// writes the value of the leaf `x` reaches in each of its trees to `reached` (by the tree's
+    /// place in the ensemble).
+    pub(super) fn explain_into(&self, x: &[f64], out: &mut [f64], reached: &mut [f64]) {
         SCRATCH.with(|scratch| {
             let scratch = &mut *scratch.borrow_mut();
             match self.points {
-                1 => self.run::<1>(x, out, scratch),
-                2 => self.run::<2>(x, out, scratch),
-                4 => self.run::<4>(x, out, scratch),
-                _ => self.run::<8>(x, out, scratch),
+                1 => self.run::<1>(x, out, reached, scratch),
+                2 => self.run::<2>(x, out, reached, scratch),
+                4 => self.run::<4>(x, out, reached, scratch),
+                _ => self.run::<8>(x, out, reached, scratch),
             }
         })
     }
 
-    fn run<const Q: usize>(&self, x: &[f64], out: &mut [f64], scratch: &mut Scratch) {
+    fn run<const Q: usize>(
+        &self,
+        x: &[f64],
+        out: &mut [f64],
+        reached: &mut [f64],
+        s: &mut Scratch,
+    ) {
         #[cfg(target_arch = "x86_64")]
         if std::arch::is_x86_feature_detected!("avx2") {
             // SAFETY: `run_avx2` needs AVX2, and the processor has just been found to have it.
-            unsafe { self.run_avx2::<Q>(x, out, scratch) };
+            unsafe { self.run_avx2::<Q>(x, out, reached, s) };
             return;
         }
-        self.passes::<Q>(x, out, scratch)
+        self.passes::<Q>(x, out, reached, s)
     }
 
     #[cfg(target_arch = "x86_64")]
     #[target_feature(enable = "avx2")]
-    fn run_avx2<const Q: usize>(&self, x: &[f64], out: &mut [f64], scratch: &mut Scratch) {
-        self.passes::<Q>(x, out, scratch)
+    fn run_avx2<const Q: usize>(
+        &self,
+        x: &[f64],
+        out: &mut [f64],
+        reached: &mut [f64],
+        s: &mut Scratch,
+    ) {
+        self.passes::<Q>(x, out, reached, s)
     }
 
     #[inline(always)]
-    fn passes<const Q: usize>(&self, x: &[f64], out: &mut [f64], scratch: &mut Scratch) {
-        let n = self.largest;
+    fn passes<const Q: usize>(
+        &self,
+        x: &[f64],
+        out: &mut [f64],
+        reached: &mut [f64],
+        scratch: &mut Scratch,
+    ) {
+        let (n, splits) = self.largest;
         scratch.shares.clear();
         scratch.shares.resize(out.len() * Q, 0.0);
-        if scratch.lanes.len() < n * 4 * Q {
-            scratch.lanes.resize(n * 4 * Q, 0.0);
+        if scratch.lanes.len() < n * 3 * Q {
+            scratch.lanes.resize(n * 3 * Q, 0.0);
         }
         if scratch.hot.len() < n {
             scratch.hot.resize(n, 0);
         }
+        if scratch.dir.len() < splits {
+            scratch.dir.resize(splits, 0);
+        }
         let (shares, _) = scratch.shares.as_chunks_mut::<Q>();
         let (lanes, _) = scratch.lanes.as_chunks_mut::<Q>();
-        let (slots, _) = lanes.as_chunks_mut::<4>();
+        let (slots, _) = lanes.as_chunks_mut::<3>();
         let mut u = [0.0; Q];
         u.copy_from_slice(&self.u[..Q]);
-        for (splits, nodes) in &self.trees {
-            let splits = &self.splits[splits.clone()];
-            let (slots, hot) = (&mut slots[..*nodes], &mut scratch.hot[..*nodes]);
-            tree_passes(splits, x, &u, slots, hot, shares);
+        for tree in &self.trees {
+            let splits = &self.splits[tree.splits.clone()];
+            let (slots, hot) = (&mut slots[..tree.nodes], &mut scratch.hot[..tree.nodes]);
+            let dir = &mut scratch.dir[..splits.len()];
+            tree_passes(splits, x, &u, slots, hot, dir, shares);
+            reached[tree.index] = self.reached(tree, dir);
         }
         for (o, lane) in out.iter_mut().zip(shares.iter()) {
             let mut sum = 0.0;
@@ -241,58 +333,85 @@ impl LevelGroup {
             *o += sum;
         }
     }
+
+    /// The value of the leaf the row reached in `tree`, found by following the directions the
+    /// down pass took at each split (`dir`, by split): a few steps through memory just written.
+    #[inline(always)]
+    fn reached(&self, tree: &LevelTree, dir: &[u8]) -> f64 {
+        if tree.splits.is_empty() {
+            return self.values[tree.lone_leaf as usize];
+        }
+        let descent = &self.descent[tree.splits.clone()];
+        let mut k = 0;
+        loop {
+            let next = descent[k][(dir[k] ^ 1) as usize];
+            if next & LEAF != 0 {
+                return self.values[(next & !LEAF) as usize];
+            }
+            k = next as usize;
+        }
+    }
 }
 
-/// Both passes over one tree; `slots` and `hot` hold its nodes' working values by slot.
+/// Both passes over one tree; `slots` and `hot` hold its nodes' working values by slot, `dir`
+/// gets the direction the row takes at each split.
 #[inline(always)]
 fn tree_passes<const Q: usize>(
     splits: &[LevelSplit],
     x: &[f64],
     u: &[f64; Q],
-    slots: &mut [[[f64; Q]; 4]],
+    slots: &mut [[[f64; Q]; 3]],
     hot: &mut [u8],
+    dir: &mut [u8],
     shares: &mut [[f64; Q]],
 ) {
     if splits.is_empty() {
         return; // a lone leaf is all base value
     }
+    // A tree of n splits has 2n + 1 nodes; saying so lets the compiler drop bounds checks.
+    let nodes = 2 * splits.len() + 1;
+    let (slots, hot, dir) = (
+        &mut slots[..nodes],
+        &mut hot[..nodes],
+        &mut dir[..splits.len()],
+    );
     // The root stands for every column not split on yet: hot, g = 1, coefficient 0.
-    slots[0] = [[1.0; Q], [1.0; Q], [0.0; Q], [0.0; Q]];
+    slots[0] = [[1.0; Q], [1.0; Q], [0.0; Q]];
     hot[0] = 1;
-    for s in splits {
-        let (at, left, m) = (s.at as usize, s.left as usize, s.replaces as usize);
+    for (k, (s, dir)) in splits.iter().zip(dir.iter_mut()).enumerate() {
+        let (at, left, m) = (s.at as usize, 2 * k + 1, s.replaces as usize);
         // A child's edge is hot if the column was hot before this split and the row goes there.
         let went_left = s.goes_left(x);
+        *dir = went_left;
         let before = hot[m];
         let h = [before & went_left, before & (went_left ^ 1)];
         hot[left..left + 2].copy_from_slice(&h);
-        let from = slots[at][CARRIED];
+        let from = slots[at][PRODUCT];
         let replaced = slots[m][INV];
         let children = &mut slots[left..left + 2];
         for (side, child) in children.iter_mut().enumerate() {
             let z = s.zero[side];
             let oz = h[side] as f64 - z;
-            let leaf = s.leaf[side];
-            let mut next = [[0.0; Q]; 4];
+            let scale = s.scale[side];
+            let mut next = [[0.0; Q]; 3];
             for r in 0..Q {
                 let g = z + oz * u[r];
                 // g is 0 only on a cold edge of zero cover: nothing below it counts, and 1/g
                 // must stay finite so that the zeros stay zeros.
                 let inv = 1.0 / if g == 0.0 { 1.0 } else { g };
-                let carried = from[r] * g * replaced[r];
-                next[CARRIED][r] = carried;
+                next[PRODUCT][r] = from[r] * g * replaced[r] * scale;
                 next[INV][r] = inv;
                 next[COEF][r] = oz * inv;
-                next[BELOW][r] = carried * leaf;
             }
             *child = next;
         }
     }
-    for s in splits.iter().rev() {
-        let (at, left, m) = (s.at as usize, s.left as usize, s.replaces as usize);
+    for k in (0..splits.len()).rev() {
+        let s = &splits[k];
+        let (at, left, m) = (s.at as usize, 2 * k + 1, s.replaces as usize);
         let replaced = slots[m][COEF];
-        let (l_coef, l_below) = (slots[left][COEF], slots[left][BELOW]);
-        let (r_coef, r_below) = (slots[left + 1][COEF], slots[left + 1][BELOW]);
+        let (l_coef, l_below) = (slots[left][COEF], slots[left][PRODUCT]);
+        let (r_coef, r_below) = (slots[left + 1][COEF], slots[left + 1][PRODUCT]);
         let share = &mut shares[s.column as usize];
         let mut below = [0.0; Q];
         for q in 0..Q {
@@ -300,7 +419,8 @@ fn tree_passes<const Q: usize>(
                 (l_coef[q] - replaced[q]) * l_below[q] + (r_coef[q] - replaced[q]) * r_below[q];
             below[q] = l_below[q] + r_below[q];
         }
-        slots[at][BELOW] = below;
+        // The split's product is no longer needed: its children are done.
+        slots[at][PRODUCT] = below;
     }
 }
 
@@ -406,7 +526,7 @@ mod tests {
         let mut group = LevelGroup::new(4);
         for (tree, paths) in ensemble.trees.iter().zip(&paths.trees) {
             let zero = super::super::edge_zero_fractions(&tree.nodes, &paths.pos);
-            group.push(&tree.nodes, &paths.pos, &zero, 1.0);
+            group.push(group.tree_count(), &tree.nodes, &paths.pos, &zero, 1.0);
         }
         for _ in 0..50 {
             let x: Vec<f64> = (0..4)
@@ -419,10 +539,16 @@ mod tests {
                 })
                 .collect();
             let (mut fast, mut portable) = (vec![0.0; 4], vec![0.0; 4]);
-            group.explain_into(&x, &mut fast);
-            group.passes::<4>(&x, &mut portable, &mut Scratch::default());
+            let (mut fast_leaves, mut portable_leaves) = (vec![0.0; 30], vec![0.0; 30]);
+            group.explain_into(&x, &mut fast, &mut fast_leaves);
+            let scratch = &mut Scratch::default();
+            group.passes::<4>(&x, &mut portable, &mut portable_leaves, scratch);
             let bits = |v: &[f64]| v.iter().map(|f| f.to_bits()).collect::<Vec<_>>();
             assert_eq!(bits(&fast), bits(&portable));
+            assert_eq!(bits(&fast_leaves), bits(&portable_leaves));
+            // The leaves reached are the leaves the model's own walk reaches.
+            let walked: Vec<f64> = ensemble.trees.iter().map(|t| t.leaf(&x).value).collect();
+            assert_eq!(bits(&fast_leaves), bits(&walked));
         }
     }
 }

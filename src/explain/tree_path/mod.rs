@@ -27,6 +27,7 @@ mod recursive;
 
 use super::paths::{PathTree, TreePaths};
 use crate::artifact::spec::Aggregation;
+use crate::model::forest::finish;
 use crate::model::{Ensemble, Node};
 use levels::{LevelGroup, LANES};
 use recursive::{QuadTree, Rule};
@@ -48,12 +49,16 @@ pub enum Kernel {
 #[derive(Debug, Clone)]
 pub struct PathExplainer {
     base: f64,
+    /// What turns the leaves a row reaches into the model's raw output.
+    aggregation: Aggregation,
+    initial_value: f64,
+    tree_count: usize,
     /// Trees for the level kernel, one group per quadrature rule in use.
     groups: Vec<LevelGroup>,
-    /// Trees for the recursive kernel.
-    recursive: Vec<QuadTree>,
-    /// Trees too wide for quadrature.
-    per_leaf: Vec<(Vec<Node>, PathTree)>,
+    /// Trees for the recursive kernel, with their place in the ensemble and their nodes.
+    recursive: Vec<(usize, QuadTree, Vec<Node>)>,
+    /// Trees too wide for quadrature, with their place in the ensemble.
+    per_leaf: Vec<(usize, Vec<Node>, PathTree)>,
     /// Gauss-Legendre rules on [0, 1] for the recursive kernel, indexed by number of points.
     rules: Vec<Rule>,
 }
@@ -76,13 +81,16 @@ impl PathExplainer {
         };
         let mut explainer = PathExplainer {
             base: 0.0,
+            aggregation: ensemble.aggregation,
+            initial_value: ensemble.initial_value,
+            tree_count: ensemble.trees.len(),
             groups: LANES.iter().map(|&q| LevelGroup::new(q)).collect(),
             recursive: Vec::new(),
             per_leaf: Vec::new(),
             rules: (0..=MAX_POINTS).map(Rule::new).collect(),
         };
         let paths = TreePaths::new(ensemble);
-        for (tree, paths) in ensemble.trees.iter().zip(paths.trees) {
+        for (index, (tree, paths)) in ensemble.trees.iter().zip(paths.trees).enumerate() {
             let root = tree.nodes[0].cover;
             if root > 0.0 {
                 for node in tree.nodes.iter().filter(|n| n.is_leaf()) {
@@ -92,17 +100,17 @@ impl PathExplainer {
             // The widest leaf game has k players; its integrand has degree k - 1.
             let players = paths.leaves.iter().map(|l| l.k as usize).max().unwrap_or(0);
             let points = players.div_ceil(2).max(1);
+            let group = (explainer.groups.iter_mut())
+                .find(|g| g.points() >= points)
+                .filter(|g| g.has_room_for(paths.leaves.len()));
             if players > limit || tree.nodes.len() >= u32::MAX as usize {
-                explainer.per_leaf.push((tree.nodes.clone(), paths));
-            } else if kernel == Kernel::Recursive {
-                let t = QuadTree::new(&tree.nodes, &paths.pos, weight, points);
-                explainer.recursive.push(t);
-            } else {
+                explainer.per_leaf.push((index, tree.nodes.clone(), paths));
+            } else if let (Kernel::Levels, Some(group)) = (kernel, group) {
                 let zero = edge_zero_fractions(&tree.nodes, &paths.pos);
-                let group = (explainer.groups.iter_mut())
-                    .find(|g| g.points() >= points)
-                    .expect("the widest rule takes QUADRATURE_MAX_DEPTH columns");
-                group.push(&tree.nodes, &paths.pos, &zero, weight);
+                group.push(index, &tree.nodes, &paths.pos, &zero, weight);
+            } else {
+                let t = QuadTree::new(&tree.nodes, &paths.pos, weight, points);
+                explainer.recursive.push((index, t, tree.nodes.clone()));
             }
         }
         explainer.groups.retain(|g| g.tree_count() > 0);
@@ -116,15 +124,29 @@ impl PathExplainer {
     }
 
     pub fn explain_into(&self, x: &[f64], out: &mut [f64]) {
+        self.explain_and_score(x, out);
+    }
+
+    /// As [`Self::explain_into`], and returns the model's raw output for `x`, bit for bit what
+    /// `Ensemble::raw` gives: the walk decides at every split where the row goes, so the leaf it
+    /// reaches in each tree comes at the cost of a short descent through memory just written,
+    /// where the model's own walk would fetch each tree's nodes again.
+    pub fn explain_and_score(&self, x: &[f64], out: &mut [f64]) -> f64 {
+        let mut reached = vec![0.0; self.tree_count];
         for group in &self.groups {
-            group.explain_into(x, out);
+            group.explain_into(x, out, &mut reached);
         }
-        for tree in &self.recursive {
+        for (index, tree, nodes) in &self.recursive {
             tree.explain_into(&self.rules[tree.points()], x, out);
+            reached[*index] = leaf_value(nodes, x);
         }
-        for (nodes, paths) in &self.per_leaf {
+        for (index, nodes, paths) in &self.per_leaf {
             per_leaf::per_leaf_into(nodes, paths, x, out);
+            reached[*index] = leaf_value(nodes, x);
         }
+        // Summed in tree order, as the model's walk sums them.
+        let sum: f64 = reached.iter().sum();
+        finish(self.aggregation, self.initial_value, self.tree_count, sum)
     }
 
     /// (trees explained by quadrature, trees explained per leaf), for `inspect`.
@@ -155,4 +177,13 @@ fn edge_zero_fractions(nodes: &[Node], pos: &[u8]) -> Vec<f64> {
         }
     }
     zero
+}
+
+/// The value of the leaf `x` reaches, by the model's own rule.
+fn leaf_value(nodes: &[Node], x: &[f64]) -> f64 {
+    let mut n = &nodes[0];
+    while !n.is_leaf() {
+        n = &nodes[n.child(x[n.column as usize]) as usize];
+    }
+    n.value
 }
