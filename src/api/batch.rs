@@ -225,7 +225,7 @@ async fn batch_response(
     request_id: &str,
 ) -> Result<BatchResponse, Problem> {
     let mut written = match (&state.recorder, records.is_empty()) {
-        (Some(recorder), false) => (recorder.record(records).await)
+        (Some(recorder), false) => (recorder.record(records, None).await)
             .map_err(|e| Problem::not_recorded(&e))?
             .into_iter(),
         _ => Vec::new().into_iter(),

@@ -159,6 +159,8 @@ pub async fn post_decision(
             .content_type("application/json")
             .body(given));
     }
+    // From here a record is on its way: the recorder may hold its next commit for it.
+    let expected = state.recorder.as_ref().map(|r| r.expect());
     // Graph models' explanations take milliseconds: they run on the blocking pool, so a worker
     // keeps reading other requests meanwhile.
     let Decided {
@@ -172,7 +174,7 @@ pub async fn post_decision(
     } else {
         decide_parsed(&state, &envelope)?
     };
-    let Some(recorder) = &state.recorder else {
+    let (Some(recorder), expected) = (&state.recorder, expected) else {
         observe(&state, &decision, decision.outcome);
         return Ok(json(&decision));
     };
@@ -184,7 +186,7 @@ pub async fn post_decision(
         &caller.name,
     )?;
     let mut written =
-        (recorder.record(vec![record]).await).map_err(|e| Problem::not_recorded(&e))?;
+        (recorder.record(vec![record], expected).await).map_err(|e| Problem::not_recorded(&e))?;
     let (record, outcome) = written
         .pop()
         .ok_or_else(|| Problem::internal("the store gave no outcome"))?;

@@ -143,3 +143,20 @@ impl Metrics {
         s
     }
 }
+
+/// The recorder's group commits: commits and the decision records they held (records / commits
+/// is the mean group; a sync is paid per commit).
+pub fn render_recorder(s: &mut String, commits: u64, records: u64) {
+    let _ = writeln!(
+        s,
+        "# HELP plumbline_record_commits_total Group commits of decision records."
+    );
+    let _ = writeln!(s, "# TYPE plumbline_record_commits_total counter");
+    let _ = writeln!(s, "plumbline_record_commits_total {commits}");
+    let _ = writeln!(
+        s,
+        "# HELP plumbline_records_committed_total Decision records written by those commits."
+    );
+    let _ = writeln!(s, "# TYPE plumbline_records_committed_total counter");
+    let _ = writeln!(s, "plumbline_records_committed_total {records}");
+}

@@ -48,6 +48,8 @@ pub struct Limits {
     pub body_timeout: Duration,
     /// A decision not committed by then is not given and not recorded.
     pub commit_timeout: Duration,
+    /// Longest the recorder holds a commit for decisions still being decided.
+    pub commit_gather: Duration,
     pub head_timeout: Duration,
     pub shutdown_timeout: Duration,
     /// Most fairness reports and record exports running at once (each holds a read connection
@@ -64,6 +66,7 @@ impl Default for Limits {
             max_upload_bytes: 64 * 1024 * 1024,
             body_timeout: Duration::from_secs(5),
             commit_timeout: crate::records::recorder::COMMIT_TIMEOUT,
+            commit_gather: crate::records::recorder::GATHER,
             head_timeout: Duration::from_secs(5),
             shutdown_timeout: Duration::from_secs(30),
             max_reports: 2,
@@ -208,6 +211,7 @@ pub fn start(config: ServeConfig) -> Result<Running, StartError> {
             Some(crate::records::Recorder::start(
                 store,
                 config.limits.commit_timeout,
+                config.limits.commit_gather,
             ))
         }
         None => None,

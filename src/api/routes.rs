@@ -215,9 +215,15 @@ pub async fn metrics(state: web::Data<State>, req: HttpRequest) -> Result<HttpRe
             return Err(Problem::unauthorized());
         }
     }
+    let mut text = state.metrics.render();
+    if let Some(recorder) = &state.recorder {
+        let stats = recorder.stats();
+        let load = |n: &std::sync::atomic::AtomicU64| n.load(std::sync::atomic::Ordering::Relaxed);
+        super::metrics::render_recorder(&mut text, load(&stats.commits), load(&stats.records));
+    }
     Ok(HttpResponse::Ok()
         .content_type("text/plain; version=0.0.4")
-        .body(state.metrics.render()))
+        .body(text))
 }
 
 #[derive(Serialize, ToSchema)]

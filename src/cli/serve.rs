@@ -46,6 +46,10 @@ pub struct ServeArgs {
     /// is not given (503) and nothing of it is recorded.
     #[arg(long, default_value_t = 10_000)]
     commit_timeout_ms: u64,
+    /// Longest the recorder holds a commit for decisions still being decided, in microseconds
+    /// (0: never), so that under load one sync serves several decisions.
+    #[arg(long, default_value_t = 1_000)]
+    commit_gather_us: u64,
     /// Most fairness reports and record exports running at once; more get 429 with
     /// Retry-After.
     #[arg(long, default_value_t = 2)]
@@ -129,6 +133,10 @@ fn check_limits(args: &ServeArgs) -> Result<(), StartError> {
             "--commit-timeout-ms must be 100 to 600000",
         ),
         (
+            args.commit_gather_us <= 100_000,
+            "--commit-gather-us must be 0 to 100000",
+        ),
+        (
             (1..=64).contains(&args.max_reports),
             "--max-reports must be 1 to 64",
         ),
@@ -183,6 +191,7 @@ fn start(args: ServeArgs) -> Result<(), StartError> {
             max_batch_items: args.max_batch_items,
             body_timeout: Duration::from_millis(args.body_timeout_ms),
             commit_timeout: Duration::from_millis(args.commit_timeout_ms),
+            commit_gather: Duration::from_micros(args.commit_gather_us),
             max_reports: args.max_reports,
             ..Limits::default()
         },

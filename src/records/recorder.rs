@@ -13,10 +13,16 @@
 //! **One bad record fails only itself.** When a group fails on a statement (not a timeout or a
 //! lost connection), each job is written again alone, and a job of several records each record
 //! alone, so the others are kept.
+//!
+//! **Decisions on their way join the group.** A handler says when it starts deciding
+//! ([`Recorder::expect`]); before committing, the writer waits for records still being decided,
+//! a millisecond at most by default ([`GATHER`]), so that under load one sync serves several decisions
+//! instead of one each (the costly part of a commit is the sync and the index pages, not the
+//! record). A decision made alone is committed at once.
 
 use super::{Insert, Record, Store, StoreError};
 use std::panic::{catch_unwind, AssertUnwindSafe};
-use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicU64, AtomicUsize, Ordering};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 use tokio::sync::{mpsc, oneshot};
@@ -28,6 +34,9 @@ const QUEUE: usize = 4_096;
 /// Default for how long a decision may wait to be committed; after it, the decision is not
 /// given (503) and not recorded. A hung database must not hold every request open.
 pub const COMMIT_TIMEOUT: Duration = Duration::from_secs(10);
+/// Default for how long the writer waits for decisions still being decided before it commits
+/// the records it has (a few decisions' explanation on a large ensemble).
+pub const GATHER: Duration = Duration::from_millis(1);
 /// Consecutive failed commits after which the writer reports itself unhealthy...
 const FAILING_AFTER: u64 = 3;
 /// ...for this long after the last of them (then traffic may show whether it has recovered).
@@ -92,30 +101,72 @@ impl Drop for StoppedOnDrop {
     }
 }
 
+/// Commits and the records they held, for the metrics (their ratio is the group size).
+#[derive(Debug, Default)]
+pub struct WriterStats {
+    pub commits: AtomicU64,
+    pub records: AtomicU64,
+}
+
 #[derive(Clone)]
 pub struct Recorder {
     tx: mpsc::Sender<Job>,
     store: Arc<dyn Store>,
     health: Arc<WriterHealth>,
+    stats: Arc<WriterStats>,
+    /// Decisions being decided whose records are not handed over yet.
+    expected: Arc<AtomicUsize>,
     commit_timeout: Duration,
 }
 
+/// A decision on its way to the recorder: counted from [`Recorder::expect`] until its records
+/// are handed over ([`Recorder::record`]) or it is dropped (the decision failed).
+pub struct Expected(Arc<AtomicUsize>);
+
+impl Drop for Expected {
+    fn drop(&mut self) {
+        self.0.fetch_sub(1, Ordering::AcqRel);
+    }
+}
+
 impl Recorder {
-    /// Starts the writer thread; it ends when the last `Recorder` clone is dropped.
-    pub fn start(store: Arc<dyn Store>, commit_timeout: Duration) -> Recorder {
+    /// Starts the writer thread; it ends when the last `Recorder` clone is dropped. `gather`:
+    /// how long it may hold a commit for decisions still being decided (zero: never).
+    pub fn start(store: Arc<dyn Store>, commit_timeout: Duration, gather: Duration) -> Recorder {
         let (tx, rx) = mpsc::channel::<Job>(QUEUE);
         let health = Arc::new(WriterHealth::default());
-        let (writer, watch) = (store.clone(), health.clone());
+        let stats = Arc::new(WriterStats::default());
+        let expected = Arc::new(AtomicUsize::new(0));
+        let writer = Writer {
+            gather,
+            store: store.clone(),
+            health: health.clone(),
+            stats: stats.clone(),
+            expected: expected.clone(),
+        };
         std::thread::Builder::new()
             .name("plumbline-recorder".into())
-            .spawn(move || run(writer.as_ref(), rx, watch))
+            .spawn(move || writer.run(rx))
             .expect("the recorder thread starts");
         Recorder {
             tx,
             store,
             health,
+            stats,
+            expected,
             commit_timeout,
         }
+    }
+
+    /// Says a decision whose records will be handed over has started: the writer may wait for
+    /// it (up to [`GATHER`]) to commit it with the others.
+    pub fn expect(&self) -> Expected {
+        self.expected.fetch_add(1, Ordering::AcqRel);
+        Expected(self.expected.clone())
+    }
+
+    pub fn stats(&self) -> &WriterStats {
+        &self.stats
     }
 
     pub fn store(&self) -> &Arc<dyn Store> {
@@ -129,7 +180,12 @@ impl Recorder {
     /// Records `records` durably (one transaction with whatever else is waiting); resolves once
     /// the writer has answered, with each record and what writing it did, in order. A record
     /// answered with an error is not in the store; `Err` means none of them was handed over.
-    pub async fn record(&self, records: Vec<Record>) -> Result<Written, StoreError> {
+    /// `expected` (from [`Self::expect`]) stops counting once they are handed over.
+    pub async fn record(
+        &self,
+        records: Vec<Record>,
+        expected: Option<Expected>,
+    ) -> Result<Written, StoreError> {
         let deadline = Instant::now() + self.commit_timeout;
         let (reply, answer) = oneshot::channel();
         let job = Job {
@@ -138,7 +194,9 @@ impl Recorder {
             deadline,
         };
         // Handing over counts against the deadline; a job never handed over is not written.
-        match tokio::time::timeout_at(deadline.into(), self.tx.send(job)).await {
+        let sent = tokio::time::timeout_at(deadline.into(), self.tx.send(job)).await;
+        drop(expected);
+        match sent {
             Ok(Ok(())) => {}
             Ok(Err(_)) => return Err(stopped()),
             Err(_) => return Err(expired()),
@@ -157,32 +215,72 @@ fn expired() -> StoreError {
     StoreError::Timeout("no commit within the commit timeout".into())
 }
 
-fn run(store: &dyn Store, mut rx: mpsc::Receiver<Job>, health: Arc<WriterHealth>) {
-    let _stopped = StoppedOnDrop(health.clone());
-    while let Some(first) = rx.blocking_recv() {
-        let mut jobs = vec![first];
-        let mut count = jobs[0].records.len();
-        while count < MAX_GROUP {
-            match rx.try_recv() {
-                Ok(job) => {
+/// The writer thread's parts.
+struct Writer {
+    gather: Duration,
+    store: Arc<dyn Store>,
+    health: Arc<WriterHealth>,
+    stats: Arc<WriterStats>,
+    expected: Arc<AtomicUsize>,
+}
+
+impl Writer {
+    fn run(self, mut rx: mpsc::Receiver<Job>) {
+        let _stopped = StoppedOnDrop(self.health.clone());
+        // A clock for waiting on the queue with a time limit (the gathering below).
+        let clock = tokio::runtime::Builder::new_current_thread()
+            .enable_time()
+            .build();
+        while let Some(first) = rx.blocking_recv() {
+            let mut jobs = vec![first];
+            let mut count = jobs[0].records.len();
+            let take_waiting =
+                |jobs: &mut Vec<Job>, count: &mut usize, rx: &mut mpsc::Receiver<Job>| {
+                    while *count < MAX_GROUP {
+                        match rx.try_recv() {
+                            Ok(job) => {
+                                *count += job.records.len();
+                                jobs.push(job);
+                            }
+                            Err(_) => break,
+                        }
+                    }
+                };
+            take_waiting(&mut jobs, &mut count, &mut rx);
+            // Decisions still being decided join this commit, if they come in time.
+            if let (Ok(clock), false) = (&clock, self.gather.is_zero()) {
+                let until = Instant::now() + self.gather;
+                while count < MAX_GROUP && self.expected.load(Ordering::Acquire) > 0 {
+                    // (The timer is made inside the clock's runtime: it needs its driver.)
+                    let next = clock
+                        .block_on(async { tokio::time::timeout_at(until.into(), rx.recv()).await });
+                    let Ok(Some(job)) = next else { break };
                     count += job.records.len();
                     jobs.push(job);
+                    take_waiting(&mut jobs, &mut count, &mut rx);
                 }
-                Err(_) => break,
             }
-        }
-        // A panic while writing drops the group's replies (their handlers answer "not
-        // recorded"; the transaction is rolled back as it unwinds) but not the writer.
-        if catch_unwind(AssertUnwindSafe(|| write_jobs(store, jobs, &health))).is_err() {
-            tracing::error!("writing a group of decision records panicked; none was recorded");
-            health.commits(false);
+            // A panic while writing drops the group's replies (their handlers answer "not
+            // recorded"; the transaction is rolled back as it unwinds) but not the writer.
+            let written = catch_unwind(AssertUnwindSafe(|| {
+                write_jobs(self.store.as_ref(), jobs, &self.health, &self.stats)
+            }));
+            if written.is_err() {
+                tracing::error!("writing a group of decision records panicked; none was recorded");
+                self.health.commits(false);
+            }
         }
     }
 }
 
 /// Writes the jobs: together while that works, the expired ones given up, the ones with time
 /// left retried after a timeout, each on its own after a statement fails.
-fn write_jobs(store: &dyn Store, mut pending: Vec<Job>, health: &WriterHealth) {
+fn write_jobs(
+    store: &dyn Store,
+    mut pending: Vec<Job>,
+    health: &WriterHealth,
+    stats: &WriterStats,
+) {
     loop {
         let now = Instant::now();
         let (live, late): (Vec<Job>, Vec<Job>) =
@@ -204,6 +302,10 @@ fn write_jobs(store: &dyn Store, mut pending: Vec<Job>, health: &WriterHealth) {
         }
         let result = store.write_group(&all, Some(deadline));
         health.commits(result.is_ok());
+        if result.is_ok() {
+            stats.commits.fetch_add(1, Ordering::Relaxed);
+            stats.records.fetch_add(all.len() as u64, Ordering::Relaxed);
+        }
         // Take the records back out, job by job, in order.
         let mut records = all.into_iter();
         let mut rebuilt = (counts.iter()).map(|&(n, d)| (records.by_ref().take(n).collect(), d));

@@ -19,6 +19,33 @@ pub struct SqliteStore {
     path: PathBuf,
     writer: Mutex<Connection>,
     readers: super::pool::Readers<Connection>,
+    /// Dropped with the store, which ends the checkpointer thread.
+    _checkpointer: Option<std::sync::mpsc::Sender<()>>,
+}
+
+/// How often the checkpointer copies committed pages from the write-ahead log into the file.
+const CHECKPOINT_EVERY: Duration = Duration::from_millis(200);
+
+/// Copies committed pages from the write-ahead log into the database file, on its own
+/// connection and thread, so that the writer never does it inside a commit: SQLite's automatic
+/// checkpoint runs in the committing connection and held every decision of that group (several
+/// milliseconds for a thousand pages). Passive: it never waits for readers or the writer, and
+/// what it cannot copy yet it copies next time. Ends when `stop`'s sender is dropped.
+fn checkpoint_in_background(path: &Path) -> Option<std::sync::mpsc::Sender<()>> {
+    let c = connect(path).ok()?;
+    let (tx, stop) = std::sync::mpsc::channel::<()>();
+    let spawned = std::thread::Builder::new()
+        .name("plumbline-checkpoint".into())
+        .spawn(move || {
+            while let Err(std::sync::mpsc::RecvTimeoutError::Timeout) =
+                stop.recv_timeout(CHECKPOINT_EVERY)
+            {
+                if let Err(e) = c.query_row("PRAGMA wal_checkpoint(PASSIVE)", [], |_| Ok(())) {
+                    tracing::warn!(error = %e, "copying the write-ahead log into the database failed");
+                }
+            }
+        });
+    spawned.ok().map(|_| tx)
 }
 
 fn failed(e: rusqlite::Error) -> StoreError {
@@ -158,10 +185,19 @@ impl SqliteStore {
         create_private(path)?;
         let mut writer = connect(path)?;
         migrate(&mut writer)?;
+        // Checkpoints run on their own thread; where it cannot start, the writer keeps SQLite's
+        // automatic checkpoint (every 1,000 pages).
+        let checkpointer = checkpoint_in_background(path);
+        if checkpointer.is_some() {
+            writer
+                .pragma_update(None, "wal_autocheckpoint", 0)
+                .map_err(failed)?;
+        }
         Ok(SqliteStore {
             path: path.to_path_buf(),
             writer: Mutex::new(writer),
             readers: super::pool::Readers::default(),
+            _checkpointer: checkpointer,
         })
     }
 
