@@ -194,9 +194,10 @@ impl Recorder {
             deadline,
         };
         // Handing over counts against the deadline; a job never handed over is not written.
-        let sent = tokio::time::timeout_at(deadline.into(), self.tx.send(job)).await;
+        // No longer counted before it is queued: a writer that sees the count fall commits what
+        // it has, and this job joins the next group, rather than waiting for it in vain.
         drop(expected);
-        match sent {
+        match tokio::time::timeout_at(deadline.into(), self.tx.send(job)).await {
             Ok(Ok(())) => {}
             Ok(Err(_)) => return Err(stopped()),
             Err(_) => return Err(expired()),

@@ -20,6 +20,7 @@ mod console;
 mod edges;
 mod monitoring;
 mod outcomes;
+mod recorder;
 mod records;
 mod records_durability;
 mod store_stalls;
