@@ -1,5 +1,6 @@
 //! Explains every row of a rows file with a model, for profiling (`valgrind`, `perf`):
-//! `cargo run --release --example explain_rows -- MODEL ROWS.json [REPEAT]`.
+//! `cargo run --release --example explain_rows -- MODEL ROWS.json [REPEAT] [rows]`; with `rows`,
+//! all rows at once through the many-rows path (rows in vector lanes), else one at a time.
 
 use plumbline::LoadedModel;
 use std::path::Path;
@@ -20,10 +21,19 @@ fn main() {
                 .columns
         })
         .collect();
-    let mut out = vec![0.0; model.width()];
+    let together = args.get(4).is_some_and(|a| a == "rows");
+    let width = model.width();
+    let mut out = vec![0.0; width];
     let mut total = 0.0;
+    let flat: Vec<f64> = encoded.iter().flatten().copied().collect();
+    let mut outs = vec![0.0; flat.len()];
     let start = std::time::Instant::now();
     for _ in 0..repeat {
+        if together {
+            (model.explainer).explain_rows_scored(&flat, width, &mut outs, &mut Vec::new());
+            total += outs.iter().step_by(width).sum::<f64>();
+            continue;
+        }
         for x in &encoded {
             model.explainer.explain_into(x, &mut out);
             total += out[0];

@@ -101,7 +101,32 @@ enum Against {
     },
 }
 
+/// Cases decided together against a model.
+const BLOCK: usize = 256;
+
 impl Against {
+    /// Each case decided again, in order.
+    fn decide_block(&self, cases: &[Case]) -> Vec<Result<Value, String>> {
+        let Against::Model(m) = self else {
+            return cases.iter().map(|c| self.decide(&c.request)).collect();
+        };
+        let requests: Vec<Value> = (cases.iter())
+            .map(|c| {
+                let mut request = c.request.clone();
+                if let Some(o) = request.as_object_mut() {
+                    o.remove("model");
+                }
+                request
+            })
+            .collect();
+        (crate::decide::decide_requests(m, &requests).into_iter())
+            .map(|d| {
+                d.map_err(|e| e.to_string())
+                    .and_then(|d| serde_json::to_value(d).map_err(|e| e.to_string()))
+            })
+            .collect()
+    }
+
     fn decide(&self, request: &Value) -> Result<Value, String> {
         // The new side's own model decides: a selector naming the recorded model would refuse
         // (a file) or bypass (a service) the challenger.
@@ -196,13 +221,14 @@ pub fn run(args: ReplayArgs) -> i32 {
         }
     };
     let bar = super::progress::Bar::counting("deciding again", cases.len() as u64);
-    let results: Vec<_> = cases
-        .iter()
-        .map(|c| {
-            bar.inc(1);
-            compare(c, against.decide(&c.request), args.tolerance)
-        })
-        .collect();
+    let mut results = Vec::with_capacity(cases.len());
+    // A model decides a block at a time (a tree ensemble explains a block's applicants per
+    // pass over each tree; each answer is the one the request gets alone).
+    for block in cases.chunks(BLOCK) {
+        let answers = against.decide_block(block);
+        bar.inc(block.len() as u64);
+        results.extend((block.iter().zip(answers)).map(|(c, a)| compare(c, a, args.tolerance)));
+    }
     drop(bar);
     let names: Vec<(String, String)> = results
         .iter()

@@ -34,6 +34,9 @@ pub fn run(model: &Path, input: Option<&Path>, reference: Option<Population>) ->
     let mut out = std::io::BufWriter::new(stdout.lock());
     let mut status = 0;
     let mut count = 0;
+    // Requests are decided a block at a time: a tree ensemble explains a block's applicants
+    // per pass over each tree. Each answer is the one the request gets alone.
+    let mut block: Vec<(usize, usize, serde_json::Value)> = Vec::with_capacity(BLOCK);
     // Line of the current request, counted as we go (not rescanned per request).
     let (mut counted_to, mut line_base) = (0usize, 1usize);
     let mut stream = serde_json::Deserializer::from_str(&text).into_iter::<serde_json::Value>();
@@ -43,6 +46,9 @@ pub fn run(model: &Path, input: Option<&Path>, reference: Option<Population>) ->
             None => break,
             Some(Ok(v)) => v,
             Some(Err(e)) => {
+                if !decide_block(&model, &mut block, &mut out, &mut status) {
+                    return EXIT_FAILURE;
+                }
                 eprintln!(
                     "error: request {}: malformed JSON at line {}, column {}: {e}",
                     count + 1,
@@ -57,23 +63,13 @@ pub fn run(model: &Path, input: Option<&Path>, reference: Option<Population>) ->
         line_base += text[counted_to..start].matches('\n').count();
         counted_to = start;
         let line = line_base + leading_newlines(&text[start..]);
-        match crate::decide_request(&model, &request) {
-            Ok(decision) => {
-                let json = serde_json::to_string(&decision).expect("decisions serialise");
-                if writeln!(out, "{json}").is_err() {
-                    return EXIT_FAILURE;
-                }
-            }
-            Err(e) => {
-                for f in &e.errors {
-                    eprintln!(
-                        "error: request {count} (line {line}): {}: {} [{}]",
-                        f.field, f.message, f.rule
-                    );
-                }
-                status = EXIT_BAD_INPUT;
-            }
+        block.push((count, line, request));
+        if block.len() == BLOCK && !decide_block(&model, &mut block, &mut out, &mut status) {
+            return EXIT_FAILURE;
         }
+    }
+    if !decide_block(&model, &mut block, &mut out, &mut status) {
+        return EXIT_FAILURE;
     }
     if count == 0 && status == 0 {
         eprintln!("error: no request in input");
@@ -83,6 +79,41 @@ pub fn run(model: &Path, input: Option<&Path>, reference: Option<Population>) ->
         return EXIT_FAILURE;
     }
     status
+}
+
+/// Requests decided together.
+const BLOCK: usize = 256;
+
+/// Decides and writes the block's requests in order (decisions on stdout, problems on stderr,
+/// naming the request and its line), then empties it; false if stdout cannot be written.
+fn decide_block(
+    model: &crate::LoadedModel,
+    block: &mut Vec<(usize, usize, serde_json::Value)>,
+    out: &mut impl Write,
+    status: &mut i32,
+) -> bool {
+    let requests: Vec<serde_json::Value> = block.iter_mut().map(|(_, _, r)| r.take()).collect();
+    let decided = crate::decide::decide_requests(model, &requests);
+    for ((count, line, _), result) in block.drain(..).zip(decided) {
+        match result {
+            Ok(decision) => {
+                let json = serde_json::to_string(&decision).expect("decisions serialise");
+                if writeln!(out, "{json}").is_err() {
+                    return false;
+                }
+            }
+            Err(e) => {
+                for f in &e.errors {
+                    eprintln!(
+                        "error: request {count} (line {line}): {}: {} [{}]",
+                        f.field, f.message, f.rule
+                    );
+                }
+                *status = EXIT_BAD_INPUT;
+            }
+        }
+    }
+    true
 }
 
 fn leading_newlines(s: &str) -> usize {

@@ -5,7 +5,7 @@
 use crate::artifact::spec::{Population, RuleAction};
 use crate::artifact::LoadedModel;
 use crate::explain::{self, Method};
-use crate::features::{FieldError, InputError, MissingTreatment};
+use crate::features::{Encoded, FieldError, InputError, MissingTreatment};
 use crate::model::Space;
 use crate::policy::Outcome;
 use crate::reasons::{PrincipalReason, ReasonIndex, ReasonLimits};
@@ -131,6 +131,12 @@ pub enum MissingFieldDoc {
 /// request must name this model.
 pub fn decide_request(model: &LoadedModel, request: &Value) -> Result<Decision, InputError> {
     let mut envelope = Envelope::parse(request)?;
+    check_selector(model, &mut envelope);
+    decide_envelope(model, &envelope)
+}
+
+/// A `model` selector in the request must name this model.
+fn check_selector(model: &LoadedModel, envelope: &mut Envelope<'_>) {
     if let Some(selector) = &envelope.model {
         if !selector.matches(model) {
             envelope.errors.push(FieldError {
@@ -145,7 +151,6 @@ pub fn decide_request(model: &LoadedModel, request: &Value) -> Result<Decision, 
             });
         }
     }
-    decide_envelope(model, &envelope)
 }
 
 /// Decides a parsed envelope, reporting envelope and applicant problems together.
@@ -200,6 +205,88 @@ pub fn decide(
         Some(raw) => raw,
         None => model.scorer.raw(x),
     };
+    let explained = Explained {
+        by_column,
+        errors,
+        raw,
+    };
+    decide_explained(model, application_id, applicant, encoded, explained)
+}
+
+/// Decides many requests (as [`decide_request`] each): every request is checked and encoded,
+/// then all valid applicants are explained together (tree ensembles take them in blocks per
+/// pass over each tree), then each is decided. Each answer is bit for bit the one
+/// [`decide_request`] gives for that request alone.
+pub fn decide_requests(
+    model: &LoadedModel,
+    requests: &[Value],
+) -> Vec<Result<Decision, InputError>> {
+    let prepared: Vec<Result<(Envelope<'_>, Encoded), InputError>> = (requests.iter())
+        .map(|request| {
+            let mut envelope = Envelope::parse(request)?;
+            check_selector(model, &mut envelope);
+            let encoded = (envelope.applicant.as_deref())
+                .map(|a| model.schema.check_and_encode(a, "applicant"));
+            let mut errors = envelope.errors.clone();
+            if let Some(Err(e)) = &encoded {
+                errors.extend(e.errors.iter().cloned());
+            }
+            match encoded {
+                Some(Ok(encoded)) if errors.is_empty() => Ok((envelope, encoded)),
+                _ => Err(InputError { errors }),
+            }
+        })
+        .collect();
+    let width = model.width();
+    let rows: Vec<f64> = (prepared.iter().flatten())
+        .flat_map(|(_, e)| e.columns.iter().copied())
+        .collect();
+    let mut by_column = vec![0.0; rows.len()];
+    let mut errors = Vec::new();
+    let raws = (model.explainer).explain_rows_scored(&rows, width, &mut by_column, &mut errors);
+    let mut row = 0;
+    (prepared.into_iter())
+        .map(|p| {
+            let (envelope, encoded) = p?;
+            let at = row * width..(row + 1) * width;
+            let raw = match &raws {
+                Some(raws) => raws[row],
+                None => model.scorer.raw(&encoded.columns),
+            };
+            row += 1;
+            let explained = Explained {
+                by_column: by_column[at.clone()].to_vec(),
+                errors: errors.get(at).map(<[f64]>::to_vec).unwrap_or_default(),
+                raw,
+            };
+            let applicant = envelope.applicant.as_deref().unwrap_or(&Value::Null);
+            let id = envelope.application_id.as_deref().unwrap_or("");
+            decide_explained(model, id, applicant, encoded, explained)
+        })
+        .collect()
+}
+
+/// An applicant's contributions by column, their standard errors when estimated, and the
+/// model's raw output.
+struct Explained {
+    by_column: Vec<f64>,
+    errors: Vec<f64>,
+    raw: f64,
+}
+
+/// The rest of the pipeline once an applicant is explained: reasons, policy, the decision.
+fn decide_explained(
+    model: &LoadedModel,
+    application_id: &str,
+    applicant: &Value,
+    encoded: Encoded,
+    explained: Explained,
+) -> Result<Decision, InputError> {
+    let Explained {
+        by_column,
+        errors,
+        raw,
+    } = explained;
     let (probability, log_odds) = model.scorer.probability_and_log_odds(raw);
     let base = model.explainer.base_value();
     not_finite(model, &by_column, [raw, probability, log_odds, base])?;

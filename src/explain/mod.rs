@@ -95,6 +95,37 @@ impl Explainer {
     }
 }
 
+impl Explainer {
+    /// [`Self::explain_scored`] for many rows: `rows` holds them one after another, `width`
+    /// values each, and `out` (overwritten) gets each row's contributions in the same shape;
+    /// `errors` gets standard errors in that shape for estimated contributions (else stays
+    /// empty). Each row's numbers are bit for bit what it gets alone. Path-dependent TreeSHAP
+    /// takes the rows in vector lanes, a block per pass over each tree, and returns their raw
+    /// outputs; the other explainers go row by row.
+    pub fn explain_rows_scored(
+        &self,
+        rows: &[f64],
+        width: usize,
+        out: &mut [f64],
+        errors: &mut Vec<f64>,
+    ) -> Option<Vec<f64>> {
+        out.fill(0.0);
+        errors.clear();
+        if let Explainer::PathDependent(e) = self {
+            return Some(e.explain_rows_and_score(rows, width, out));
+        }
+        let mut row_errors = Vec::new();
+        for (x, out) in rows
+            .chunks_exact(width.max(1))
+            .zip(out.chunks_exact_mut(width.max(1)))
+        {
+            self.explain_scored(x, out, &mut row_errors);
+            errors.extend_from_slice(&row_errors);
+        }
+        None
+    }
+}
+
 /// Tolerance of the additivity check, relative to the size of the terms added:
 /// |base + sum - output| <= 1e-9 * max(1, |output|, |base|, sum |contribution|).
 pub const ADDITIVITY_TOLERANCE: f64 = 1e-9;

@@ -196,3 +196,63 @@ fn range_bounds_are_inclusive() {
     );
     assert_eq!(e.unwrap_err().errors[0].rule, "range");
 }
+
+/// Many requests decided together (`decide_requests`, what `plumbline score` uses: a tree
+/// ensemble explains a block of applicants per pass over each tree) give each request the bytes
+/// it gets alone, refusals included, on both demo models; with the forest, more requests than
+/// one block of the kernel, so blocks and a partial last block are both crossed.
+#[test]
+fn requests_decided_together_equal_each_decided_alone() {
+    for path in [
+        "models/fernhill-forest.json",
+        "models/fernhill-logistic.json",
+    ] {
+        let model = LoadedModel::from_path(Path::new(path)).expect("demo model loads");
+        let mut requests = Vec::new();
+        for i in 0..150u32 {
+            let mut applicant = typical();
+            applicant["annual_income"] = json!(20_000 + 997 * i);
+            applicant["revolving_utilization"] = json!((i * 7) % 101);
+            applicant["inquiries_6m"] = json!(i % 6);
+            if i % 9 == 0 {
+                applicant
+                    .as_object_mut()
+                    .unwrap()
+                    .remove("revolving_utilization");
+            }
+            if i % 13 == 0 {
+                applicant["debt_to_income"] = json!("high"); // refused: not a number
+            }
+            let mut r = request(applicant);
+            r["application_id"] = json!(format!("T-{i}"));
+            if i % 17 == 0 {
+                r["model"] = json!({"id": "some-other-model"}); // refused: another model
+            }
+            requests.push(r);
+        }
+        requests.push(json!({"applicant": typical()})); // refused: no application id
+        let together = plumbline::decide::decide_requests(&model, &requests);
+        assert_eq!(together.len(), requests.len());
+        let (mut given, mut refused) = (0, 0);
+        for (request, got) in requests.iter().zip(together) {
+            match (got, decide_request(&model, request)) {
+                (Ok(a), Ok(b)) => {
+                    given += 1;
+                    assert_eq!(
+                        serde_json::to_string(&a).unwrap(),
+                        serde_json::to_string(&b).unwrap()
+                    );
+                }
+                (Err(a), Err(b)) => {
+                    refused += 1;
+                    assert_eq!(a.to_string(), b.to_string());
+                }
+                (a, b) => panic!("{path}: together {a:?}, alone {b:?}"),
+            }
+        }
+        assert!(
+            given > 100 && refused > 10,
+            "{path}: {given} given, {refused} refused"
+        );
+    }
+}

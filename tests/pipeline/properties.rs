@@ -55,6 +55,30 @@ proptest! {
         }
     }
 
+    /// Many rows explained together (rows in blocks per pass over each tree) get, row by row, the
+    /// bits each gets alone: contributions and raw output, on every kernel, with more rows than
+    /// one block and a partial last block.
+    #[test]
+    fn rows_together_equal_rows_alone(seed in any::<u64>(), trees in 1usize..8, depth in 1usize..13, rows in 1usize..140, limit in prop_oneof![Just(0usize), Just(16)]) {
+        let mut rng = Rng::new(seed);
+        let agg = if seed % 2 == 0 { Aggregation::MeanProbability } else { Aggregation::SumLogOdds };
+        let columns = 7;
+        let e = random_ensemble(&mut rng, trees, columns, depth, agg);
+        let explainer = PathExplainer::with_options(&e, limit, Kernel::Levels);
+        let xs: Vec<Vec<f64>> = (0..rows).map(|_| random_row(&mut rng, columns)).collect();
+        let flat: Vec<f64> = xs.iter().flatten().copied().collect();
+        let mut together = vec![0.0; flat.len()];
+        let raws = explainer.explain_rows_and_score(&flat, columns, &mut together);
+        prop_assert_eq!(raws.len(), rows);
+        let bits = |v: &[f64]| v.iter().map(|f| f.to_bits()).collect::<Vec<_>>();
+        for (i, x) in xs.iter().enumerate() {
+            let mut alone = vec![0.0; columns];
+            let raw = explainer.explain_and_score(x, &mut alone);
+            prop_assert_eq!(raws[i].to_bits(), raw.to_bits(), "row {}", i);
+            prop_assert_eq!(bits(&together[i * columns..(i + 1) * columns]), bits(&alone), "row {}", i);
+        }
+    }
+
     #[test]
     fn interventional_is_additive_and_deterministic(seed in any::<u64>(), trees in 1usize..8, depth in 1usize..9, rows in 1usize..20) {
         let mut rng = Rng::new(seed);

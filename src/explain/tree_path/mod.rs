@@ -149,6 +149,38 @@ impl PathExplainer {
         finish(self.aggregation, self.initial_value, self.tree_count, sum)
     }
 
+    /// [`Self::explain_and_score`] for many rows at once: `rows` holds them one after another,
+    /// `width` values each, and each row's contributions are added to its `width` values of
+    /// `out`; returns each row's raw output. The level kernel takes a block of rows per pass
+    /// over each tree (rows in vector lanes); every row gets the bits it gets alone.
+    pub fn explain_rows_and_score(&self, rows: &[f64], width: usize, out: &mut [f64]) -> Vec<f64> {
+        let n = rows.len().checked_div(width).unwrap_or(0);
+        let trees = self.tree_count;
+        let mut reached = vec![0.0; n * trees];
+        for group in &self.groups {
+            group.explain_rows_into(rows, width, out, &mut reached, trees);
+        }
+        let rows = rows.chunks_exact(width.max(1));
+        let outs = out.chunks_exact_mut(width.max(1));
+        let reached_rows = reached.chunks_exact_mut(trees.max(1));
+        for ((x, out), reached) in rows.zip(outs).zip(reached_rows) {
+            for (index, tree, nodes) in &self.recursive {
+                tree.explain_into(&self.rules[tree.points()], x, out);
+                reached[*index] = leaf_value(nodes, x);
+            }
+            for (index, nodes, paths) in &self.per_leaf {
+                per_leaf::per_leaf_into(nodes, paths, x, out);
+                reached[*index] = leaf_value(nodes, x);
+            }
+        }
+        (0..n)
+            .map(|i| {
+                let sum: f64 = reached[i * trees..(i + 1) * trees].iter().sum();
+                finish(self.aggregation, self.initial_value, trees, sum)
+            })
+            .collect()
+    }
+
     /// (trees explained by quadrature, trees explained per leaf), for `inspect`.
     pub fn algorithm_counts(&self) -> (usize, usize) {
         let levels: usize = self.groups.iter().map(|g| g.tree_count()).sum();

@@ -22,6 +22,8 @@
 //! Every lane's share is kept apart per column until the row is done, then weighted by the rule
 //! and summed: no horizontal sum inside the passes.
 
+mod rows;
+
 use crate::explain::quadrature::gauss_legendre;
 use crate::model::Node;
 use std::cell::RefCell;
@@ -31,7 +33,7 @@ use std::ops::Range;
 /// leaf game exactly (more points stay exact: the rule is exact up to degree 2q - 1).
 pub(super) const LANES: [usize; 4] = [1, 2, 4, 8];
 
-/// One split and what both passes need of its two children (64 bytes).
+/// One split and what both passes need of its two children (56 bytes).
 #[derive(Debug, Clone, Copy)]
 struct LevelSplit {
     /// Zero fractions of the edges into the left and the right child (the cover share their
@@ -323,7 +325,7 @@ impl LevelGroup {
             let (slots, hot) = (&mut slots[..tree.nodes], &mut scratch.hot[..tree.nodes]);
             let dir = &mut scratch.dir[..splits.len()];
             tree_passes(splits, x, &u, slots, hot, dir, shares);
-            reached[tree.index] = self.reached(tree, dir);
+            reached[tree.index] = self.reached(tree, |k| dir[k] == 1);
         }
         for (o, lane) in out.iter_mut().zip(shares.iter()) {
             let mut sum = 0.0;
@@ -335,16 +337,17 @@ impl LevelGroup {
     }
 
     /// The value of the leaf the row reached in `tree`, found by following the directions the
-    /// down pass took at each split (`dir`, by split): a few steps through memory just written.
+    /// down pass took at each split (`went_left(k)` at the k-th): a few steps through memory
+    /// just written.
     #[inline(always)]
-    fn reached(&self, tree: &LevelTree, dir: &[u8]) -> f64 {
+    fn reached(&self, tree: &LevelTree, went_left: impl Fn(usize) -> bool) -> f64 {
         if tree.splits.is_empty() {
             return self.values[tree.lone_leaf as usize];
         }
         let descent = &self.descent[tree.splits.clone()];
         let mut k = 0;
         loop {
-            let next = descent[k][(dir[k] ^ 1) as usize];
+            let next = descent[k][usize::from(!went_left(k))];
             if next & LEAF != 0 {
                 return self.values[(next & !LEAF) as usize];
             }
@@ -506,10 +509,9 @@ mod tests {
         (id, node.cover)
     }
 
-    /// The AVX2 build and the portable build of the passes give the same bits.
-    #[test]
-    fn both_builds_agree_bit_for_bit() {
-        let mut rng = Rng::new(11);
+    /// Thirty random trees of depth 7 on 4 columns in one group, and the ensemble they form.
+    pub(super) fn sample_group(seed: u64) -> (LevelGroup, Ensemble) {
+        let mut rng = Rng::new(seed);
         let trees: Vec<Tree> = (0..30)
             .map(|_| {
                 let mut nodes = Vec::new();
@@ -528,26 +530,41 @@ mod tests {
             let zero = super::super::edge_zero_fractions(&tree.nodes, &paths.pos);
             group.push(group.tree_count(), &tree.nodes, &paths.pos, &zero, 1.0);
         }
-        for _ in 0..50 {
-            let x: Vec<f64> = (0..4)
-                .map(|_| {
-                    if rng.bernoulli(0.1) {
-                        f64::NAN
-                    } else {
-                        rng.below(5) as f64 / 4.0
-                    }
-                })
-                .collect();
+        (group, ensemble)
+    }
+
+    /// Rows on the thresholds' grid, a tenth of the values missing.
+    pub(super) fn sample_rows(seed: u64, rows: usize) -> Vec<f64> {
+        let mut rng = Rng::new(seed);
+        (0..rows * 4)
+            .map(|_| {
+                if rng.bernoulli(0.1) {
+                    f64::NAN
+                } else {
+                    rng.below(5) as f64 / 4.0
+                }
+            })
+            .collect()
+    }
+
+    pub(super) fn bits(v: &[f64]) -> Vec<u64> {
+        v.iter().map(|f| f.to_bits()).collect()
+    }
+
+    /// The AVX2 build and the portable build of the passes give the same bits.
+    #[test]
+    fn both_builds_agree_bit_for_bit() {
+        let (group, ensemble) = sample_group(11);
+        for x in sample_rows(12, 50).chunks(4) {
             let (mut fast, mut portable) = (vec![0.0; 4], vec![0.0; 4]);
             let (mut fast_leaves, mut portable_leaves) = (vec![0.0; 30], vec![0.0; 30]);
-            group.explain_into(&x, &mut fast, &mut fast_leaves);
+            group.explain_into(x, &mut fast, &mut fast_leaves);
             let scratch = &mut Scratch::default();
-            group.passes::<4>(&x, &mut portable, &mut portable_leaves, scratch);
-            let bits = |v: &[f64]| v.iter().map(|f| f.to_bits()).collect::<Vec<_>>();
+            group.passes::<4>(x, &mut portable, &mut portable_leaves, scratch);
             assert_eq!(bits(&fast), bits(&portable));
             assert_eq!(bits(&fast_leaves), bits(&portable_leaves));
             // The leaves reached are the leaves the model's own walk reaches.
-            let walked: Vec<f64> = ensemble.trees.iter().map(|t| t.leaf(&x).value).collect();
+            let walked: Vec<f64> = ensemble.trees.iter().map(|t| t.leaf(x).value).collect();
             assert_eq!(bits(&fast_leaves), bits(&walked));
         }
     }
