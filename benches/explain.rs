@@ -1,7 +1,8 @@
 //! Explain time per row (criterion). With `PLUMBLINE_BENCH_MODELS=DIR` it measures the models
 //! that `bench/explain_compare.sh` trains and exports (`boosted500.json`, `forest100.json`,
 //! `rows.json`), so the figures sit beside LightGBM's and shap's on the same models and rows;
-//! without it, random ensembles of the same shape. One thread. Results: docs/PERFORMANCE.md.
+//! without it, random ensembles of the same shape. One row per call, then 256 rows together
+//! (the many-rows path). One thread. Results: docs/PERFORMANCE.md.
 
 #[path = "../tests/common/mod.rs"]
 mod common;
@@ -92,6 +93,34 @@ fn bench(c: &mut Criterion) {
                 i += 1;
                 case.explainer.explain_into(black_box(x), &mut out);
                 black_box(&out);
+            })
+        });
+    }
+    group.finish();
+    // Many rows per pass over the trees (what `plumbline score` and replay use): the time per
+    // row, from 256 rows explained together.
+    let mut group = c.benchmark_group("explain_per_row_together");
+    for case in &cases {
+        let width = case.rows[0].len();
+        let rows: Vec<f64> = case
+            .rows
+            .iter()
+            .cycle()
+            .take(256)
+            .flatten()
+            .copied()
+            .collect();
+        let mut out = vec![0.0; rows.len()];
+        group.throughput(criterion::Throughput::Elements(256));
+        group.bench_function(&case.name, |b| {
+            b.iter(|| {
+                let raws = (case.explainer).explain_rows_scored(
+                    black_box(&rows),
+                    width,
+                    &mut out,
+                    &mut Vec::new(),
+                );
+                black_box((&out, raws));
             })
         });
     }
