@@ -136,14 +136,7 @@ impl PathExplainer {
         for group in &self.groups {
             group.explain_into(x, out, &mut reached);
         }
-        for (index, tree, nodes) in &self.recursive {
-            tree.explain_into(&self.rules[tree.points()], x, out);
-            reached[*index] = leaf_value(nodes, x);
-        }
-        for (index, nodes, paths) in &self.per_leaf {
-            per_leaf::per_leaf_into(nodes, paths, x, out);
-            reached[*index] = leaf_value(nodes, x);
-        }
+        self.explain_other_trees(x, out, &mut reached);
         // Summed in tree order, as the model's walk sums them.
         let sum: f64 = reached.iter().sum();
         finish(self.aggregation, self.initial_value, self.tree_count, sum)
@@ -164,14 +157,7 @@ impl PathExplainer {
         let outs = out.chunks_exact_mut(width.max(1));
         let reached_rows = reached.chunks_exact_mut(trees.max(1));
         for ((x, out), reached) in rows.zip(outs).zip(reached_rows) {
-            for (index, tree, nodes) in &self.recursive {
-                tree.explain_into(&self.rules[tree.points()], x, out);
-                reached[*index] = leaf_value(nodes, x);
-            }
-            for (index, nodes, paths) in &self.per_leaf {
-                per_leaf::per_leaf_into(nodes, paths, x, out);
-                reached[*index] = leaf_value(nodes, x);
-            }
+            self.explain_other_trees(x, out, reached);
         }
         (0..n)
             .map(|i| {
@@ -179,6 +165,19 @@ impl PathExplainer {
                 finish(self.aggregation, self.initial_value, trees, sum)
             })
             .collect()
+    }
+
+    /// The trees outside the level kernel's groups, for one row: contributions added to `out`,
+    /// each tree's reached leaf value written to `reached` at its place.
+    fn explain_other_trees(&self, x: &[f64], out: &mut [f64], reached: &mut [f64]) {
+        for (index, tree, nodes) in &self.recursive {
+            tree.explain_into(&self.rules[tree.points()], x, out);
+            reached[*index] = leaf_value(nodes, x);
+        }
+        for (index, nodes, paths) in &self.per_leaf {
+            per_leaf::per_leaf_into(nodes, paths, x, out);
+            reached[*index] = leaf_value(nodes, x);
+        }
     }
 
     /// (trees explained by quadrature, trees explained per leaf), for `inspect`.

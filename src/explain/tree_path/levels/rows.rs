@@ -43,6 +43,15 @@ thread_local! {
     static SCRATCH: RefCell<Scratch> = RefCell::new(Scratch::default());
 }
 
+/// Many rows and where their results go (see [`LevelGroup::explain_rows_into`]).
+struct Many<'a> {
+    rows: &'a [f64],
+    width: usize,
+    out: &'a mut [f64],
+    reached: &'a mut [f64],
+    trees: usize,
+}
+
 impl LevelGroup {
     /// For each of the `rows` (row after row, `width` values each), adds the group's
     /// contributions to its row of `out` (`width` each), and writes the value of the leaf it
@@ -56,59 +65,49 @@ impl LevelGroup {
         reached: &mut [f64],
         trees: usize,
     ) {
+        let many = Many {
+            rows,
+            width,
+            out,
+            reached,
+            trees,
+        };
         SCRATCH.with(|scratch| {
             let scratch = &mut *scratch.borrow_mut();
             match self.points {
-                1 => self.rows_run::<1>(rows, width, out, reached, trees, scratch),
-                2 => self.rows_run::<2>(rows, width, out, reached, trees, scratch),
-                4 => self.rows_run::<4>(rows, width, out, reached, trees, scratch),
-                _ => self.rows_run::<8>(rows, width, out, reached, trees, scratch),
+                1 => self.rows_run::<1>(many, scratch),
+                2 => self.rows_run::<2>(many, scratch),
+                4 => self.rows_run::<4>(many, scratch),
+                _ => self.rows_run::<8>(many, scratch),
             }
         })
     }
 
-    fn rows_run<const Q: usize>(
-        &self,
-        rows: &[f64],
-        width: usize,
-        out: &mut [f64],
-        reached: &mut [f64],
-        trees: usize,
-        scratch: &mut Scratch,
-    ) {
+    fn rows_run<const Q: usize>(&self, many: Many, scratch: &mut Scratch) {
         #[cfg(target_arch = "x86_64")]
         if std::arch::is_x86_feature_detected!("avx2") {
             // SAFETY: `rows_avx2` needs AVX2, and the processor has just been found to have it.
-            unsafe { self.rows_avx2::<Q>(rows, width, out, reached, trees, scratch) };
+            unsafe { self.rows_avx2::<Q>(many, scratch) };
             return;
         }
-        self.rows_blocks::<Q>(rows, width, out, reached, trees, scratch)
+        self.rows_blocks::<Q>(many, scratch)
     }
 
     #[cfg(target_arch = "x86_64")]
     #[target_feature(enable = "avx2")]
-    fn rows_avx2<const Q: usize>(
-        &self,
-        rows: &[f64],
-        width: usize,
-        out: &mut [f64],
-        reached: &mut [f64],
-        trees: usize,
-        scratch: &mut Scratch,
-    ) {
-        self.rows_blocks::<Q>(rows, width, out, reached, trees, scratch)
+    fn rows_avx2<const Q: usize>(&self, many: Many, scratch: &mut Scratch) {
+        self.rows_blocks::<Q>(many, scratch)
     }
 
     #[inline(always)]
-    fn rows_blocks<const Q: usize>(
-        &self,
-        rows: &[f64],
-        width: usize,
-        out: &mut [f64],
-        reached: &mut [f64],
-        trees: usize,
-        s: &mut Scratch,
-    ) {
+    fn rows_blocks<const Q: usize>(&self, many: Many, s: &mut Scratch) {
+        let Many {
+            rows,
+            width,
+            out,
+            reached,
+            trees,
+        } = many;
         let (nodes, splits) = self.largest;
         let grow = |v: &mut Vec<f64>, n: usize| v.resize(v.len().max(n), 0.0);
         grow(&mut s.tables, nodes * 6 * Q);
@@ -281,8 +280,14 @@ mod tests {
         let (mut fast, mut portable) = (vec![0.0; rows.len()], vec![0.0; rows.len()]);
         let (mut fast_leaves, mut portable_leaves) = (vec![0.0; 70 * 30], vec![0.0; 70 * 30]);
         group.explain_rows_into(&rows, 4, &mut fast, &mut fast_leaves, 30);
-        let scratch = &mut Scratch::default();
-        group.rows_blocks::<4>(&rows, 4, &mut portable, &mut portable_leaves, 30, scratch);
+        let many = Many {
+            rows: &rows,
+            width: 4,
+            out: &mut portable,
+            reached: &mut portable_leaves,
+            trees: 30,
+        };
+        group.rows_blocks::<4>(many, &mut Scratch::default());
         assert_eq!(bits(&fast), bits(&portable));
         assert_eq!(bits(&fast_leaves), bits(&portable_leaves));
         for (i, x) in rows.chunks(4).enumerate() {
