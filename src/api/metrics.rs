@@ -155,7 +155,7 @@ pub fn render_recorder(s: &mut String, commits: u64, records: u64) {
     let _ = writeln!(s, "plumbline_record_commits_total {commits}");
     let _ = writeln!(
         s,
-        "# HELP plumbline_records_committed_total Decision records written by those commits."
+        "# HELP plumbline_records_committed_total Decision records those commits handled (a repeated idempotency key's answer from its stored record included)."
     );
     let _ = writeln!(s, "# TYPE plumbline_records_committed_total counter");
     let _ = writeln!(s, "plumbline_records_committed_total {records}");

@@ -223,8 +223,14 @@ pub fn run(args: ReplayArgs) -> i32 {
     let bar = super::progress::Bar::counting("deciding again", cases.len() as u64);
     let mut results = Vec::with_capacity(cases.len());
     // A model decides a block at a time (a tree ensemble explains a block's applicants per
-    // pass over each tree; each answer is the one the request gets alone).
-    for block in cases.chunks(BLOCK) {
+    // pass over each tree; each answer is the one the request gets alone); a service is asked
+    // one case at a time, so progress moves with each answer.
+    let block_size = if matches!(against, Against::Model(_)) {
+        BLOCK
+    } else {
+        1
+    };
+    for block in cases.chunks(block_size) {
         let answers = against.decide_block(block);
         bar.inc(block.len() as u64);
         results.extend((block.iter().zip(answers)).map(|(c, a)| compare(c, a, args.tolerance)));

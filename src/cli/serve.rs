@@ -137,6 +137,10 @@ fn check_limits(args: &ServeArgs) -> Result<(), StartError> {
             "--commit-gather-us must be 0 to 100000",
         ),
         (
+            args.commit_gather_us <= args.commit_timeout_ms.saturating_mul(100),
+            "--commit-gather-us must be at most a tenth of --commit-timeout-ms",
+        ),
+        (
             (1..=64).contains(&args.max_reports),
             "--max-reports must be 1 to 64",
         ),

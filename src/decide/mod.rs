@@ -153,21 +153,27 @@ fn check_selector(model: &LoadedModel, envelope: &mut Envelope<'_>) {
     }
 }
 
-/// Decides a parsed envelope, reporting envelope and applicant problems together.
+/// Decides a parsed envelope, reporting envelope and applicant problems together. An envelope
+/// with problems is refused whatever its applicant: the applicant is checked (its problems
+/// named too) but not scored, as [`decide_requests`] does.
 pub fn decide_envelope(
     model: &LoadedModel,
     envelope: &Envelope<'_>,
 ) -> Result<Decision, InputError> {
+    let Some(applicant) = envelope.applicant.as_deref() else {
+        return Err(InputError {
+            errors: envelope.errors.clone(),
+        });
+    };
+    if envelope.errors.is_empty() {
+        let id = envelope.application_id.as_deref().unwrap_or("");
+        return decide(model, id, applicant);
+    }
     let mut errors = envelope.errors.clone();
-    let result = (envelope.applicant.as_deref())
-        .map(|a| decide(model, envelope.application_id.as_deref().unwrap_or(""), a));
-    if let Some(Err(e)) = &result {
-        errors.extend(e.errors.iter().cloned());
+    if let Err(e) = model.schema.check_and_encode(applicant, "applicant") {
+        errors.extend(e.errors);
     }
-    match result {
-        Some(Ok(d)) if errors.is_empty() => Ok(d),
-        _ => Err(InputError { errors }),
-    }
+    Err(InputError { errors })
 }
 
 /// A decision whose numbers overflow (a huge value in a field with no `max`) cannot be given,

@@ -194,8 +194,8 @@ impl Recorder {
             deadline,
         };
         // Handing over counts against the deadline; a job never handed over is not written.
-        // No longer counted before it is queued: a writer that sees the count fall commits what
-        // it has, and this job joins the next group, rather than waiting for it in vain.
+        // No longer counted once queued: the writer takes it from the queue, and would otherwise
+        // go on waiting, its whole gathering time, for a decision it already holds.
         drop(expected);
         match tokio::time::timeout_at(deadline.into(), self.tx.send(job)).await {
             Ok(Ok(())) => {}
@@ -250,7 +250,9 @@ impl Writer {
             take_waiting(&mut jobs, &mut count, &mut rx);
             // Decisions still being decided join this commit, if they come in time.
             if let (Ok(clock), false) = (&clock, self.gather.is_zero()) {
-                let until = Instant::now() + self.gather;
+                // Never past a held job's deadline: it would be refused for the waiting.
+                let first_due = jobs.iter().map(|j| j.deadline).min();
+                let until = (Instant::now() + self.gather).min(first_due.unwrap_or(Instant::now()));
                 while count < MAX_GROUP && self.expected.load(Ordering::Acquire) > 0 {
                     // (The timer is made inside the clock's runtime: it needs its driver.)
                     let next = clock

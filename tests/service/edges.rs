@@ -405,6 +405,24 @@ fn serve_exit_statuses_follow_the_cause() {
     let bad_limit = plumbline(&["serve", "--no-auth", "--no-store", "--max-reports", "0"]);
     assert_eq!(bad_limit.status.code(), Some(2), "{}", stderr(&bad_limit));
     assert!(stderr(&bad_limit).contains("--max-reports must be 1 to 64"));
+    // Gathering as long as the commit timeout would hold every decision past its deadline.
+    let gather = [
+        "serve",
+        "--no-auth",
+        "--no-store",
+        "--commit-timeout-ms",
+        "100",
+        "--commit-gather-us",
+        "20000",
+    ];
+    let bad_gather = plumbline(&gather);
+    assert_eq!(bad_gather.status.code(), Some(2), "{}", stderr(&bad_gather));
+    assert!(
+        stderr(&bad_gather)
+            .contains("--commit-gather-us must be at most a tenth of --commit-timeout-ms"),
+        "{}",
+        stderr(&bad_gather)
+    );
     // Nothing listens on port 1: the store is out of reach, not mistyped.
     let unreachable = plumbline(&[
         "serve",

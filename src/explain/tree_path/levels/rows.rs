@@ -1,5 +1,5 @@
 //! The level-order kernel for many rows: a block of rows explained per pass over each tree, for
-//! batches, scoring files and replay.
+//! `plumbline score` and replay against a model (through `decide::decide_requests`).
 //!
 //! What depends only on the tree and on whether an edge is hot (g, 1/g and the coefficient at
 //! each quadrature point, for a hot and for a cold edge) is tabulated once per tree for the whole
@@ -16,6 +16,18 @@ use std::cell::RefCell;
 
 /// Rows explained per pass over the trees: each tree's tables serve this many.
 const BLOCK: usize = 64;
+
+/// Most working memory per thread for a block's products and shares; a block of very large
+/// trees or very wide rows takes fewer rows (the same bits: a row's arithmetic is its own).
+const SCRATCH_BUDGET: usize = 32 << 20;
+
+/// Rows per block for trees of `nodes` nodes, `width` columns and `points` quadrature points.
+fn rows_per_block(nodes: usize, width: usize, points: usize) -> usize {
+    let per_row = (nodes.saturating_add(width))
+        .saturating_mul(points)
+        .saturating_mul(std::mem::size_of::<f64>());
+    (SCRATCH_BUDGET / per_row.max(1)).clamp(1, BLOCK)
+}
 
 /// Where an edge's values sit in its table: by hotness (the hot bit is the index), then by
 /// quantity.
@@ -108,17 +120,21 @@ impl LevelGroup {
             reached,
             trees,
         } = many;
+        let count = rows.len().checked_div(width).unwrap_or(0);
+        if count == 0 {
+            return;
+        }
         let (nodes, splits) = self.largest;
+        let per_block = rows_per_block(nodes, width, Q);
         let grow = |v: &mut Vec<f64>, n: usize| v.resize(v.len().max(n), 0.0);
         grow(&mut s.tables, nodes * 6 * Q);
-        grow(&mut s.products, nodes * BLOCK * Q);
-        s.hot.resize(s.hot.len().max(nodes * BLOCK), 0);
-        s.dir.resize(s.dir.len().max(splits * BLOCK), 0);
+        grow(&mut s.products, nodes * per_block * Q);
+        s.hot.resize(s.hot.len().max(nodes * per_block), 0);
+        s.dir.resize(s.dir.len().max(splits * per_block), 0);
         let mut u = [0.0; Q];
         u.copy_from_slice(&self.u[..Q]);
-        let count = rows.len().checked_div(width).unwrap_or(0);
-        for first in (0..count).step_by(BLOCK) {
-            let n = (count - first).min(BLOCK);
+        for first in (0..count).step_by(per_block) {
+            let n = (count - first).min(per_block);
             let block = &rows[first * width..(first + n) * width];
             s.columns.clear();
             for c in 0..width {
@@ -300,5 +316,17 @@ mod tests {
                 "row {i}"
             );
         }
+    }
+
+    /// Small trees take whole blocks; very large trees or wide rows take fewer rows, never
+    /// none, and stay within the working-memory budget.
+    #[test]
+    fn blocks_shrink_for_very_large_trees() {
+        assert_eq!(rows_per_block(127, 10, 4), BLOCK);
+        assert_eq!(rows_per_block(4_095, 30, 8), BLOCK);
+        let large = rows_per_block(200_001, 50, 8);
+        assert!((1..BLOCK).contains(&large), "{large}");
+        assert!(large * (200_001 + 50) * 8 * 8 <= SCRATCH_BUDGET);
+        assert_eq!(rows_per_block(usize::MAX / 64, 1, 8), 1);
     }
 }
