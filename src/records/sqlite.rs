@@ -19,8 +19,8 @@ pub struct SqliteStore {
     path: PathBuf,
     writer: Mutex<Connection>,
     readers: super::pool::Readers<Connection>,
-    /// Dropped with the store, which ends the checkpointer thread.
-    _checkpointer: Option<std::sync::mpsc::Sender<()>>,
+    /// Stopped and joined with the store.
+    _checkpointer: Option<Checkpointer>,
 }
 
 /// How often the checkpointer copies committed pages from the write-ahead log into the file.
@@ -30,22 +30,63 @@ const CHECKPOINT_EVERY: Duration = Duration::from_millis(200);
 /// connection and thread, so that the writer never does it inside a commit: SQLite's automatic
 /// checkpoint runs in the committing connection and held every decision of that group (several
 /// milliseconds for a thousand pages). Passive: it never waits for readers or the writer, and
-/// what it cannot copy yet it copies next time. Ends when `stop`'s sender is dropped.
-fn checkpoint_in_background(path: &Path) -> Option<std::sync::mpsc::Sender<()>> {
-    let c = connect(path).ok()?;
-    let (tx, stop) = std::sync::mpsc::channel::<()>();
-    let spawned = std::thread::Builder::new()
-        .name("plumbline-checkpoint".into())
-        .spawn(move || {
-            while let Err(std::sync::mpsc::RecvTimeoutError::Timeout) =
-                stop.recv_timeout(CHECKPOINT_EVERY)
-            {
-                if let Err(e) = c.query_row("PRAGMA wal_checkpoint(PASSIVE)", [], |_| Ok(())) {
-                    tracing::warn!(error = %e, "copying the write-ahead log into the database failed");
+/// what it cannot copy yet it copies next time. Stopped and joined when dropped, so its
+/// connection closes before the store's last one (which then removes the log).
+struct Checkpointer {
+    stop: Option<std::sync::mpsc::Sender<()>>,
+    thread: Option<std::thread::JoinHandle<()>>,
+}
+
+/// While copying keeps failing, the failure is logged again at most this often.
+const CHECKPOINT_WARN_EVERY: Duration = Duration::from_secs(60);
+
+impl Checkpointer {
+    fn start(path: &Path) -> Option<Checkpointer> {
+        let c = connect(path).ok()?;
+        let (tx, stop) = std::sync::mpsc::channel::<()>();
+        let thread = std::thread::Builder::new()
+            .name("plumbline-checkpoint".into())
+            .spawn(move || {
+                // A failing copy is logged when it starts failing, then once a minute, and
+                // when it works again: the log grows meanwhile, and an operator should know.
+                let mut failing_since: Option<Instant> = None;
+                let mut warned = Instant::now();
+                while let Err(std::sync::mpsc::RecvTimeoutError::Timeout) =
+                    stop.recv_timeout(CHECKPOINT_EVERY)
+                {
+                    match c.query_row("PRAGMA wal_checkpoint(PASSIVE)", [], |_| Ok(())) {
+                        Ok(()) => {
+                            if let Some(since) = failing_since.take() {
+                                let secs = since.elapsed().as_secs();
+                                tracing::info!(failed_for_s = secs, "the write-ahead log is copied into the database again");
+                            }
+                        }
+                        Err(e) => {
+                            let first = failing_since.is_none();
+                            if first || warned.elapsed() >= CHECKPOINT_WARN_EVERY {
+                                tracing::warn!(error = %e, "copying the write-ahead log into the database failed; the log grows until it works");
+                                warned = Instant::now();
+                            }
+                            failing_since.get_or_insert_with(Instant::now);
+                        }
+                    }
                 }
-            }
-        });
-    spawned.ok().map(|_| tx)
+            })
+            .ok()?;
+        Some(Checkpointer {
+            stop: Some(tx),
+            thread: Some(thread),
+        })
+    }
+}
+
+impl Drop for Checkpointer {
+    fn drop(&mut self) {
+        drop(self.stop.take());
+        if let Some(thread) = self.thread.take() {
+            let _ = thread.join();
+        }
+    }
 }
 
 fn failed(e: rusqlite::Error) -> StoreError {
@@ -187,7 +228,7 @@ impl SqliteStore {
         migrate(&mut writer)?;
         // Checkpoints run on their own thread; where it cannot start, the writer keeps SQLite's
         // automatic checkpoint (every 1,000 pages).
-        let checkpointer = checkpoint_in_background(path);
+        let checkpointer = Checkpointer::start(path);
         if checkpointer.is_some() {
             writer
                 .pragma_update(None, "wal_autocheckpoint", 0)

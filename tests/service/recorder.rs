@@ -108,3 +108,21 @@ fn the_write_ahead_log_reaches_the_database_file_off_the_commit_path() {
     });
     assert!(grown, "the database file never received the log's pages");
 }
+
+/// Closing the store stops its checkpointer and closes every connection, so the last one
+/// copies the write-ahead log home and removes it (SQLite's own rule for the last connection
+/// of a WAL database).
+#[test]
+fn a_closed_store_leaves_no_write_ahead_log_behind() {
+    let (location, dir) = stores::sqlite();
+    let store = records::open(&location).unwrap();
+    let wal = dir.0.join("records.sqlite3-wal");
+    let kept = record(300);
+    store.insert_group(std::slice::from_ref(&kept)).unwrap();
+    assert!(wal.exists(), "a WAL database writes its log first");
+    drop(store);
+    assert!(!wal.exists(), "the log outlived the store");
+    let again = records::open(&location).unwrap();
+    let read = again.get(&kept.decision_id).unwrap();
+    assert_eq!(read.map(|r| r.application_id), Some(kept.application_id));
+}
