@@ -30,8 +30,9 @@ const CHECKPOINT_EVERY: Duration = Duration::from_millis(200);
 /// connection and thread, so that the writer never does it inside a commit: SQLite's automatic
 /// checkpoint runs in the committing connection and held every decision of that group (several
 /// milliseconds for a thousand pages). Passive: it never waits for readers or the writer, and
-/// what it cannot copy yet it copies next time. Stopped and joined when dropped, so its
-/// connection closes before the store's last one (which then removes the log).
+/// what it cannot copy yet it copies next time. Stopped and joined when dropped (after the
+/// store's other connections): its connection, the last, is closed and has removed the log by
+/// the time the store is gone.
 struct Checkpointer {
     stop: Option<std::sync::mpsc::Sender<()>>,
     thread: Option<std::thread::JoinHandle<()>>,
