@@ -220,8 +220,7 @@ pub struct DecisionSummary {
 
 #[derive(Serialize, ToSchema)]
 pub struct FinalSummary {
-    /// `approve`, `decline` or `withdrawn`.
-    pub action: String,
+    pub action: crate::records::ActionTaken,
     pub decided_at: String,
     /// The name of the key that recorded it.
     pub decided_by: String,
@@ -286,7 +285,7 @@ pub async fn search(state: web::Data<State>, req: HttpRequest) -> Result<HttpRes
                 model_version: r.model_version.clone(),
                 reason_codes: crate::records::export::reason_codes(r),
                 final_action: r.final_action.as_ref().map(|f| FinalSummary {
-                    action: f.action.clone(),
+                    action: f.action,
                     decided_at: f.decided_at.clone(),
                     decided_by: f.decided_by.clone(),
                 }),

@@ -293,7 +293,7 @@ pub async fn create_report(
             agg.add(&DecisionRow {
                 application_id: &r.application_id,
                 outcome: r.outcome.name(),
-                final_action: r.final_action.as_ref().map(|f| f.action.as_str()),
+                final_action: r.final_action.as_ref().map(|f| f.action.name()),
                 probability: r.probability,
                 score: r.score as f64,
             });

@@ -401,7 +401,7 @@ impl Problem {
             "A final action is already recorded for this decision",
             format!(
                 "decision {id} has a final action ({}) recorded at {} by {}; final actions are append-only, and only the same request repeats",
-                earlier.action, earlier.decided_at, earlier.decided_by
+                earlier.action.name(), earlier.decided_at, earlier.decided_by
             ),
         )
         .with("decision_id", "one_final_action", "a decision takes one final action")

@@ -9,9 +9,8 @@ use super::State;
 use crate::artifact::spec::RuleAction;
 use crate::artifact::LoadedModel;
 use crate::features::{FieldError, InputError};
-use crate::records::{FinalAction, FinalInsert, GivenReason, Record};
+use crate::records::{ActionTaken, FinalAction, FinalInsert, GivenReason, Record};
 use actix_web::{web, HttpRequest, HttpResponse};
-use serde::Deserialize;
 use serde_json::{json, Value};
 use utoipa::ToSchema;
 use validator::{Validate, ValidationError};
@@ -22,42 +21,12 @@ pub const MAX_NOTE: usize = 2000;
 /// Longest idempotency key (as for decisions).
 const MAX_KEY: usize = 128;
 
-/// The action an underwriter took.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, ToSchema)]
-#[serde(rename_all = "snake_case")]
-pub enum Action {
-    Approve,
-    Decline,
-    /// The applicant withdrew before a decision: no adverse action, as the lender refused
-    /// nothing (12 CFR 1002.2(c)(1)(i), cited from memory).
-    Withdrawn,
-}
-
-impl Action {
-    fn name(self) -> &'static str {
-        match self {
-            Action::Approve => "approve",
-            Action::Decline => "decline",
-            Action::Withdrawn => "withdrawn",
-        }
-    }
-
-    fn parse(s: &str) -> Option<Action> {
-        match s {
-            "approve" => Some(Action::Approve),
-            "decline" => Some(Action::Decline),
-            "withdrawn" => Some(Action::Withdrawn),
-            _ => None,
-        }
-    }
-}
-
 /// `POST /v1/decisions/{id}/final-action` body (documentation: the body is checked field by
 /// field by [`check`], so that every fault is named at once).
 #[derive(Debug, Clone, ToSchema)]
 #[allow(dead_code)]
 pub struct FinalActionRequest {
-    pub action: Action,
+    pub action: ActionTaken,
     /// For a decline, the principal reasons in order (at least one, at most the policy's
     /// `max_reasons`): codes of the model's reason table (a field's reason, or a decline rule's)
     /// or of the lender's manual-review reasons (the artifact's `review_reasons`). A refer
@@ -78,7 +47,7 @@ pub struct FinalActionRequest {
 
 /// A final-action body read and checked: every field's faults, or the parts.
 struct Checked {
-    action: Action,
+    action: ActionTaken,
     reasons: Vec<String>,
     note: String,
     idempotency_key: Option<String>,
@@ -150,7 +119,7 @@ fn check(body: &Value) -> Result<Checked, InputError> {
             );
             None
         }
-        Value::String(s) => Action::parse(s).or_else(|| {
+        Value::String(s) => ActionTaken::from_name(s).or_else(|| {
             fault(
                 &mut errors,
                 "action",
@@ -241,7 +210,9 @@ fn check(body: &Value) -> Result<Checked, InputError> {
         .then(|| rules.idempotency_key.map(str::to_string))
         .flatten();
     match (action, reasons.len()) {
-        (Some(Action::Decline), 0) if !errors.iter().any(|e| e.field.starts_with("reasons")) => {
+        (Some(ActionTaken::Decline), 0)
+            if !errors.iter().any(|e| e.field.starts_with("reasons")) =>
+        {
             fault(
                 &mut errors,
                 "reasons",
@@ -249,7 +220,7 @@ fn check(body: &Value) -> Result<Checked, InputError> {
                 "a decline states its specific principal reasons (12 CFR 1002.9(b)(2))",
             )
         }
-        (Some(Action::Approve | Action::Withdrawn), n) if n > 0 => fault(
+        (Some(ActionTaken::Approve | ActionTaken::Withdrawn), n) if n > 0 => fault(
             &mut errors,
             "reasons",
             "none",
@@ -393,7 +364,7 @@ pub async fn post_final_action(
     }
     // A decline's reasons come from the decision's own model; an approval or a withdrawal
     // needs none, so it can be recorded after that model was unloaded.
-    let reasons = if request.action == Action::Decline {
+    let reasons = if request.action == ActionTaken::Decline {
         let set = state.registry.current();
         let model = (set.models.iter())
             .find(|m| m.sha256 == record.model_sha256)
@@ -407,7 +378,7 @@ pub async fn post_final_action(
         json!({"action": request.action.name(), "reasons": request.reasons, "note": request.note});
     let action = FinalAction {
         decision_id: record.decision_id.clone(),
-        action: request.action.name().to_string(),
+        action: request.action,
         reasons: serde_json::to_string(&reasons)
             .map_err(|e| Problem::internal("the final action could not be written").caused_by(e))?,
         note: request.note,

@@ -53,7 +53,8 @@ impl Format {
                     format!("{}", r.probability),
                     r.score.to_string(),
                     reason_codes(r).join(";"),
-                    (r.final_action.as_ref()).map_or(String::new(), |f| f.action.clone()),
+                    (r.final_action.as_ref())
+                        .map_or(String::new(), |f| f.action.name().to_string()),
                     (r.final_action.as_ref()).map_or(String::new(), |f| f.decided_at.clone()),
                     (r.final_action.as_ref()).map_or(String::new(), |f| f.decided_by.clone()),
                     match &r.final_action {

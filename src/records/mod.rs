@@ -83,13 +83,44 @@ pub struct AccessPage {
     pub next_cursor: Option<String>,
 }
 
+/// The action an underwriter took on a referral.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize, utoipa::ToSchema)]
+#[serde(rename_all = "snake_case")]
+#[schema(as = Action)] // the OpenAPI name clients were generated with
+pub enum ActionTaken {
+    Approve,
+    Decline,
+    /// The applicant withdrew before a decision: no adverse action, as the lender refused
+    /// nothing (12 CFR 1002.2(c)(1)(i), cited from memory).
+    Withdrawn,
+}
+
+impl ActionTaken {
+    pub fn name(self) -> &'static str {
+        match self {
+            ActionTaken::Approve => "approve",
+            ActionTaken::Decline => "decline",
+            ActionTaken::Withdrawn => "withdrawn",
+        }
+    }
+
+    /// The action a recorded, requested or queried name stands for.
+    pub fn from_name(name: &str) -> Option<ActionTaken> {
+        match name {
+            "approve" => Some(ActionTaken::Approve),
+            "decline" => Some(ActionTaken::Decline),
+            "withdrawn" => Some(ActionTaken::Withdrawn),
+            _ => None,
+        }
+    }
+}
+
 /// The final action on a referred decision (Regulation B, 12 CFR 1002.9(a): the action taken),
 /// recorded append-only beside the decision, never editing it.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct FinalAction {
     pub decision_id: String,
-    /// `approve`, `decline` or `withdrawn`.
-    pub action: String,
+    pub action: ActionTaken,
     /// JSON array of `{"code", "text", "source"}` as given: the reasons' texts are kept, so the
     /// notice reads them from the record.
     pub reasons: String,
@@ -117,8 +148,8 @@ pub enum FinalFilter {
     Pending,
     /// Any final action recorded.
     Recorded,
-    /// This action (`approve`, `decline`, `withdrawn`).
-    Action(String),
+    /// This action.
+    Action(ActionTaken),
 }
 
 /// What writing a record did.
@@ -225,7 +256,9 @@ pub fn parse_query<'a>(get: impl Fn(&str) -> Option<&'a str>) -> Result<Query, Q
         None => None,
         Some("pending") => Some(FinalFilter::Pending),
         Some("recorded") => Some(FinalFilter::Recorded),
-        Some(a @ ("approve" | "decline" | "withdrawn")) => Some(FinalFilter::Action(a.into())),
+        Some(a) if ActionTaken::from_name(a).is_some() => {
+            ActionTaken::from_name(a).map(FinalFilter::Action)
+        }
         Some(_) => {
             return Err(query_error(
                 "final_action",
@@ -469,7 +502,7 @@ pub struct RecordView<'a> {
 /// A final action as the compliance endpoints show it (`reasons` as stored JSON).
 #[derive(Serialize)]
 pub struct FinalActionView<'a> {
-    pub action: &'a str,
+    pub action: ActionTaken,
     pub reasons: &'a serde_json::value::RawValue,
     pub note: &'a str,
     pub decided_by: &'a str,
@@ -482,7 +515,7 @@ impl FinalAction {
     pub fn view(&self) -> Result<FinalActionView<'_>, StoreError> {
         self.given_reasons()?;
         Ok(FinalActionView {
-            action: &self.action,
+            action: self.action,
             reasons: serde_json::from_str(&self.reasons).map_err(|e| {
                 StoreError::Failed(format!(
                     "final action of {} holds invalid JSON: {e}",

@@ -6,7 +6,7 @@
 //! factors that adversely affected it (at most four, plus inquiries where that factor applies)
 //! and the date. The wording of the notice itself is the lender's, reviewed by counsel.
 
-use super::{Record, StoreError};
+use super::{ActionTaken, Record, StoreError};
 use serde::Serialize;
 use serde_json::Value;
 
@@ -157,12 +157,12 @@ struct Action {
 
 fn action_taken(record: &Record, reasons: &[(Reason, From)]) -> Result<Action, NoNotice> {
     match &record.final_action {
-        Some(f) if f.action == "approve" => Err(NoNotice::ApprovedOnReview),
-        Some(f) if f.action == "withdrawn" => Err(NoNotice::Withdrawn),
+        Some(f) if f.action == ActionTaken::Approve => Err(NoNotice::ApprovedOnReview),
+        Some(f) if f.action == ActionTaken::Withdrawn => Err(NoNotice::Withdrawn),
         Some(f) => {
             let given = f.given_reasons().map_err(NoNotice::Damaged)?;
             Ok(Action {
-                outcome: f.action.clone(),
+                outcome: f.action.name().to_string(),
                 decided_at: f.decided_at.clone(),
                 is_final: true,
                 note: REVIEW_DECLINE_NOTE,

@@ -162,9 +162,13 @@ fn row_to_record(r: &Row) -> Result<Record, StoreError> {
         requested_by: get(15)?,
         final_action: match r.try_get::<_, Option<String>>(16).map_err(failed)? {
             None => None,
-            Some(action) => Some(FinalAction {
+            Some(name) => Some(FinalAction {
                 decision_id: get(0)?,
-                action,
+                action: super::ActionTaken::from_name(&name).ok_or_else(|| {
+                    StoreError::Failed(format!(
+                        "final action {name:?} is not approve, decline or withdrawn"
+                    ))
+                })?,
                 reasons: get(17)?,
                 note: get(18)?,
                 decided_by: get(19)?,
@@ -760,7 +764,7 @@ impl Store for PostgresStore {
                         sql::INSERT_FINAL,
                         &[
                             &a.decision_id,
-                            &a.action,
+                            &a.action.name(),
                             &a.reasons,
                             &a.note,
                             &a.decided_by,

@@ -232,7 +232,7 @@ pub fn filter(query: &super::Query) -> (String, Vec<String>) {
             push("d.outcome = 'refer' AND f.decision_id IS NULL", &[]);
         }
         Some(super::FinalFilter::Recorded) => push("f.decision_id IS NOT NULL", &[]),
-        Some(super::FinalFilter::Action(a)) => push("f.action = #", &[a]),
+        Some(super::FinalFilter::Action(a)) => push("f.action = #", &[&a.name().to_string()]),
     }
     if let Some(c) = &query.after {
         push(

@@ -161,6 +161,16 @@ fn create_private(path: &Path) -> Result<(), StoreError> {
     Ok(())
 }
 
+/// The final action in column `i`, refused (as a conversion failure) if it is not one of the
+/// three.
+fn action_at(r: &rusqlite::Row, i: usize) -> rusqlite::Result<super::ActionTaken> {
+    let name: String = r.get(i)?;
+    super::ActionTaken::from_name(&name).ok_or_else(|| {
+        let why = format!("final action {name:?} is not approve, decline or withdrawn");
+        rusqlite::Error::FromSqlConversionFailure(i, rusqlite::types::Type::Text, why.into())
+    })
+}
+
 /// The outcome in column `i`, refused (as a conversion failure) if it is not one of the three.
 fn outcome_at(r: &rusqlite::Row, i: usize) -> rusqlite::Result<super::Outcome> {
     let name: String = r.get(i)?;
@@ -190,9 +200,9 @@ fn row_to_record(r: &rusqlite::Row) -> rusqlite::Result<Record> {
         requested_by: r.get(15)?,
         final_action: match r.get::<_, Option<String>>(16)? {
             None => None,
-            Some(action) => Some(super::FinalAction {
+            Some(_) => Some(super::FinalAction {
                 decision_id: r.get(0)?,
-                action,
+                action: action_at(r, 16)?,
                 reasons: r.get(17)?,
                 note: r.get(18)?,
                 decided_by: r.get(19)?,
@@ -446,7 +456,7 @@ impl Store for SqliteStore {
                 &sql::for_sqlite(sql::INSERT_FINAL),
                 params![
                     a.decision_id,
-                    a.action,
+                    a.action.name(),
                     a.reasons,
                     a.note,
                     a.decided_by,

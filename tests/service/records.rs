@@ -280,7 +280,7 @@ fn upgrades_in_place(location: &str) {
     );
     let action = records::FinalAction {
         decision_id: old.decision_id.clone(),
-        action: "approve".into(),
+        action: records::ActionTaken::Approve,
         reasons: "[]".into(),
         note: String::new(),
         decided_by: "demo-underwriting".into(),
