@@ -174,7 +174,7 @@ pub async fn post_decision(
     } else {
         decide_parsed(&state, &envelope)?
     };
-    let (Some(recorder), expected) = (&state.recorder, expected) else {
+    let Some(recorder) = &state.recorder else {
         observe(&state, &decision, decision.outcome);
         return Ok(json(&decision));
     };

@@ -217,9 +217,8 @@ pub async fn metrics(state: web::Data<State>, req: HttpRequest) -> Result<HttpRe
     }
     let mut text = state.metrics.render();
     if let Some(recorder) = &state.recorder {
-        let stats = recorder.stats();
-        let load = |n: &std::sync::atomic::AtomicU64| n.load(std::sync::atomic::Ordering::Relaxed);
-        super::metrics::render_recorder(&mut text, load(&stats.commits), load(&stats.records));
+        let (commits, records) = recorder.stats();
+        super::metrics::render_recorder(&mut text, commits, records);
     }
     Ok(HttpResponse::Ok()
         .content_type("text/plain; version=0.0.4")

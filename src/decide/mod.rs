@@ -160,20 +160,25 @@ pub fn decide_envelope(
     model: &LoadedModel,
     envelope: &Envelope<'_>,
 ) -> Result<Decision, InputError> {
-    let Some(applicant) = envelope.applicant.as_deref() else {
-        return Err(InputError {
-            errors: envelope.errors.clone(),
-        });
-    };
-    if envelope.errors.is_empty() {
-        let id = envelope.application_id.as_deref().unwrap_or("");
-        return decide(model, id, applicant);
-    }
+    let encoded = prepare(model, envelope)?;
+    let applicant = envelope.applicant.as_deref().unwrap_or(&Value::Null);
+    let id = envelope.application_id.as_deref().unwrap_or("");
+    decide_encoded(model, id, applicant, encoded)
+}
+
+/// The envelope's applicant, checked and encoded; the envelope's problems and the applicant's
+/// are reported together, and an envelope with problems is refused whatever its applicant.
+fn prepare(model: &LoadedModel, envelope: &Envelope<'_>) -> Result<Encoded, InputError> {
+    let encoded =
+        (envelope.applicant.as_deref()).map(|a| model.schema.check_and_encode(a, "applicant"));
     let mut errors = envelope.errors.clone();
-    if let Err(e) = model.schema.check_and_encode(applicant, "applicant") {
-        errors.extend(e.errors);
+    if let Some(Err(e)) = &encoded {
+        errors.extend(e.errors.iter().cloned());
     }
-    Err(InputError { errors })
+    match encoded {
+        Some(Ok(encoded)) if errors.is_empty() => Ok(encoded),
+        _ => Err(InputError { errors }),
+    }
 }
 
 /// A decision whose numbers overflow (a huge value in a field with no `max`) cannot be given,
@@ -203,6 +208,16 @@ pub fn decide(
     applicant: &Value,
 ) -> Result<Decision, InputError> {
     let encoded = model.schema.check_and_encode(applicant, "applicant")?;
+    decide_encoded(model, application_id, applicant, encoded)
+}
+
+/// Decides one applicant already checked and encoded.
+fn decide_encoded(
+    model: &LoadedModel,
+    application_id: &str,
+    applicant: &Value,
+    encoded: Encoded,
+) -> Result<Decision, InputError> {
     let x = &encoded.columns;
     let mut by_column = vec![0.0; x.len()];
     let mut errors = Vec::new();
@@ -231,16 +246,8 @@ pub fn decide_requests(
         .map(|request| {
             let mut envelope = Envelope::parse(request)?;
             check_selector(model, &mut envelope);
-            let encoded = (envelope.applicant.as_deref())
-                .map(|a| model.schema.check_and_encode(a, "applicant"));
-            let mut errors = envelope.errors.clone();
-            if let Some(Err(e)) = &encoded {
-                errors.extend(e.errors.iter().cloned());
-            }
-            match encoded {
-                Some(Ok(encoded)) if errors.is_empty() => Ok((envelope, encoded)),
-                _ => Err(InputError { errors }),
-            }
+            let encoded = prepare(model, &envelope)?;
+            Ok((envelope, encoded))
         })
         .collect();
     let width = model.width();

@@ -93,9 +93,7 @@ impl Explainer {
         }
         None
     }
-}
 
-impl Explainer {
     /// [`Self::explain_scored`] for many rows: `rows` holds them one after another, `width`
     /// values each, and `out` (overwritten) gets each row's contributions in the same shape;
     /// `errors` gets standard errors in that shape for estimated contributions (else stays

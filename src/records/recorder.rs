@@ -103,9 +103,9 @@ impl Drop for StoppedOnDrop {
 
 /// Commits and the records they held, for the metrics (their ratio is the group size).
 #[derive(Debug, Default)]
-pub struct WriterStats {
-    pub commits: AtomicU64,
-    pub records: AtomicU64,
+struct WriterStats {
+    commits: AtomicU64,
+    records: AtomicU64,
 }
 
 #[derive(Clone)]
@@ -165,8 +165,10 @@ impl Recorder {
         Expected(self.expected.clone())
     }
 
-    pub fn stats(&self) -> &WriterStats {
-        &self.stats
+    /// (commits, records they held) so far.
+    pub fn stats(&self) -> (u64, u64) {
+        let load = |n: &AtomicU64| n.load(Ordering::Relaxed);
+        (load(&self.stats.commits), load(&self.stats.records))
     }
 
     pub fn store(&self) -> &Arc<dyn Store> {
@@ -233,36 +235,24 @@ impl Writer {
             .enable_time()
             .build();
         while let Some(first) = rx.blocking_recv() {
-            let mut jobs = vec![first];
-            let mut count = jobs[0].records.len();
-            let take_waiting =
-                |jobs: &mut Vec<Job>, count: &mut usize, rx: &mut mpsc::Receiver<Job>| {
-                    while *count < MAX_GROUP {
-                        match rx.try_recv() {
-                            Ok(job) => {
-                                *count += job.records.len();
-                                jobs.push(job);
-                            }
-                            Err(_) => break,
-                        }
-                    }
-                };
-            take_waiting(&mut jobs, &mut count, &mut rx);
+            let mut group = Group::default();
+            group.add(first);
+            group.take_waiting(&mut rx);
             // Decisions still being decided join this commit, if they come in time.
             if let (Ok(clock), false) = (&clock, self.gather.is_zero()) {
                 // Never past a held job's deadline: it would be refused for the waiting.
-                let first_due = jobs.iter().map(|j| j.deadline).min();
+                let first_due = group.jobs.iter().map(|j| j.deadline).min();
                 let until = (Instant::now() + self.gather).min(first_due.unwrap_or(Instant::now()));
-                while count < MAX_GROUP && self.expected.load(Ordering::Acquire) > 0 {
+                while group.has_room() && self.expected.load(Ordering::Acquire) > 0 {
                     // (The timer is made inside the clock's runtime: it needs its driver.)
                     let next = clock
                         .block_on(async { tokio::time::timeout_at(until.into(), rx.recv()).await });
                     let Ok(Some(job)) = next else { break };
-                    count += job.records.len();
-                    jobs.push(job);
-                    take_waiting(&mut jobs, &mut count, &mut rx);
+                    group.add(job);
+                    group.take_waiting(&mut rx);
                 }
             }
+            let jobs = group.jobs;
             // A panic while writing drops the group's replies (their handlers answer "not
             // recorded"; the transaction is rolled back as it unwinds) but not the writer.
             let written = catch_unwind(AssertUnwindSafe(|| {
@@ -271,6 +261,34 @@ impl Writer {
             if written.is_err() {
                 tracing::error!("writing a group of decision records panicked; none was recorded");
                 self.health.commits(false);
+            }
+        }
+    }
+}
+
+/// The jobs of one commit and how many records they hold.
+#[derive(Default)]
+struct Group {
+    jobs: Vec<Job>,
+    records: usize,
+}
+
+impl Group {
+    fn add(&mut self, job: Job) {
+        self.records += job.records.len();
+        self.jobs.push(job);
+    }
+
+    fn has_room(&self) -> bool {
+        self.records < MAX_GROUP
+    }
+
+    /// Adds the jobs already queued, while there is room.
+    fn take_waiting(&mut self, rx: &mut mpsc::Receiver<Job>) {
+        while self.has_room() {
+            match rx.try_recv() {
+                Ok(job) => self.add(job),
+                Err(_) => break,
             }
         }
     }
